@@ -1,0 +1,23 @@
+"""The errors the measurement library raises, each with a message an operator can act on."""
+
+from __future__ import annotations
+
+
+class FlatsightError(Exception):
+    """Base of every error Flatsight raises on purpose."""
+
+
+class UnreadablePhotoError(FlatsightError):
+    """The file could not be read as a photo (missing, not an image, truncated, too large)."""
+
+
+class UnanalysablePhotoError(FlatsightError):
+    """The photo was read but its fringes cannot be measured (no carrier, closed fringes...)."""
+
+
+class SettingsError(FlatsightError):
+    """A setting is out of range or inconsistent (a wavelength of -5 nm, a bad aperture)."""
+
+
+class MeasurementCancelled(FlatsightError):
+    """The caller's cancel event was set while the analysis was running."""

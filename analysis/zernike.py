@@ -1,0 +1,228 @@
+"""Zernike polynomials in Noll's ordering and normalisation, and the least-squares fit.
+
+Coordinates: ``x`` to the right of the photo and ``y`` toward its top (so the
+angle ``theta`` runs counter-clockwise as the photo is seen), both divided by the
+aperture radius. Each term is orthonormal over the unit disk,
+``(1/pi) * integral(Z_j Z_k dA) = delta_jk``, so a coefficient is that term's RMS.
+
+References
+----------
+R. J. Noll, "Zernike polynomials and atmospheric turbulence", JOSA 66(3), 207 (1976).
+L. N. Thibos et al., "Standards for reporting the optical aberrations of eyes",
+J. Refract. Surg. 18(5), S652 (2002); ANSI Z80.28 and ISO 24157:2008 (OSA/ANSI index).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from math import factorial
+
+import numpy as np
+
+__all__ = [
+    "ZernikeFit",
+    "fit_zernike",
+    "noll_to_nm",
+    "noll_to_osa",
+    "osa_to_noll",
+    "radial",
+    "term_name",
+    "zernike",
+    "zernike_basis",
+]
+
+
+def noll_to_nm(j: int) -> tuple[int, int]:
+    """Radial order ``n`` and signed azimuthal frequency ``m`` of Noll term ``j`` (from 1).
+
+    ``m > 0`` is a cosine term (even ``j``), ``m < 0`` a sine term (odd ``j``).
+
+    Examples
+    --------
+    >>> noll_to_nm(4)
+    (2, 0)
+    >>> noll_to_nm(7)
+    (3, -1)
+    """
+    if j < 1:
+        raise ValueError(f"Noll index starts at 1, got {j}")
+    n = 0
+    while (n + 1) * (n + 2) // 2 < j:
+        n += 1
+    p = j - n * (n + 1) // 2 - 1  # position within the row of order n
+    m = n % 2 + 2 * ((p + (n + 1) % 2) // 2)
+    if m != 0 and j % 2 == 1:
+        m = -m
+    return n, m
+
+
+def nm_to_noll(n: int, m: int) -> int:
+    """Inverse of :func:`noll_to_nm`."""
+    if (n - abs(m)) % 2 or abs(m) > n or n < 0:
+        raise ValueError(f"no Zernike term with n={n}, m={m}")
+    start = n * (n + 1) // 2 + 1
+    for j in range(start, start + n + 1):
+        if noll_to_nm(j) == (n, m):
+            return j
+    raise AssertionError("unreachable")  # pragma: no cover
+
+
+def noll_to_osa(j: int) -> int:
+    """OSA/ANSI single index (from 0) of Noll term ``j``: ``(n(n+2) + m) / 2``."""
+    n, m = noll_to_nm(j)
+    return (n * (n + 2) + m) // 2
+
+
+def osa_to_noll(k: int) -> int:
+    """Noll index of OSA/ANSI term ``k`` (from 0)."""
+    if k < 0:
+        raise ValueError(f"OSA/ANSI index starts at 0, got {k}")
+    n = 0
+    while (n + 1) * (n + 2) // 2 <= k:
+        n += 1
+    m = 2 * k - n * (n + 2)
+    return nm_to_noll(n, m)
+
+
+def radial(n: int, m: int, rho: np.ndarray) -> np.ndarray:
+    """Zernike radial polynomial ``R_n^|m|(rho)`` by Noll's finite sum (eq. 2 of the paper)."""
+    m = abs(m)
+    rho = np.asarray(rho, dtype=float)
+    out = np.zeros_like(rho)
+    for s in range((n - m) // 2 + 1):
+        coef = (-1) ** s * factorial(n - s)
+        coef /= factorial(s) * factorial((n + m) // 2 - s) * factorial((n - m) // 2 - s)
+        out += coef * rho ** (n - 2 * s)
+    return out
+
+
+def zernike(j: int, rho: np.ndarray, theta: np.ndarray) -> np.ndarray:
+    """Noll-normalised Zernike term ``j`` at polar coordinates ``(rho, theta)``."""
+    n, m = noll_to_nm(j)
+    r = radial(n, m, rho)
+    if m == 0:
+        return np.sqrt(n + 1) * r
+    norm = np.sqrt(2 * (n + 1))
+    if m > 0:
+        return norm * r * np.cos(m * np.asarray(theta))
+    return norm * r * np.sin(-m * np.asarray(theta))
+
+
+def zernike_basis(n_terms: int, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Terms ``1..n_terms`` at normalised Cartesian points, as a ``(P, n_terms)`` array.
+
+    Parameters
+    ----------
+    n_terms : int
+        Number of Noll terms, starting at piston.
+    x, y : (P,) ndarray
+        Coordinates divided by the aperture radius (``y`` toward the photo's top).
+    """
+    x = np.ravel(np.asarray(x, dtype=float))
+    y = np.ravel(np.asarray(y, dtype=float))
+    rho = np.hypot(x, y)
+    theta = np.arctan2(y, x)
+    cols = [zernike(j, rho, theta) for j in range(1, n_terms + 1)]
+    return np.stack(cols, axis=1) if cols else np.empty((x.size, 0))
+
+
+_M_NAMES = {1: "coma", 2: "astigmatism", 3: "trefoil", 4: "tetrafoil", 5: "pentafoil",
+            6: "hexafoil", 7: "heptafoil", 8: "octafoil"}
+_ORDINALS = ["primary", "secondary", "tertiary", "quaternary", "quinary"]
+
+
+def term_name(j: int) -> str:
+    """The trade's name for Noll term ``j``: piston, tilt, power, astigmatism, coma..."""
+    n, m = noll_to_nm(j)
+    am = abs(m)
+    if n == 0:
+        return "piston"
+    if n == 1:
+        return "tilt x" if m > 0 else "tilt y"
+    if n == 2 and m == 0:
+        return "power"
+    if am == 0:
+        rank = n // 2 - 2
+        prefix = "" if rank == 0 else f"{_ORDINALS[rank]} " if rank < len(_ORDINALS) else f"order-{n} "
+        return f"{prefix}spherical"
+    # the lowest order that carries this azimuthal frequency is the "primary" one
+    lowest = 3 if am == 1 else am
+    rank = (n - lowest) // 2
+    base = _M_NAMES.get(am, f"{am}-foil")
+    prefix = "" if rank == 0 else (f"{_ORDINALS[rank]} " if rank < len(_ORDINALS) else f"order-{n} ")
+    if am == 1:
+        axis = "x" if m > 0 else "y"
+    else:
+        axis = "0°" if m > 0 else f"{90 / am:g}°"
+    return f"{prefix}{base} {axis}"
+
+
+@dataclass(frozen=True)
+class ZernikeFit:
+    """A least-squares Zernike fit of a height map.
+
+    Attributes
+    ----------
+    coefficients_nm : (J,) ndarray
+        Noll terms ``1..J`` in nanometres of height; each is that term's RMS over the disk.
+    residual_rms_nm : float
+        RMS of the map minus the fit over the pixels used.
+    n_pixels : int
+        How many pixels entered the fit.
+    """
+
+    coefficients_nm: np.ndarray
+    residual_rms_nm: float
+    n_pixels: int
+
+    @property
+    def n_terms(self) -> int:
+        return int(self.coefficients_nm.size)
+
+    def osa_coefficients_nm(self) -> np.ndarray:
+        """The same coefficients in OSA/ANSI order (index 0 = piston); unfitted terms are 0."""
+        j_max = self.n_terms
+        k_max = max(noll_to_osa(j) for j in range(1, j_max + 1))
+        out = np.zeros(k_max + 1)
+        for j in range(1, j_max + 1):
+            out[noll_to_osa(j)] = self.coefficients_nm[j - 1]
+        return out
+
+
+def fit_zernike(
+    height_nm: np.ndarray,
+    x: np.ndarray,
+    y: np.ndarray,
+    *,
+    n_terms: int = 36,
+    basis: np.ndarray | None = None,
+) -> ZernikeFit:
+    """Least-squares fit of Noll terms ``1..n_terms`` to heights at scattered points.
+
+    The points are normalised by the full aperture radius, so masked edge pixels
+    leave the normalisation unchanged. On a pixel grid the terms are only nearly
+    orthogonal, hence a true least-squares solve rather than inner products.
+
+    Parameters
+    ----------
+    height_nm : (P,) ndarray
+        Heights at the valid pixels.
+    x, y : (P,) ndarray
+        Their coordinates divided by the aperture radius (``y`` toward the photo's top).
+    n_terms : int
+        Number of Noll terms (36 by default).
+    basis : (P, n_terms) ndarray, optional
+        A basis already evaluated at these points, to save recomputing it.
+    """
+    h = np.ravel(np.asarray(height_nm, dtype=float))
+    if basis is None:
+        basis = zernike_basis(n_terms, x, y)
+    if h.size < n_terms * 3:
+        raise ValueError(f"too few valid pixels ({h.size}) to fit {n_terms} Zernike terms")
+    coef, *_ = np.linalg.lstsq(basis, h, rcond=None)
+    resid = h - basis @ coef
+    return ZernikeFit(
+        coefficients_nm=coef,
+        residual_rms_nm=float(np.sqrt(np.mean(resid**2))),
+        n_pixels=int(h.size),
+    )

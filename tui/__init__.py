@@ -1,0 +1,1 @@
+"""Flatsight's terminal side: the command line and the inspection station."""
