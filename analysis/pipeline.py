@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import threading
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -10,10 +11,23 @@ from pathlib import Path
 import numpy as np
 
 from .aperture import Aperture, Exclusion
-from .figures import Figures
-from .zernike import ZernikeFit
+from .demodulation import MapGeometry, Spectrum, demodulate
+from .figures import PISTON_TILT, Figures, compute_figures
+from .errors import SettingsError, UnanalysablePhotoError
+from .unwrapping import phase_to_height_nm, unwrap
+from .zernike import ZernikeFit, fit_zernike, zernike_basis
 
-__all__ = ["MapGeometry", "MeasureSettings", "Measurement", "Quality", "Spectrum", "measure"]
+__all__ = [
+    "MapGeometry",
+    "MeasureSettings",
+    "Measurement",
+    "Quality",
+    "Spectrum",
+    "measure",
+    "measurement_from_height",
+    "measurement_from_phase",
+    "with_terms_removed",
+]
 
 Progress = Callable[[str, float], None]
 
@@ -50,33 +64,6 @@ class MeasureSettings:
 
 
 @dataclass(frozen=True)
-class MapGeometry:
-    """How the height map's grid sits on the photo.
-
-    Map pixel ``(row i, column j)`` is centred on photo pixel
-    ``(x, y) = (origin_x_px + j * step_px, origin_y_px + i * step_px)``.
-    """
-
-    origin_x_px: float
-    origin_y_px: float
-    step_px: float
-    shape: tuple[int, int]
-
-    def photo_xy(self) -> tuple[np.ndarray, np.ndarray]:
-        """Photo coordinates (x right, y down) of every map pixel, each ``shape``."""
-        rows, cols = self.shape
-        x = self.origin_x_px + self.step_px * np.arange(cols, dtype=float)
-        y = self.origin_y_px + self.step_px * np.arange(rows, dtype=float)
-        return np.meshgrid(x, y)
-
-    def unit_xy(self, aperture: Aperture) -> tuple[np.ndarray, np.ndarray]:
-        """Zernike coordinates of every map pixel: x right, y up, divided by the radius."""
-        px, py = self.photo_xy()
-        return ((px - aperture.center_x_px) / aperture.radius_px,
-                (aperture.center_y_px - py) / aperture.radius_px)
-
-
-@dataclass(frozen=True)
 class Quality:
     """How good the fringes were, for the operator and the record."""
 
@@ -87,20 +74,6 @@ class Quality:
     mean_modulation: float  # mean fringe visibility over the aperture, 0..1
     masked_fraction: float  # share of the aperture left out (specks, exclusions, low contrast)
     binning: int  # photo pixels binned into one before the Fourier transform
-
-
-@dataclass(frozen=True)
-class Spectrum:
-    """A small log-magnitude view of the photo's spectrum, for the station's spectrum view.
-
-    ``log_magnitude`` is centred on zero frequency; ``carrier_rc`` and the radii are in
-    its own pixels (row, column), so a view can draw the window over it directly.
-    """
-
-    log_magnitude: np.ndarray
-    carrier_rc: tuple[float, float]
-    window_radius: float
-    dc_radius: float
 
 
 @dataclass(frozen=True)
@@ -136,6 +109,20 @@ class Measurement:
     timings_s: dict[str, float] = field(default_factory=dict)
 
 
+def _validate(settings: MeasureSettings) -> None:
+    if not (100.0 <= settings.wavelength_nm <= 20000.0):
+        raise SettingsError(
+            f"wavelength {settings.wavelength_nm:g} nm is out of range (100 to 20000 nm)")
+    if not (15 <= settings.n_terms <= 231):
+        raise SettingsError(f"number of Zernike terms {settings.n_terms} must be 15 to 231")
+    if settings.diameter_mm is not None and not (settings.diameter_mm > 0):
+        raise SettingsError(f"clear-aperture diameter {settings.diameter_mm:g} mm must be > 0")
+    if settings.report_wavelength_nm is not None and not (
+            100.0 <= settings.report_wavelength_nm <= 20000.0):
+        raise SettingsError(f"reporting wavelength {settings.report_wavelength_nm:g} nm is "
+                            "out of range (100 to 20000 nm)")
+
+
 def measure(
     photo: str | Path | np.ndarray,
     settings: MeasureSettings,
@@ -143,5 +130,212 @@ def measure(
     progress: Progress | None = None,
     cancel: threading.Event | None = None,
 ) -> Measurement:
-    """Measure one fringe photo (a path, or an image array with values in 0..1)."""
-    raise NotImplementedError
+    """Measure one fringe photo: load, find the aperture, demodulate, unwrap, fit, figure.
+
+    Parameters
+    ----------
+    photo : path or (H, W) ndarray
+        A PNG, JPEG or TIFF file, or an image array (values 0..1, or integers).
+    settings : MeasureSettings
+        Wavelength, number of Zernike terms, sign, aperture.
+    progress : callable, optional
+        Called as ``progress(stage, fraction)``.
+    cancel : threading.Event, optional
+        When set, the measurement stops with ``MeasurementCancelled``.
+
+    Raises
+    ------
+    UnreadablePhotoError, UnanalysablePhotoError, SettingsError, MeasurementCancelled
+    """
+    from .aperture import find_aperture
+    from .loading import load_photo, photo_from_array
+
+    _validate(settings)
+    timings: dict[str, float] = {}
+    t = time.perf_counter()
+
+    def lap(stage: str) -> None:
+        nonlocal t
+        now = time.perf_counter()
+        timings[stage] = timings.get(stage, 0.0) + now - t
+        t = now
+
+    def report(stage: str, frac: float) -> None:
+        if progress is not None:
+            progress(stage, frac)
+        if cancel is not None and cancel.is_set():
+            from .errors import MeasurementCancelled
+
+            raise MeasurementCancelled("measurement cancelled")
+
+    report("load", 0.0)
+    if isinstance(photo, np.ndarray):
+        fringe_photo = photo_from_array(photo)
+        name = "<array>"
+    else:
+        fringe_photo = load_photo(photo)
+        name = str(photo)
+    image = fringe_photo.pixels
+    lap("load")
+
+    report("aperture", 0.0)
+    warnings: list[str] = []
+    if settings.aperture is not None:
+        aperture = settings.aperture
+        H, W = image.shape
+        if not (0 <= aperture.center_x_px < W and 0 <= aperture.center_y_px < H
+                and aperture.radius_px >= 16):
+            raise SettingsError(
+                f"aperture {aperture.center_x_px:g},{aperture.center_y_px:g},"
+                f"{aperture.radius_px:g} does not fit the {W}x{H} photo (centre inside, "
+                "radius at least 16 px)")
+    else:
+        aperture = find_aperture(image)
+    if settings.exclusions:
+        aperture = aperture.with_exclusions(tuple(aperture.exclusions) + settings.exclusions)
+    if fringe_photo.saturated_fraction > 0.01:
+        warnings.append(f"{100 * fringe_photo.saturated_fraction:.1f} % of the pixels are "
+                        "saturated: shorten the exposure")
+    lap("aperture")
+
+    demod = demodulate(image, aperture, progress=progress, cancel=cancel)
+    lap("demodulate")
+    warnings.extend(demod.warnings)
+    valid = demod.disk & ~demod.masked
+    report("unwrap", 0.0)
+    residual = unwrap(demod.wrapped_residual, valid)
+    phase = demod.model_phase + residual
+    lap("unwrap")
+    quality = {
+        "carrier_fringes": demod.carrier.fringes_across(2 * aperture.radius_px),
+        "carrier_angle_deg": demod.carrier.angle_deg,
+        "fringe_period_px": demod.carrier.period_px,
+        "resolution_cycles_per_aperture": demod.resolution_cycles_per_aperture,
+        "binning": demod.binning,
+    }
+    m = measurement_from_phase(
+        phase, valid, demod.disk, aperture=aperture, geometry=demod.geometry,
+        settings=settings, photo=name, modulation=demod.modulation,
+        quality_fields=quality, spectrum=demod.spectrum, warnings=tuple(warnings),
+        photo_sha256=fringe_photo.sha256,
+    )
+    lap("fit")
+    timings["total"] = sum(timings.values())
+    return _replace(m, timings_s=timings)
+
+
+def _replace(m: Measurement, **changes) -> Measurement:
+    from dataclasses import replace
+
+    return replace(m, **changes)
+
+
+def measurement_from_phase(
+    phase: np.ndarray,
+    valid: np.ndarray,
+    disk: np.ndarray,
+    *,
+    aperture: Aperture,
+    geometry: MapGeometry,
+    settings: MeasureSettings,
+    photo: str,
+    modulation: np.ndarray | None = None,
+    quality_fields: dict | None = None,
+    spectrum: Spectrum | None = None,
+    warnings: tuple[str, ...] = (),
+    photo_sha256: str | None = None,
+) -> Measurement:
+    """A measurement from an unwrapped phase map (radians) on ``geometry``'s grid."""
+    height = phase_to_height_nm(phase, settings.wavelength_nm, invert=settings.invert)
+    return measurement_from_height(
+        height, valid, disk, aperture=aperture, geometry=geometry, settings=settings,
+        photo=photo, modulation=modulation, quality_fields=quality_fields,
+        spectrum=spectrum, warnings=warnings, photo_sha256=photo_sha256,
+    )
+
+
+def measurement_from_height(
+    height_nm: np.ndarray,
+    valid: np.ndarray,
+    disk: np.ndarray | None = None,
+    *,
+    aperture: Aperture,
+    geometry: MapGeometry,
+    settings: MeasureSettings,
+    photo: str,
+    modulation: np.ndarray | None = None,
+    quality_fields: dict | None = None,
+    spectrum: Spectrum | None = None,
+    warnings: tuple[str, ...] = (),
+    photo_sha256: str | None = None,
+) -> Measurement:
+    """Fit and figure a height map (nm) already placed on ``geometry``'s grid.
+
+    ``valid`` marks measured pixels; ``disk`` the aperture (defaults to the disk of
+    ``aperture`` on the grid). Piston and tilt are removed from the stored map.
+    """
+    xu, yu = geometry.unit_xy(aperture)
+    if disk is None:
+        disk = np.hypot(xu, yu) <= 1.0
+    valid = np.asarray(valid, bool) & disk & np.isfinite(height_nm)
+    n_valid = int(valid.sum())
+    if n_valid < 3 * settings.n_terms:
+        raise UnanalysablePhotoError(
+            f"only {n_valid} map pixels could be measured: too few to fit "
+            f"{settings.n_terms} Zernike terms")
+    basis = zernike_basis(settings.n_terms, xu[valid], yu[valid])
+    h = np.asarray(height_nm, dtype=float)[valid]
+    fit = fit_zernike(h, None, None, n_terms=settings.n_terms, basis=basis)
+    figures = compute_figures(h, basis, fit, wavelength_nm=settings.wavelength_nm,
+                              diameter_mm=settings.diameter_mm)
+    tilt = basis[:, :3] @ fit.coefficients_nm[:3]
+    surface = np.full(np.shape(height_nm), np.nan)
+    surface[valid] = h - tilt
+    if modulation is None:
+        modulation = np.where(disk, 1.0, np.nan)
+    n_disk = int(disk.sum())
+    qf = dict(quality_fields or {})
+    quality = Quality(
+        carrier_fringes=float(qf.get("carrier_fringes", 0.0)),
+        carrier_angle_deg=float(qf.get("carrier_angle_deg", 0.0)),
+        fringe_period_px=float(qf.get("fringe_period_px", 0.0)),
+        resolution_cycles_per_aperture=float(qf.get("resolution_cycles_per_aperture", 0.0)),
+        mean_modulation=float(np.nanmean(np.where(valid, modulation, np.nan))),
+        masked_fraction=float(1.0 - n_valid / n_disk) if n_disk else 1.0,
+        binning=int(qf.get("binning", 1)),
+    )
+    warnings = tuple(warnings)
+    if quality.masked_fraction > 0.1:
+        warnings += (f"{100 * quality.masked_fraction:.0f} % of the aperture is masked "
+                     "(specks, exclusions or low contrast): clean the flats or check the "
+                     "aperture",)
+    if spectrum is None:
+        spectrum = Spectrum(np.zeros((1, 1), np.float32), (0.0, 0.0), 0.0, 0.0)
+    return Measurement(
+        photo=photo, settings=settings, aperture=aperture, geometry=geometry,
+        height_nm=surface, valid=valid, modulation=np.asarray(modulation, dtype=np.float32),
+        zernike=fit, figures=figures, quality=quality, spectrum=spectrum,
+        warnings=warnings, photo_sha256=photo_sha256,
+    )
+
+
+def with_terms_removed(
+    m: Measurement, removed_terms: tuple[int, ...]
+) -> tuple[np.ndarray, Figures]:
+    """The map and figures of ``m`` with more Noll terms taken out, without a new FFT.
+
+    Piston and tilt are always removed. Returns the map (NaN where not measured) and
+    the figures computed from it.
+    """
+    xu, yu = m.geometry.unit_xy(m.aperture)
+    valid = m.valid
+    basis = zernike_basis(m.zernike.n_terms, xu[valid], yu[valid])
+    # the stored map has piston and tilt out; put them back so the fit stays the same
+    h = m.height_nm[valid] + basis[:, :3] @ m.zernike.coefficients_nm[:3]
+    removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
+    figures = compute_figures(h, basis, m.zernike, wavelength_nm=m.settings.wavelength_nm,
+                              diameter_mm=m.settings.diameter_mm, removed_terms=removed)
+    idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
+    out = np.full(m.height_nm.shape, np.nan)
+    out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]
+    return out, figures

@@ -1,0 +1,687 @@
+"""Fourier-transform (Takeda) demodulation of a tilt-fringe photo into phase and modulation.
+
+The photo is cropped to the aperture and binned (a flat's photo is oversampled many
+times over), the fringes are extended past the aperture edge and into dust specks
+by a Gerchberg iteration, the carrier is found in the spectrum, and one sideband is
+cut out with a flat-topped window and transformed back on a decimated grid.
+
+A second pass refines the first: the fringes are demodulated against the carrier
+plus a smooth low-order model of the first pass's phase, so the residual sideband
+is narrow and a small window passes all of it. Large surface errors at low tilt
+(where the sideband spreads toward the zero-order term) then keep their accuracy,
+and the sharp fall of fringe contrast at the aperture edge no longer bends the phase.
+
+References
+----------
+M. Takeda, H. Ina, S. Kobayashi, "Fourier-transform method of fringe-pattern analysis
+for computer-based topography and interferometry", JOSA 72(1), 156 (1982).
+C. Roddier, F. Roddier, "Interferogram analysis using Fourier transform techniques",
+Appl. Opt. 26(9), 1668 (1987) (Gerchberg-type fringe extrapolation past the pupil).
+R. W. Gerchberg, "Super-resolution through error energy reduction", Optica Acta 21,
+709 (1974).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import threading
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.fft as sfft
+from scipy import ndimage
+
+from .aperture import Aperture
+from .errors import MeasurementCancelled, UnanalysablePhotoError
+from .zernike import zernike_basis
+
+__all__ = ["Carrier", "Demodulated", "MapGeometry", "Spectrum", "demodulate", "find_carrier"]
+
+WORKERS = max(1, min(4, os.cpu_count() or 1))
+# Low-order model used to re-reference the second pass (Noll 1..15, radial order <= 4).
+MODEL_TERMS = 15
+CROP_MARGIN = 0.32  # crop half-size beyond the radius, as a fraction of it
+TAPER_START, TAPER_END = 1.06, 1.26  # second-pass apodisation, in aperture radii
+MIN_FRINGES = 4.0
+KNOWN_RHO = 0.98
+KNOWN_RHO = 0.98
+KNOWN_RHO = 0.98
+KNOWN_RHO = 0.98
+# second-pass window: radius as a share of the slowest local fringe frequency, and the
+# share of that radius over which it is flat (passes the surface unattenuated)
+W2_FRACTION, W2_FLAT = 0.75, 0.8
+MIN_PERIOD_PX = 2.8
+
+
+@dataclass(frozen=True)
+class MapGeometry:
+    """How a map's grid sits on the photo.
+
+    Map pixel ``(row i, column j)`` is centred on photo pixel
+    ``(x, y) = (origin_x_px + j * step_px, origin_y_px + i * step_px)``.
+    """
+
+    origin_x_px: float
+    origin_y_px: float
+    step_px: float
+    shape: tuple[int, int]
+
+    def photo_xy(self) -> tuple[np.ndarray, np.ndarray]:
+        """Photo coordinates (x right, y down) of every map pixel, each ``shape``."""
+        rows, cols = self.shape
+        x = self.origin_x_px + self.step_px * np.arange(cols, dtype=float)
+        y = self.origin_y_px + self.step_px * np.arange(rows, dtype=float)
+        return np.meshgrid(x, y)
+
+    def unit_xy(self, aperture: Aperture) -> tuple[np.ndarray, np.ndarray]:
+        """Zernike coordinates of every map pixel: x right, y up, divided by the radius."""
+        px, py = self.photo_xy()
+        return ((px - aperture.center_x_px) / aperture.radius_px,
+                (aperture.center_y_px - py) / aperture.radius_px)
+
+
+@dataclass(frozen=True)
+class Spectrum:
+    """A small log-magnitude view of the photo's spectrum, centred on zero frequency.
+
+    ``carrier_rc`` (row, column) and the radii are in this image's own pixels, so a
+    view can draw the carrier and the sideband window over it directly.
+    """
+
+    log_magnitude: np.ndarray
+    carrier_rc: tuple[float, float]
+    window_radius: float
+    dc_radius: float
+
+
+@dataclass(frozen=True)
+class Carrier:
+    """The tilt carrier: spatial frequency of the straight fringes the wedge puts in.
+
+    Frequencies in cycles per photo pixel, x right and y down. By Flatsight's sign
+    convention the carrier points down the photo (``fy > 0``, or ``fy == 0`` and ``fx > 0``).
+    """
+
+    fx_cpp: float
+    fy_cpp: float
+    concentration: float  # share of the fringe energy near the sidebands (1 = clean fringes)
+
+    @property
+    def frequency_cpp(self) -> float:
+        return float(math.hypot(self.fx_cpp, self.fy_cpp))
+
+    @property
+    def period_px(self) -> float:
+        return 1.0 / self.frequency_cpp
+
+    @property
+    def angle_deg(self) -> float:
+        """Direction of the carrier from the photo's x axis toward +y (down), in [0, 180)."""
+        return math.degrees(math.atan2(self.fy_cpp, self.fx_cpp)) % 180.0
+
+    def fringes_across(self, diameter_px: float) -> float:
+        return self.frequency_cpp * diameter_px
+
+
+@dataclass(frozen=True)
+class Demodulated:
+    """Output of :func:`demodulate`, all maps on one decimated grid (``geometry``).
+
+    Attributes
+    ----------
+    phase : (M, N) ndarray
+        Unwrapped-ready phase in radians: the smooth model plus the wrapped residual
+        (``model_phase + wrapped_residual``); call an unwrapper on ``wrapped_residual``.
+    model_phase : (M, N) ndarray
+        The continuous low-order phase model the second pass was referenced to.
+    wrapped_residual : (M, N) ndarray
+        Residual phase in (-pi, pi].
+    modulation : (M, N) ndarray
+        Fringe visibility ``b / a`` at each map pixel.
+    disk : (M, N) bool ndarray
+        Map pixels inside the aperture disk.
+    masked : (M, N) bool ndarray
+        Pixels inside the disk left out: specks, exclusions, too little contrast.
+    """
+
+    model_phase: np.ndarray
+    wrapped_residual: np.ndarray
+    modulation: np.ndarray
+    disk: np.ndarray
+    masked: np.ndarray
+    geometry: MapGeometry
+    carrier: Carrier
+    resolution_cycles_per_aperture: float
+    binning: int
+    spectrum: Spectrum
+    warnings: tuple[str, ...]
+
+
+Progress = Callable[[str, float], None]
+
+
+def _check(cancel: threading.Event | None) -> None:
+    if cancel is not None and cancel.is_set():
+        raise MeasurementCancelled("measurement cancelled")
+
+
+def _bin(image: np.ndarray, k: int) -> np.ndarray:
+    if k == 1:
+        return image
+    h, w = (image.shape[0] // k) * k, (image.shape[1] // k) * k
+    return image[:h, :w].reshape(h // k, k, w // k, k).mean(axis=(1, 3), dtype=np.float32)
+
+
+def _crop(image: np.ndarray, aperture: Aperture, k: int):
+    """Square crop around the aperture with a margin, padded where it leaves the frame.
+
+    Returns the binned crop, a mask of pixels that came from the photo, and the photo
+    coordinates of the binned pixel (0, 0)'s centre.
+    """
+    half = aperture.radius_px * (1.0 + CROP_MARGIN)
+    n = int(math.ceil(2 * half / k)) * k
+    x0 = int(math.floor(aperture.center_x_px - n / 2 + 0.5))
+    y0 = int(math.floor(aperture.center_y_px - n / 2 + 0.5))
+    H, W = image.shape
+    xa, xb = max(0, x0), min(W, x0 + n)
+    ya, yb = max(0, y0), min(H, y0 + n)
+    if xa >= xb or ya >= yb:
+        raise UnanalysablePhotoError("the aperture lies outside the photo")
+    if (xa, ya, xb, yb) == (x0, y0, x0 + n, y0 + n):
+        crop = image[ya:yb, xa:xb]
+        inframe = None
+    else:
+        crop = np.zeros((n, n), dtype=np.float32)
+        crop[ya - y0:yb - y0, xa - x0:xb - x0] = image[ya:yb, xa:xb]
+        inframe = np.zeros((n, n), dtype=bool)
+        inframe[ya - y0:yb - y0, xa - x0:xb - x0] = True
+    binned = _bin(np.asarray(crop, dtype=np.float32), k)
+    inframe_b = None if inframe is None else _bin(inframe.astype(np.float32), k) > 0.99
+    origin = (x0 + (k - 1) / 2.0, y0 + (k - 1) / 2.0)
+    return binned, inframe_b, origin
+
+
+def _radius_grid(shape, center_rc, radius) -> np.ndarray:
+    yy = np.arange(shape[0], dtype=np.float32)[:, None] - np.float32(center_rc[0])
+    xx = np.arange(shape[1], dtype=np.float32)[None, :] - np.float32(center_rc[1])
+    return np.sqrt(yy * yy + xx * xx) / np.float32(radius)
+
+
+def find_carrier(
+    spectrum_mag: np.ndarray, *, min_radius_bins: float, full: bool
+) -> tuple[float, float, float]:
+    """Peak of a magnitude spectrum away from zero frequency, with sub-bin refinement.
+
+    Parameters
+    ----------
+    spectrum_mag : (Ny, Nx) or (Ny, Nx//2+1) ndarray
+        ``|fft2|`` (``full=True``) or ``|rfft2|`` of a real image, unshifted.
+    min_radius_bins : float
+        Zero-order region to ignore, in bins.
+
+    Returns
+    -------
+    (u, v, concentration, prominence)
+        Peak position in bins (row frequency ``u``, column frequency ``v``; signed) with
+        the half-plane convention ``u > 0`` or ``u == 0, v > 0``; the share of the
+        spectrum's energy (outside the zero-order region) within half the carrier
+        frequency of either sideband; and the peak's power over the median power at
+        the same spatial frequency.
+    """
+    ny = spectrum_mag.shape[0]
+    nx = spectrum_mag.shape[1] if full else (spectrum_mag.shape[1] - 1) * 2
+    u = sfft.fftfreq(ny, 1.0 / ny)[:, None]
+    v = (sfft.fftfreq(nx, 1.0 / nx) if full else sfft.rfftfreq(nx, 1.0 / nx))[None, :]
+    r = np.hypot(u, v)
+    power = spectrum_mag.astype(np.float64) ** 2
+    power = np.where(r > min_radius_bins, power, 0.0)
+    idx = np.unravel_index(int(np.argmax(power)), power.shape)
+    pu, pv = float(u[idx[0], 0]), float(v[0, idx[1]])
+
+    def refine(line: np.ndarray, i: int) -> float:
+        if 0 < i < line.size - 1:
+            a, b, c = np.log(line[i - 1] + 1e-30), np.log(line[i] + 1e-30), np.log(line[i + 1] + 1e-30)
+            den = a - 2 * b + c
+            if den < 0:
+                return float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
+        return 0.0
+
+    du = refine(np.roll(power[:, idx[1]], ny // 2 - idx[0])[ny // 2 - 1:ny // 2 + 2], 1)
+    dv = refine(power[idx[0], max(0, idx[1] - 1):idx[1] + 2], 1 if idx[1] > 0 else 0)
+    pu, pv = pu + du, pv + dv
+    f0 = math.hypot(pu, pv)
+    # share of the energy (zero order aside) within half the carrier of either sideband
+    near = (np.hypot(u - pu, v - pv) <= 0.5 * f0) | (np.hypot(u + pu, v + pv) <= 0.5 * f0)
+    total = float(power.sum())
+    concentration = float(power[near].sum() / total) if total > 0 else 0.0
+    # peak over the typical power at the same spatial frequency: straight fringes stand
+    # thousands of times above it, noise or closed (ring-spectrum) fringes a few tens
+    ring = (r > 0.8 * f0) & (r < 1.2 * f0)
+    typical = float(np.median(power[ring])) if ring.any() else 0.0
+    prominence = float(power[idx] / typical) if typical > 0 else float("inf")
+    if pu < 0 or (pu == 0 and pv < 0):
+        pu, pv = -pu, -pv
+    return pu, pv, concentration, prominence
+
+
+def _flat_top(dist: np.ndarray, radius: float, flat: float = 0.75) -> np.ndarray:
+    """1 inside ``flat * radius``, a raised-cosine fall to 0 at ``radius``."""
+    t = np.clip((dist - flat * radius) / ((1 - flat) * radius), 0.0, 1.0)
+    return (0.5 * (1 + np.cos(np.pi * t))).astype(np.float32)
+
+
+def _gerchberg(
+    data: np.ndarray, known: np.ndarray, band: np.ndarray, n_iter: int,
+    cancel: threading.Event | None, start: np.ndarray | None = None,
+) -> np.ndarray:
+    """Extend ``data`` beyond ``known`` as a signal limited to the spectral ``band``.
+
+    Alternately keeps only the band's frequencies and restores the measured values
+    where they are known (Gerchberg 1974; Roddier & Roddier 1987).
+    """
+    x = start.copy() if start is not None else np.where(known, data, data[known].mean())
+    x = x.astype(np.float32, copy=False)
+    for _ in range(n_iter):
+        _check(cancel)
+        f = sfft.rfft2(x, workers=WORKERS)
+        f *= band
+        y = sfft.irfft2(f, s=x.shape, workers=WORKERS)
+        x = np.where(known, data, y).astype(np.float32, copy=False)
+    return x
+
+
+def _decimated_block(f: np.ndarray, center: tuple[int, int], window: np.ndarray,
+                     m: tuple[int, int]) -> np.ndarray:
+    """Inverse transform of the spectrum block around ``center`` on an ``m``-sized grid.
+
+    ``window`` is ``m``-shaped in fftfreq order about the centre. The result samples
+    the band-limited field (with the centre frequency removed) every ``N/m`` pixels.
+    """
+    ny, nx = f.shape
+    my, mx = m
+    ru = (np.arange(my) - (my // 2)).astype(int)
+    rv = (np.arange(mx) - (mx // 2)).astype(int)
+    rows = (center[0] + np.fft.ifftshift(ru)) % ny
+    cols = (center[1] + np.fft.ifftshift(rv)) % nx
+    block = f[np.ix_(rows, cols)] * window
+    out = sfft.ifft2(block, workers=WORKERS)
+    return out * (my * mx) / (ny * nx)
+
+
+def _spectrum_view(mag: np.ndarray, carrier_bins: tuple[float, float], window_bins: float,
+                   dc_bins: float, size: int = 160) -> Spectrum:
+    """A centred, shrunk log-magnitude spectrum with the carrier in its own pixel units."""
+    ny, nx = mag.shape
+    shifted = np.fft.fftshift(np.log1p(mag.astype(np.float64)))
+    k = max(1, int(math.ceil(max(ny, nx) / size)))
+    h, w = (ny // k) * k, (nx // k) * k
+    small = shifted[:h, :w].reshape(h // k, k, w // k, k).max(axis=(1, 3))
+    cy, cx = (ny // 2) / k, (nx // 2) / k
+    return Spectrum(
+        log_magnitude=small.astype(np.float32),
+        carrier_rc=(cy + carrier_bins[0] / k, cx + carrier_bins[1] / k),
+        window_radius=window_bins / k,
+        dc_radius=dc_bins / k,
+    )
+
+
+def _unwrap_small(wrapped: np.ndarray, inside: np.ndarray) -> np.ndarray:
+    from skimage.restoration import unwrap_phase
+
+    out = unwrap_phase(np.ma.masked_array(wrapped, mask=~inside), rng=0)
+    return np.ma.filled(out, np.nan)
+
+
+def _find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: np.ndarray,
+                 rho: np.ndarray, pupil: np.ndarray, k: int) -> np.ndarray:
+    """Dust specks, scratches and dead pixels: where the photo departs from its fringe model.
+
+    The band-limited (Gerchberg) model holds the fringes, their background and a
+    harmonic; a speck is broadband and stands out of the residual. A lightly smoothed
+    residual also catches faint, semi-transparent specks a few pixels across.
+    """
+    model = sfft.irfft2(sfft.rfft2(filled, workers=WORKERS) * band, s=filled.shape,
+                        workers=WORKERS)
+    resid = data - model
+    inner = known & (rho <= 0.97)
+    specks = np.zeros_like(known)
+    for smooth, level in ((0.0, 6.0), (1.2, 5.0)):
+        r = ndimage.gaussian_filter(resid, smooth) if smooth else resid
+        med = float(np.median(r[inner]))
+        sigma = 1.4826 * float(np.median(np.abs(r[inner] - med))) + 1e-6
+        specks |= inner & (np.abs(r - med) > level * sigma)
+    if specks.any():
+        # drop lone noise pixels, keep anything with a neighbour or far out of the noise
+        neighbours = ndimage.uniform_filter(specks.astype(np.float32), size=3) * 9 - 1
+        specks &= neighbours >= 1
+        grow = max(2, int(round(3.0 / k)) + 1)
+        specks = ndimage.binary_dilation(specks, iterations=grow) & pupil
+    return specks
+
+
+def _slowest_fringes(model_coef: np.ndarray, fc: tuple[int, int],
+                     bins_per_cpa: float) -> tuple[float, float]:
+    """Slowest local fringe frequency over the disk, in cycles per aperture diameter.
+
+    Returns its magnitude and its smallest component along the carrier (which reaches
+    zero where the fringes close).
+    """
+    gy, gx = np.mgrid[-1:1:41j, -1:1:41j]
+    on = np.hypot(gx, gy) <= 1.0
+    psi = (zernike_basis(MODEL_TERMS, gx.ravel(), gy.ravel()) @ model_coef).reshape(gx.shape)
+    dpsi_dy_up, dpsi_dx = np.gradient(psi, gy[:, 0], gx[0, :])
+    # the model's unit is the radius, hence the factor 2; rows run down, its y runs up
+    fx_cpa = fc[1] / bins_per_cpa + dpsi_dx / (2 * np.pi) * 2.0
+    fy_cpa = fc[0] / bins_per_cpa - dpsi_dy_up / (2 * np.pi) * 2.0
+    along = (fx_cpa * fc[1] + fy_cpa * fc[0]) / math.hypot(*fc)
+    return float(np.hypot(fx_cpa, fy_cpa)[on].min()), float(along[on].min())
+
+
+def demodulate(
+    image: np.ndarray,
+    aperture: Aperture,
+    *,
+    map_diameter: int = 240,
+    gerchberg_iterations: int = 16,
+    refinements: int = 2,
+    progress: Progress | None = None,
+    cancel: threading.Event | None = None,
+) -> Demodulated:
+    """Fourier-transform demodulation of a tilt-fringe photo over a circular aperture.
+
+    Parameters
+    ----------
+    image : (H, W) ndarray
+        The photo, values in 0..1.
+    aperture : Aperture
+        The clear aperture in photo pixels; its exclusions are masked.
+    map_diameter : int
+        Approximate number of map pixels across the aperture (the decimated grid).
+    gerchberg_iterations : int
+        Iterations of the edge extension.
+    refinements : int
+        How many times the second pass may refit its phase model and run again.
+
+    Returns
+    -------
+    Demodulated
+
+    Raises
+    ------
+    UnanalysablePhotoError
+        No tilt carrier, closed fringes, fringes too dense to sample, too little contrast.
+
+    References
+    ----------
+    Takeda, Ina & Kobayashi, JOSA 72, 156 (1982); Roddier & Roddier, Appl. Opt. 26,
+    1668 (1987).
+    """
+    def report(stage: str, frac: float) -> None:
+        if progress is not None:
+            progress(stage, frac)
+
+    warnings: list[str] = []
+    img = np.asarray(image, dtype=np.float32)
+    diameter_px = 2.0 * aperture.radius_px
+    if aperture.radius_px < 16:
+        raise UnanalysablePhotoError(
+            f"the aperture is only {aperture.radius_px:.0f} px in radius; fringes cannot be "
+            "resolved (photograph the flat larger in the frame)")
+
+    # 1. coarse carrier on a small copy, to choose how far to bin
+    report("carrier", 0.0)
+    k0 = max(1, int(diameter_px // 256))
+    coarse, _, _ = _crop(img, aperture, k0)
+    rc = aperture.radius_px / k0
+    cc = (coarse.shape[0] / 2 - 0.5, coarse.shape[1] / 2 - 0.5)
+    pupil0 = _radius_grid(coarse.shape, cc, rc) <= 1.0
+    filled0 = np.where(pupil0, coarse - coarse[pupil0].mean(), 0.0).astype(np.float32)
+    mag0 = np.abs(sfft.rfft2(filled0, workers=WORKERS))
+    bins_per_cpa0 = coarse.shape[0] / (2 * rc)  # bins per cycle-per-aperture
+    u0, v0, conc0, prom0 = find_carrier(mag0, min_radius_bins=MIN_FRINGES * bins_per_cpa0,
+                                        full=False)
+    fringes0 = math.hypot(u0, v0) / bins_per_cpa0
+    if conc0 < 0.45 or prom0 < 100 or fringes0 < MIN_FRINGES:
+        raise UnanalysablePhotoError(
+            "no straight tilt fringes found (no clear carrier in the spectrum): add tilt "
+            "until 10 to 30 roughly straight fringes cross the flat, and check the lamp "
+            "and the aperture")
+    period0_px = diameter_px / fringes0
+    if period0_px < MIN_PERIOD_PX:
+        raise UnanalysablePhotoError(
+            f"fringes too dense to sample ({period0_px:.1f} px per fringe): reduce the tilt "
+            "or photograph the flat larger")
+    _check(cancel)
+
+    # 2. crop and bin: keep at least ~6 binned pixels per fringe and a few hundred across
+    k = max(1, min(int(period0_px // 6), int(diameter_px // max(12 * fringes0, 400))))
+    data, inframe, origin = _crop(img, aperture, k)
+    n = data.shape[0]
+    r_b = aperture.radius_px / k
+    center_rc = ((aperture.center_y_px - origin[1]) / k, (aperture.center_x_px - origin[0]) / k)
+    rho = _radius_grid(data.shape, center_rc, r_b)
+    pupil = rho <= KNOWN_RHO
+    if inframe is not None:
+        pupil &= inframe
+    excluded = np.zeros_like(pupil)
+    if aperture.exclusions:
+        yy, xx = np.mgrid[0:n, 0:n].astype(np.float32)
+        px = origin[0] + k * xx
+        py = origin[1] + k * yy
+        excluded = ~aperture.inside(px, py) & (rho <= 1.0)
+    known = pupil & ~excluded
+    if known.sum() < 500:
+        raise UnanalysablePhotoError("too little of the aperture is left to measure")
+
+    # pad to a size the FFT likes and that a decimation step divides evenly
+    cpa = 2 * r_b  # binned pixels per aperture diameter
+    step = max(1, int(round(cpa / map_diameter)))
+    size = sfft.next_fast_len(int(math.ceil(n / step)), real=True) * step
+    pad = size - n
+    if pad:
+        data = np.pad(data, ((0, pad), (0, pad)), mode="edge")
+        known = np.pad(known, ((0, pad), (0, pad)))
+        pupil = np.pad(pupil, ((0, pad), (0, pad)))
+        excluded = np.pad(excluded, ((0, pad), (0, pad)))
+        rho = _radius_grid(data.shape, center_rc, r_b)
+    ny = nx = size
+    bins_per_cpa = size / cpa  # FFT bins per cycle-per-aperture
+
+    # 3. carrier on the binned crop
+    fu = sfft.fftfreq(ny, 1.0 / ny)[:, None].astype(np.float32)
+    fvr = sfft.rfftfreq(nx, 1.0 / nx)[None, :].astype(np.float32)
+    start = np.where(known, data, data[known].mean()).astype(np.float32)
+    mag = np.abs(sfft.rfft2(start - data[known].mean(), workers=WORKERS))
+    u, v, conc, _ = find_carrier(mag, min_radius_bins=MIN_FRINGES * bins_per_cpa, full=False)
+    f0_bins = math.hypot(u, v)
+    fringes = f0_bins / bins_per_cpa
+    report("carrier", 1.0)
+    _check(cancel)
+
+    # 4. Gerchberg extension over the zero-order and sideband regions, specks found midway
+    def band_mask(radius_dc: float, radius_sb: float) -> np.ndarray:
+        m = np.hypot(fu, fvr) <= radius_dc
+        m |= np.hypot(fu - u, fvr - v) <= radius_sb
+        m |= np.hypot(fu + u, fvr + v) <= radius_sb
+        # a camera's tone curve puts a second harmonic at twice the carrier
+        if 2.6 * f0_bins < 0.5 * size:
+            m |= np.hypot(fu - 2 * u, fvr - 2 * v) <= 0.5 * radius_sb
+            m |= np.hypot(fu + 2 * u, fvr + 2 * v) <= 0.5 * radius_sb
+        return m
+
+    band = band_mask(0.45 * f0_bins, 0.72 * f0_bins)
+    n1 = max(3, gerchberg_iterations // 3)
+    filled = _gerchberg(data, known, band, n1, cancel, start)
+    report("extension", 0.3)
+    specks = _find_specks(data, filled, band, known, rho, pupil, k)
+    known2 = known & ~specks
+    filled = _gerchberg(data, known2, band, gerchberg_iterations - n1, cancel,
+                        np.where(known2, data, filled))
+    report("extension", 1.0)
+
+    # 5. first pass: plain Takeda, to get a smooth model of the phase
+    fc = (int(round(u)), int(round(v)))
+    spec = sfft.fft2(filled, workers=WORKERS)
+    fu_full = sfft.fftfreq(ny, 1.0 / ny)[:, None]
+    fv_full = sfft.fftfreq(nx, 1.0 / nx)[None, :]
+    dc_window = _flat_top(np.hypot(fu_full, fv_full), 0.45 * f0_bins, 0.6)
+    background = sfft.ifft2(spec * dc_window, workers=WORKERS).real.astype(np.float32)
+
+    step1 = max(step, int(size // max(64, int(3.2 * 0.6 * f0_bins))) or 1)
+    while size % step1:
+        step1 -= 1
+    m1 = size // step1
+    du = np.fft.ifftshift(np.arange(m1) - m1 // 2)
+    w1 = _flat_top(np.hypot(du[:, None] + (fc[0] - u), du[None, :] + (fc[1] - v)),
+                   0.5 * f0_bins, 0.7)
+    c1 = _decimated_block(spec, fc, w1, (m1, m1))
+    grid1 = np.arange(m1) * step1
+    rho1 = np.hypot(grid1[:, None] - center_rc[0], grid1[None, :] - center_rc[1]) / r_b
+    inside1 = rho1 <= 1.0
+    phase1 = _unwrap_small(np.angle(c1), inside1)
+    speck1 = ndimage.maximum_filter(specks.astype(np.uint8), size=step1)[::step1, ::step1] > 0
+    fit_px = inside1 & (rho1 <= 0.93) & ~speck1 & np.isfinite(phase1)
+    amp1 = np.abs(c1)
+    if fit_px.sum() < 4 * MODEL_TERMS:
+        raise UnanalysablePhotoError("too little of the aperture has usable fringes")
+    fit_px &= amp1 > 0.3 * np.median(amp1[fit_px])
+    xu1 = (grid1[None, :] - center_rc[1]) / r_b + 0 * grid1[:, None]
+    yu1 = (center_rc[0] - grid1[:, None]) / r_b + 0 * grid1[None, :]
+    basis1 = zernike_basis(MODEL_TERMS, xu1[fit_px], yu1[fit_px])
+    model_coef, *_ = np.linalg.lstsq(basis1, phase1[fit_px], rcond=None)
+    report("first pass", 1.0)
+    _check(cancel)
+
+    f_min, along_min = _slowest_fringes(model_coef, fc, bins_per_cpa)
+    if along_min <= 0.5:
+        raise UnanalysablePhotoError(
+            "closed fringes: the surface's own slope cancels the tilt somewhere on the "
+            f"aperture ({fringes:.0f} tilt fringes are not enough); add tilt until the "
+            "fringes run across the whole flat")
+
+    # 6. second pass: demodulate against carrier + model. The fringe term then sits near
+    # zero frequency and a flat-top window passes it whole. The window is applied as a
+    # normalised convolution over the measured pixels (so nothing from outside the
+    # aperture enters), after the conjugate sideband has been estimated and taken out
+    # (so the aperture's edge does not spread it into the window). The model is then
+    # refitted from the result and the pass repeated, so steep edges are caught too.
+    yy = np.arange(ny, dtype=np.float32)[:, None]
+    xx = np.arange(nx, dtype=np.float32)[None, :]
+    xu = (xx - np.float32(center_rc[1])) / np.float32(r_b)
+    yu = (np.float32(center_rc[0]) - yy) / np.float32(r_b)
+    region = rho <= TAPER_END
+    basis_region = zernike_basis(MODEL_TERMS, np.broadcast_to(xu, (ny, nx))[region],
+                                 np.broadcast_to(yu, (ny, nx))[region]).astype(np.float32)
+    carrier_phase = (2 * np.pi * (fc[0] * yy / ny + fc[1] * xx / nx)).astype(np.float32)
+    weight = (rho <= KNOWN_RHO) & ~specks & ~excluded
+    if inframe is not None:
+        weight &= np.pad(inframe, ((0, pad), (0, pad))) if pad else inframe
+    weight = weight.astype(np.float32)
+    fringe_signal = (data - background) * weight
+    m = size // step
+    dm = np.fft.ifftshift(np.arange(m) - m // 2)
+    dist = np.hypot(dm[:, None], dm[None, :]).astype(np.float32)
+    dist_full = np.hypot(fu_full, fv_full).astype(np.float32)
+    weight_spec = sfft.fft2(weight, workers=WORKERS)
+    rho_m = rho[::step, ::step][:m, :m]
+    disk = rho_m <= 1.0
+    speck_m = np.zeros_like(disk)
+    if specks.any():
+        frac = ndimage.uniform_filter(specks.astype(np.float32), size=step)[::step, ::step]
+        speck_m = frac[:m, :m] > (0.0 if step == 1 else 0.25)
+    xu_m = np.broadcast_to(xu, (ny, nx))[::step, ::step][:m, :m]
+    yu_m = np.broadcast_to(yu, (ny, nx))[::step, ::step][:m, :m]
+    psi_full = np.zeros((ny, nx), dtype=np.float32)
+
+    def referenced(model: np.ndarray, radius_bins: float) -> np.ndarray:
+        psi_full[region] = basis_region @ model.astype(np.float32)
+        ref = np.exp(-1j * (carrier_phase + psi_full)).astype(np.complex64)
+        z = fringe_signal * ref
+        win_full = _flat_top(dist_full, radius_bins, W2_FLAT)
+        den_full = sfft.ifft2(weight_spec * win_full, workers=WORKERS).real
+        c_full = sfft.ifft2(sfft.fft2(z, workers=WORKERS) * win_full, workers=WORKERS)
+        c_full /= np.maximum(den_full, 0.05)
+        z = z - np.conj(c_full) * (ref * ref) * weight
+        win = _flat_top(dist, radius_bins, W2_FLAT)
+        num = _decimated_block(sfft.fft2(z, workers=WORKERS), (0, 0), win, (m, m))
+        den = _decimated_block(weight_spec, (0, 0), win, (m, m)).real
+        return num / np.maximum(den, 0.05)
+
+    for it in range(refinements + 1):
+        _check(cancel)
+        w2_cpa = float(np.clip(W2_FRACTION * f_min, 2.0, W2_FRACTION * fringes))
+        c2 = referenced(model_coef, w2_cpa * bins_per_cpa)
+        report("second pass", (it + 1) / (refinements + 1))
+        if it == refinements:
+            break
+        amp = np.abs(c2)
+        fit_m = disk & ~speck_m & (rho_m <= 0.98)
+        fit_m &= amp > 0.3 * np.median(amp[fit_m])
+        resid = _unwrap_small(np.angle(c2), fit_m)
+        psi_m = psi_full[::step, ::step][:m, :m]
+        sel = fit_m & np.isfinite(resid)
+        basis_m = zernike_basis(MODEL_TERMS, xu_m[sel], yu_m[sel])
+        delta, *_ = np.linalg.lstsq(basis_m, (psi_m + resid)[sel] - basis_m @ model_coef,
+                                    rcond=None)
+        model_coef = model_coef + delta
+        if np.sqrt(np.sum(delta[3:] ** 2)) < 0.02:  # well under a hundredth of a fringe
+            c2 = referenced(model_coef, w2_cpa * bins_per_cpa)
+            break
+        f_min, _ = _slowest_fringes(model_coef, fc, bins_per_cpa)
+    if f_min < 0.35 * fringes:
+        warnings.append(
+            f"fringes nearly close somewhere on the aperture ({f_min:.1f} fringes per "
+            "aperture at the slowest): resolution is reduced; more tilt would help")
+
+    # 7. maps on the decimated grid
+    bg = background[::step, ::step][:m, :m]
+    modulation = (2.0 * np.abs(c2) / np.maximum(bg, 1e-6)).astype(np.float32)
+    psi_map = psi_full[::step, ::step][:m, :m].astype(np.float64)
+    wrapped = np.angle(c2).astype(np.float64)
+    masked = speck_m.copy()
+    if excluded.any():
+        masked |= excluded[::step, ::step][:m, :m]
+    if inframe is not None:
+        pinf = np.pad(inframe, ((0, pad), (0, pad))) if pad else inframe
+        masked |= ~pinf[::step, ::step][:m, :m]
+    good = disk & ~masked
+    med_mod = float(np.median(modulation[good])) if good.any() else 0.0
+    if med_mod < 0.04:
+        raise UnanalysablePhotoError(
+            f"too little fringe contrast (visibility {med_mod:.2f}): check the lamp, the "
+            "focus and the contact between the flats")
+    masked |= disk & (modulation < 0.25 * med_mod)
+    masked &= disk
+
+    geometry = MapGeometry(
+        origin_x_px=origin[0],
+        origin_y_px=origin[1],
+        step_px=float(step * k),
+        shape=(m, m),
+    )
+    carrier = Carrier(
+        fx_cpp=(v / nx) / k, fy_cpp=(u / ny) / k, concentration=conc,
+    )
+    if carrier.period_px < 4.5:
+        warnings.append(f"dense fringes ({carrier.period_px:.1f} px per fringe): less tilt "
+                        "or a larger image of the flat gives a cleaner result")
+    if fringes < 10:
+        warnings.append(f"only {fringes:.0f} tilt fringes across the aperture: 10 to 30 suit "
+                        "this method best")
+    spectrum = _spectrum_view(np.abs(spec), (u if u < ny / 2 else u - ny, v),
+                              0.5 * f0_bins, 0.45 * f0_bins)
+    return Demodulated(
+        model_phase=psi_map,
+        wrapped_residual=wrapped,
+        modulation=np.where(disk, modulation, np.nan).astype(np.float32),
+        disk=disk,
+        masked=masked,
+        geometry=geometry,
+        carrier=carrier,
+        resolution_cycles_per_aperture=W2_FLAT * w2_cpa,
+        binning=k,
+        spectrum=spectrum,
+        warnings=tuple(warnings),
+    )

@@ -1,0 +1,180 @@
+"""The measurement as a document (the `measure --json` record) and the saved height map."""
+
+from __future__ import annotations
+
+import io
+import math
+import os
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+
+from .atomic import atomic_path, atomic_write_bytes
+from .errors import SettingsError
+from .figures import to_fringes, to_waves
+from .pipeline import Measurement
+
+__all__ = ["RECORD_SCHEMA", "SIGN_CONVENTION", "measurement_to_record", "save_height_map",
+           "flat_fields"]
+
+RECORD_SCHEMA = "flatsight.measurement/1"
+SIGN_CONVENTION = (
+    "height = +phase x wavelength / (4 pi) with the carrier taken pointing down the photo "
+    "(right for vertical fringes): the wedge is assumed wider toward the top (left); "
+    "positive = high point on the part" )
+_WAVE_FIELDS = ("pv", "rms", "pvr", "power", "irregularity", "astigmatism")
+
+
+def _version() -> str:
+    try:
+        return metadata.version("flatsight")
+    except metadata.PackageNotFoundError:  # pragma: no cover - running from a bare tree
+        return "unknown"
+
+
+def _num(value: float | None, digits: int = 4) -> float | None:
+    if value is None or not math.isfinite(value):
+        return None
+    return round(float(value), digits)
+
+
+def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
+    """The JSON document of a measurement (one line of ``flatsight measure --json``).
+
+    Parameters
+    ----------
+    m : Measurement
+    ordering : {"noll", "osa"}
+        Zernike ordering of ``zernike.coefficients_nm``: Noll from j = 1, or OSA/ANSI
+        (ISO 24157) from index 0.
+    """
+    f = m.figures
+    lam = m.settings.wavelength_nm
+    rec: dict = {
+        "schema": RECORD_SCHEMA,
+        "flatsight_version": _version(),
+        "photo": m.photo,
+        "photo_sha256": m.photo_sha256,
+        "wavelength_nm": lam,
+        "aperture": {
+            "center_x_px": _num(m.aperture.center_x_px, 2),
+            "center_y_px": _num(m.aperture.center_y_px, 2),
+            "radius_px": _num(m.aperture.radius_px, 2),
+            "exclusions": [
+                {"center_x_px": _num(e.center_x_px, 2), "center_y_px": _num(e.center_y_px, 2),
+                 "radius_px": _num(e.radius_px, 2)}
+                for e in m.aperture.exclusions
+            ],
+            "source": "given" if m.settings.aperture is not None else "found",
+        },
+        "pv_nm": _num(f.pv_nm, 3),
+        "rms_nm": _num(f.rms_nm, 3),
+        "pvr_nm": _num(f.pvr_nm, 3),
+        "power_nm": _num(f.power_nm, 3),
+        "irregularity_nm": _num(f.irregularity_nm, 3),
+        "astigmatism_nm": _num(f.astigmatism_nm, 3),
+        "astigmatism_axis_deg": _num(f.astigmatism_axis_deg, 2),
+        "symmetric_irregularity_nm": _num(f.symmetric_irregularity_nm, 3),
+        "rms_irregularity_nm": _num(f.rms_irregularity_nm, 3),
+        "rms_asymmetric_nm": _num(f.rms_asymmetric_nm, 3),
+        "radius_of_curvature_m": _num(f.radius_of_curvature_m, 2),
+    }
+    for name in _WAVE_FIELDS:
+        rec[f"{name}_waves"] = _num(to_waves(getattr(f, f"{name}_nm"), lam), 5)
+    for name in ("pv", "power", "irregularity"):
+        rec[f"{name}_fringes"] = _num(to_fringes(getattr(f, f"{name}_nm"), lam), 4)
+    if m.settings.report_wavelength_nm:
+        rl = m.settings.report_wavelength_nm
+        rec["report_waves"] = {"wavelength_nm": rl} | {
+            f"{name}_waves": _num(to_waves(getattr(f, f"{name}_nm"), rl), 5)
+            for name in _WAVE_FIELDS
+        }
+    coef = m.zernike.coefficients_nm
+    if ordering == "osa":
+        coefficients = m.zernike.osa_coefficients_nm()
+        first_index = 0
+    elif ordering == "noll":
+        coefficients = coef
+        first_index = 1
+    else:
+        raise SettingsError(f"unknown Zernike ordering {ordering!r}: use noll or osa")
+    rec["zernike"] = {
+        "ordering": ordering,
+        "first_index": first_index,
+        "normalisation": "Noll: orthonormal over the unit disk, each coefficient is that "
+                         "term's RMS",
+        "coordinates": "x right, y toward the top of the photo, over the aperture radius",
+        "radius_px": _num(m.aperture.radius_px, 2),
+        "coefficients_nm": [_num(c, 4) for c in coefficients],
+        "fit_residual_rms_nm": _num(m.zernike.residual_rms_nm, 4),
+    }
+    q = m.quality
+    rec["quality"] = {
+        "carrier_fringes": _num(q.carrier_fringes, 2),
+        "carrier_angle_deg": _num(q.carrier_angle_deg, 2),
+        "fringe_period_px": _num(q.fringe_period_px, 2),
+        "resolution_cycles_per_aperture": _num(q.resolution_cycles_per_aperture, 2),
+        "mean_modulation": _num(q.mean_modulation, 4),
+        "masked_fraction": _num(q.masked_fraction, 5),
+        "binning": q.binning,
+        "map_pixels_across": int(round(2 * m.aperture.radius_px / m.geometry.step_px)),
+    }
+    rec["settings"] = {
+        "wavelength_nm": lam,
+        "n_terms": m.settings.n_terms,
+        "invert": m.settings.invert,
+        "diameter_mm": m.settings.diameter_mm,
+        "report_wavelength_nm": m.settings.report_wavelength_nm,
+        "removed_terms": list(f.removed_terms),
+    }
+    rec["sign_convention"] = SIGN_CONVENTION
+    rec["method"] = ("Fourier-transform fringe analysis (Takeda 1982) with Gerchberg edge "
+                     "extension (Roddier & Roddier 1987); Zernike fit, Noll 1976")
+    rec["warnings"] = list(m.warnings)
+    return rec
+
+
+def flat_fields(record: dict) -> dict:
+    """The record's scalar fields, flattened for a CSV row (Zernike terms as z1, z2, ...)."""
+    row: dict = {}
+    for key, value in record.items():
+        if isinstance(value, dict):
+            if key == "zernike":
+                first = value.get("first_index", 1)
+                for i, c in enumerate(value.get("coefficients_nm", [])):
+                    row[f"z{i + first}_nm"] = c
+                row["zernike_ordering"] = value.get("ordering")
+                continue
+            for sub, v in value.items():
+                if not isinstance(v, (dict, list)):
+                    row[f"{key}.{sub}"] = v
+        elif isinstance(value, list):
+            if key == "warnings":
+                row["warnings"] = " | ".join(str(w) for w in value)
+        else:
+            row[key] = value
+    return row
+
+
+def save_height_map(m: Measurement, path: str | os.PathLike) -> Path:
+    """Write the height map (nm, NaN where not measured) as ``.npy`` or 32-bit float ``.tif``.
+
+    The map is the measurement's grid (``m.geometry``), piston and tilt removed. The
+    write is atomic: a reader sees the old file or the whole new one.
+    """
+    target = Path(path)
+    suffix = target.suffix.lower()
+    data = np.asarray(m.height_nm, dtype=np.float32)
+    if suffix == ".npy":
+        buf = io.BytesIO()
+        np.save(buf, data)
+        atomic_write_bytes(target, buf.getvalue())
+    elif suffix in (".tif", ".tiff"):
+        from PIL import Image
+
+        with atomic_path(target) as tmp:
+            Image.fromarray(data).save(tmp, format="TIFF")
+    else:
+        raise SettingsError(f"cannot save a height map as {target.name}: use .npy or .tif")
+    return target

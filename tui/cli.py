@@ -1,0 +1,109 @@
+"""The `flatsight` command: subcommands for measuring, inspecting and keeping records.
+
+Kept light on purpose: each subcommand's module imports its heavy libraries inside
+``run``, so ``flatsight --help`` answers at once.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import os
+import sys
+
+from .options import EXIT_CODES
+
+# (module, one-line summary) in the order a shop uses them
+COMMANDS = [
+    "cmd_measure",
+    "cmd_inspect",
+    "cmd_stack",
+    "cmd_absolute",
+    "cmd_records",
+    "cmd_watch",
+]
+
+DESCRIPTION = """\
+Flatsight: flatness of optical flats from a photo of their fringes.
+
+Photograph the part against a reference flat under monochromatic light with
+10 to 30 straight tilt fringes across it; Flatsight reports PV, RMS, PVr,
+power and irregularity in nm, waves and fringes (one fringe = half a wavelength).
+
+Safety: never look into a laser beam or its reflections, and follow your shop's
+laser and glass-handling procedures. Flatsight's figures support, and do not
+replace, the shop's calibrated instruments and the customer's acceptance test."""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="flatsight",
+        description=DESCRIPTION,
+        epilog=EXIT_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    pkg = __package__ or "flatsight.tui"
+    try:
+        from importlib.metadata import version
+
+        ver = version("flatsight")
+    except Exception:  # pragma: no cover - bare source tree
+        ver = "unknown"
+    parser.add_argument("--version", action="version", version=f"flatsight {ver}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMANDS:
+        try:
+            module = importlib.import_module(f"{pkg}.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"{pkg}.{name}":
+                continue  # a command not installed in this build
+            raise
+        before = set(sub.choices)
+        module.add_parser(sub)
+        for added in set(sub.choices) - before:
+            if sub.choices[added].get_default("run") is None:
+                sub.choices[added].set_defaults(run=module.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``flatsight`` console command; returns the exit status."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse: --help (0) or a usage error (2)
+        return int(exc.code or 0)
+    if not getattr(args, "command", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args.run(args))
+    except KeyboardInterrupt:
+        print("flatsight: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        # the reader went away (e.g. `| head`); nothing more to say
+        try:
+            sys.stdout = open(os.devnull, "w")  # noqa: SIM115 - silence the final flush
+        except OSError:
+            pass
+        return 0
+    except Exception as exc:  # the last guard: one line, never a traceback
+        if os.environ.get("FLATSIGHT_DEBUG"):
+            raise
+        from flatsight.analysis.errors import FlatsightError
+
+        if isinstance(exc, FlatsightError):
+            print(f"flatsight: error: {exc}", file=sys.stderr)
+            return 2
+        print(f"flatsight: internal error: {type(exc).__name__}: {exc} "
+              "(set FLATSIGHT_DEBUG=1 for details)", file=sys.stderr)
+        return 4
+
+
+def entry() -> None:  # pragma: no cover - console script wrapper
+    sys.exit(main())
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

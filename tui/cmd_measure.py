@@ -1,0 +1,199 @@
+"""`flatsight measure`: fringe photos in, flatness figures out, as a table, JSON Lines or CSV."""
+
+from __future__ import annotations
+
+import argparse
+import glob
+import os
+import sys
+from pathlib import Path
+
+from .options import EXIT_CODES, circle_type, wavelength_type
+from .record_options import add_record_options
+
+HELP = "measure fringe photos: PV, RMS, PVr, power, irregularity"
+DESCRIPTION = """\
+Measure the flatness of each photo: find the aperture, demodulate the tilt
+fringes (Fourier-transform method), unwrap, fit Zernike terms (Noll), and
+report PV, RMS, PVr, power and irregularity in nm, waves and fringes
+(one fringe = half a wavelength of height).
+
+Sign: Flatsight takes the air wedge to be wider toward the top of the photo
+(toward the left when the fringes are vertical), so a high point on the part
+reads positive and a convex part has positive power. Push test: close the gap
+gently (press lightly at the wedge's thin end, following your shop's procedure);
+if the fringes travel toward the bottom (right) of the photo instead of the top
+(left), the wedge runs the other way: add --invert.
+
+PHOTO may be a file (PNG, JPEG, TIFF), a folder (its photos) or a glob."""
+
+EXAMPLES = """\
+examples:
+  flatsight measure sample_images/BW-FL-0412_hene.png --wavelength hene
+  flatsight measure shots/*.tif --wavelength 546.07 --json > results.jsonl
+  flatsight measure part.png --wavelength 632.8 --aperture 640,480,410 --diameter 100
+  flatsight measure part.png --wavelength sodium --spec '3/2(0.5)' --part BW-FL-0412
+"""
+
+
+def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    p = sub.add_parser(
+        "measure", help=HELP, description=DESCRIPTION, epilog=EXAMPLES + "\n" + EXIT_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("photos", nargs="+", metavar="PHOTO", help="photo files, folders or globs")
+    p.add_argument("-w", "--wavelength", type=wavelength_type, default=None, metavar="NM",
+                   help="test wavelength in nm, or hene (632.8), sodium (589.3), helium-d "
+                        "(587.56), mercury-e (546.07); required unless a preset gives it")
+    out = p.add_mutually_exclusive_group()
+    out.add_argument("--json", action="store_true",
+                     help="one JSON object per photo per line (JSON Lines) on stdout")
+    out.add_argument("--csv", action="store_true", help="one CSV row per photo on stdout")
+    p.add_argument("--aperture", type=circle_type, metavar="X,Y,R",
+                   help="clear aperture in photo pixels (x right, y down); default: found "
+                        "automatically")
+    p.add_argument("--exclude", type=circle_type, metavar="X,Y,R", action="append",
+                   default=[], help="leave a circle out (a chip, a central hole); repeatable")
+    p.add_argument("--diameter", type=float, metavar="MM", default=None,
+                   help="physical clear-aperture diameter, for the radius of curvature")
+    p.add_argument("--invert", action="store_true",
+                   help="flip the sign of the surface (see 'Sign' above)")
+    p.add_argument("--terms", type=int, metavar="N", default=None,
+                   help="Zernike terms to fit (Noll, default 36, at least 15)")
+    p.add_argument("--ordering", choices=("noll", "osa"), default="noll",
+                   help="Zernike ordering in the output: noll (from j=1, default) or osa "
+                        "(OSA/ANSI, ISO 24157, from 0)")
+    p.add_argument("--report-wavelength", type=wavelength_type, metavar="NM", default=None,
+                   help="also give the figures in waves of this wavelength")
+    p.add_argument("--save-map", metavar="FILE", default=None,
+                   help="write the height map in nm (.npy or 32-bit float .tif); with "
+                        "several photos put {name} in FILE for each photo's name")
+    p.add_argument("--detail", action="store_true",
+                   help="the full table for every photo, even in a batch")
+    add_record_options(p)
+    p.set_defaults(run=run)
+    return p
+
+
+def expand_photos(items: list[str]) -> tuple[list[str], list[str]]:
+    """Files to measure from the command line's files, folders and globs.
+
+    Returns the paths (in the order given, folders and globs sorted) and one-line
+    problems for entries that name nothing.
+    """
+    from flatsight.analysis.loading import is_photo_path
+
+    paths: list[str] = []
+    problems: list[str] = []
+    for item in items:
+        if os.path.isdir(item):
+            found = sorted(str(p) for p in Path(item).iterdir()
+                           if p.is_file() and is_photo_path(p))
+            if not found:
+                problems.append(f"{item}: folder holds no PNG, JPEG or TIFF photos")
+            paths.extend(found)
+        elif not os.path.exists(item) and glob.has_magic(item):
+            found = sorted(p for p in glob.glob(item) if os.path.isfile(p) and is_photo_path(p))
+            if not found:
+                problems.append(f"{item}: no photos match")
+            paths.extend(found)
+        else:
+            paths.append(item)  # loading reports a missing or unreadable file
+    return paths, problems
+
+
+def _settings(args: argparse.Namespace):
+    from flatsight.analysis.aperture import Aperture, Exclusion
+    from flatsight.analysis.pipeline import MeasureSettings
+
+    aperture = Aperture(*args.aperture) if args.aperture else None
+    return MeasureSettings(
+        wavelength_nm=float(args.wavelength),
+        n_terms=int(args.terms) if args.terms is not None else 36,
+        invert=bool(args.invert),
+        diameter_mm=float(args.diameter) if args.diameter is not None else None,
+        aperture=aperture,
+        exclusions=tuple(Exclusion(*c) for c in args.exclude),
+        report_wavelength_nm=args.report_wavelength,
+    )
+
+
+def _map_path(template: str, photo: str, n_photos: int) -> str:
+    if "{name}" in template:
+        return template.replace("{name}", Path(photo).stem)
+    return template
+
+
+def run(args: argparse.Namespace) -> int:
+    from flatsight.analysis.errors import (
+        SettingsError,
+        UnanalysablePhotoError,
+        UnreadablePhotoError,
+    )
+    from flatsight.analysis.pipeline import measure
+    from flatsight.analysis.record import measurement_to_record, save_height_map
+
+    from .record_options import apply_preset, finish_record, tolerance_from_args
+    from .report_text import Reporter
+
+    err = sys.stderr
+    try:
+        args = apply_preset(args)
+        if args.wavelength is None:
+            raise SettingsError("give the test wavelength: --wavelength NM (e.g. 632.8 or "
+                                "hene for a He-Ne laser)")
+        args.wavelength = wavelength_type(str(args.wavelength))
+        tolerance_from_args(args)  # a malformed tolerance fails before any photo
+        settings = _settings(args)
+    except (SettingsError, argparse.ArgumentTypeError, ValueError) as exc:
+        print(f"flatsight measure: error: {exc}", file=err)
+        return 2
+
+    photos, problems = expand_photos(args.photos)
+    status = 0
+    for problem in problems:
+        print(f"flatsight measure: error: {problem}", file=err)
+        status = 2
+    if args.save_map and len(photos) > 1 and "{name}" not in args.save_map:
+        print("flatsight measure: error: with several photos, put {name} in --save-map "
+              "(e.g. maps/{name}.npy)", file=err)
+        return 2
+
+    mode = "json" if args.json else "csv" if args.csv else "table"
+    reporter = Reporter(mode=mode, detail=args.detail or len(photos) == 1,
+                        ordering=args.ordering)
+    progress = reporter.progress(len(photos), stream=err)
+    try:
+        for i, photo in enumerate(photos):
+            progress.start(photo, i)
+            try:
+                m = measure(photo, settings, progress=progress.stage)
+                record = measurement_to_record(m, ordering=args.ordering)
+                if args.save_map:
+                    target = _map_path(args.save_map, photo, len(photos))
+                    try:
+                        save_height_map(m, target)
+                    except OSError as exc:
+                        raise SettingsError(f"cannot write the height map {target}: "
+                                            f"{exc.strerror or exc}") from None
+                    record["height_map_path"] = str(Path(target).resolve())
+                record, verdict_status = finish_record(args, record)
+                status = max(status, verdict_status)
+                progress.pause()
+                reporter.emit(record, m)
+            except UnreadablePhotoError as exc:
+                progress.pause()
+                print(f"flatsight measure: error: {exc}", file=err)
+                status = max(status, 2)
+            except UnanalysablePhotoError as exc:
+                progress.pause()
+                print(f"flatsight measure: cannot analyse {photo}: {exc}", file=err)
+                status = max(status, 3)
+            except SettingsError as exc:
+                progress.pause()
+                print(f"flatsight measure: error: {exc}", file=err)
+                status = max(status, 2)
+    finally:
+        progress.stop()
+    reporter.finish()
+    return status
