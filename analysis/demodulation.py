@@ -35,7 +35,7 @@ from scipy import ndimage
 
 from .aperture import Aperture
 from .errors import MeasurementCancelled, UnanalysablePhotoError
-from .zernike import zernike_basis
+from .zernike import solve_least_squares, zernike_basis
 
 __all__ = ["Carrier", "Demodulated", "MapGeometry", "Spectrum", "demodulate", "find_carrier"]
 
@@ -45,13 +45,12 @@ MODEL_TERMS = 15
 CROP_MARGIN = 0.32  # crop half-size beyond the radius, as a fraction of it
 TAPER_START, TAPER_END = 1.06, 1.26  # second-pass apodisation, in aperture radii
 MIN_FRINGES = 4.0
-KNOWN_RHO = 0.98
-KNOWN_RHO = 0.98
-KNOWN_RHO = 0.98
-KNOWN_RHO = 0.98
+# measured pixels end a little inside the rim, where a soft aperture edge starts to dim
+# the fringes; the local fit carries the phase out to the rim from there
+KNOWN_RHO = 0.95
 # second-pass window: radius as a share of the slowest local fringe frequency, and the
 # share of that radius over which it is flat (passes the surface unattenuated)
-W2_FRACTION, W2_FLAT = 0.75, 0.8
+W2_FRACTION, W2_FLAT = 0.7, 0.7
 MIN_PERIOD_PX = 2.8
 
 
@@ -118,8 +117,12 @@ class Carrier:
 
     @property
     def angle_deg(self) -> float:
-        """Direction of the carrier from the photo's x axis toward +y (down), in [0, 180)."""
-        return math.degrees(math.atan2(self.fy_cpp, self.fx_cpp)) % 180.0
+        """Direction of the carrier from the photo's x axis toward +y (down), degrees.
+
+        In [0, 180) by the sign convention, except that a carrier within about a degree
+        of the x axis is kept pointing right and may read a fraction of a degree below 0.
+        """
+        return math.degrees(math.atan2(self.fy_cpp, self.fx_cpp))
 
     def fringes_across(self, diameter_px: float) -> float:
         return self.frequency_cpp * diameter_px
@@ -167,14 +170,18 @@ def _check(cancel: threading.Event | None) -> None:
         raise MeasurementCancelled("measurement cancelled")
 
 
-def _bin(image: np.ndarray, k: int) -> np.ndarray:
+def _bin(image: np.ndarray, k: int, *, stride: bool = False) -> np.ndarray:
+    """Mean of each k x k block (or, with ``stride``, one pixel of each: a quick look)."""
     if k == 1:
         return image
+    if stride:
+        return np.ascontiguousarray(image[k // 2::k, k // 2::k])
     h, w = (image.shape[0] // k) * k, (image.shape[1] // k) * k
-    return image[:h, :w].reshape(h // k, k, w // k, k).mean(axis=(1, 3), dtype=np.float32)
+    blocks = image[:h, :w].reshape(h // k, k, w // k, k)
+    return blocks.sum(axis=3, dtype=np.float32).sum(axis=1) * np.float32(1.0 / (k * k))
 
 
-def _crop(image: np.ndarray, aperture: Aperture, k: int):
+def _crop(image: np.ndarray, aperture: Aperture, k: int, *, stride: bool = False):
     """Square crop around the aperture with a margin, padded where it leaves the frame.
 
     Returns the binned crop, a mask of pixels that came from the photo, and the photo
@@ -197,9 +204,11 @@ def _crop(image: np.ndarray, aperture: Aperture, k: int):
         crop[ya - y0:yb - y0, xa - x0:xb - x0] = image[ya:yb, xa:xb]
         inframe = np.zeros((n, n), dtype=bool)
         inframe[ya - y0:yb - y0, xa - x0:xb - x0] = True
-    binned = _bin(np.asarray(crop, dtype=np.float32), k)
+    binned = _bin(np.asarray(crop, dtype=np.float32), k, stride=stride)
     inframe_b = None if inframe is None else _bin(inframe.astype(np.float32), k) > 0.99
     origin = (x0 + (k - 1) / 2.0, y0 + (k - 1) / 2.0)
+    if stride:
+        origin = (x0 + k // 2, y0 + k // 2)
     return binned, inframe_b, origin
 
 
@@ -250,6 +259,9 @@ def find_carrier(
 
     du = refine(np.roll(power[:, idx[1]], ny // 2 - idx[0])[ny // 2 - 1:ny // 2 + 2], 1)
     dv = refine(power[idx[0], max(0, idx[1] - 1):idx[1] + 2], 1 if idx[1] > 0 else 0)
+    # the half-plane is decided on the whole-bin peak, so a sub-bin shift of a carrier
+    # lying along the x axis (fringes within about a degree of vertical) cannot flip it
+    flip = pu < 0 or (pu == 0 and pv < 0)
     pu, pv = pu + du, pv + dv
     f0 = math.hypot(pu, pv)
     # share of the energy (zero order aside) within half the carrier of either sideband
@@ -261,7 +273,7 @@ def find_carrier(
     ring = (r > 0.8 * f0) & (r < 1.2 * f0)
     typical = float(np.median(power[ring])) if ring.any() else 0.0
     prominence = float(power[idx] / typical) if typical > 0 else float("inf")
-    if pu < 0 or (pu == 0 and pv < 0):
+    if flip:
         pu, pv = -pu, -pv
     return pu, pv, concentration, prominence
 
@@ -345,13 +357,23 @@ def _find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: 
     model = sfft.irfft2(sfft.rfft2(filled, workers=WORKERS) * band, s=filled.shape,
                         workers=WORKERS)
     resid = data - model
-    inner = known & (rho <= 0.97)
+    inner = known & (rho <= 1.0)
     specks = np.zeros_like(known)
+    # the band-limited model rings where the aperture edge cuts the fringes, so the
+    # residual's spread is judged ring by ring near the rim, not once for the disk
+    edges = np.array([0.0, 0.8, 0.86, 0.9, 0.93, 0.95, 0.97, 0.985, 1.0 + 1e-9])
+    zone = np.digitize(rho, edges) - 1
     for smooth, level in ((0.0, 6.0), (1.2, 5.0)):
         r = ndimage.gaussian_filter(resid, smooth) if smooth else resid
-        med = float(np.median(r[inner]))
-        sigma = 1.4826 * float(np.median(np.abs(r[inner] - med))) + 1e-6
-        specks |= inner & (np.abs(r - med) > level * sigma)
+        dev = np.zeros_like(r)
+        for z in range(edges.size - 1):
+            sel = inner & (zone == z)
+            if sel.sum() < 50:
+                continue
+            med = float(np.median(r[sel]))
+            sigma = 1.4826 * float(np.median(np.abs(r[sel] - med))) + 1e-6
+            dev[sel] = np.abs(r[sel] - med) / sigma
+        specks |= inner & (dev > level)
     if specks.any():
         # drop lone noise pixels, keep anything with a neighbour or far out of the noise
         neighbours = ndimage.uniform_filter(specks.astype(np.float32), size=3) * 9 - 1
@@ -433,7 +455,7 @@ def demodulate(
     # 1. coarse carrier on a small copy, to choose how far to bin
     report("carrier", 0.0)
     k0 = max(1, int(diameter_px // 256))
-    coarse, _, _ = _crop(img, aperture, k0)
+    coarse, _, _ = _crop(img, aperture, k0, stride=True)
     rc = aperture.radius_px / k0
     cc = (coarse.shape[0] / 2 - 0.5, coarse.shape[1] / 2 - 0.5)
     pupil0 = _radius_grid(coarse.shape, cc, rc) <= 1.0
@@ -516,6 +538,12 @@ def demodulate(
     filled = _gerchberg(data, known, band, n1, cancel, start)
     report("extension", 0.3)
     specks = _find_specks(data, filled, band, known, rho, pupil, k)
+    if specks.any():
+        # a speck makes the band-limited model ring around it, and the rings look like
+        # more specks; fill the first finds, and look again with a model free of them
+        filled = _gerchberg(data, known & ~specks, band, n1, cancel,
+                            np.where(specks, filled, data))
+        specks = _find_specks(data, filled, band, known, rho, pupil, k)
     known2 = known & ~specks
     filled = _gerchberg(data, known2, band, gerchberg_iterations - n1, cancel,
                         np.where(known2, data, filled))
@@ -550,7 +578,7 @@ def demodulate(
     xu1 = (grid1[None, :] - center_rc[1]) / r_b + 0 * grid1[:, None]
     yu1 = (center_rc[0] - grid1[:, None]) / r_b + 0 * grid1[None, :]
     basis1 = zernike_basis(MODEL_TERMS, xu1[fit_px], yu1[fit_px])
-    model_coef, *_ = np.linalg.lstsq(basis1, phase1[fit_px], rcond=None)
+    model_coef = solve_least_squares(basis1, phase1[fit_px])
     report("first pass", 1.0)
     _check(cancel)
 
@@ -579,12 +607,12 @@ def demodulate(
     if inframe is not None:
         weight &= np.pad(inframe, ((0, pad), (0, pad))) if pad else inframe
     weight = weight.astype(np.float32)
-    fringe_signal = (data - background) * weight
+    weighted_data = data * weight
     m = size // step
     dm = np.fft.ifftshift(np.arange(m) - m // 2)
     dist = np.hypot(dm[:, None], dm[None, :]).astype(np.float32)
-    dist_full = np.hypot(fu_full, fv_full).astype(np.float32)
     weight_spec = sfft.fft2(weight, workers=WORKERS)
+    data_spec = sfft.fft2(weighted_data, workers=WORKERS)
     rho_m = rho[::step, ::step][:m, :m]
     disk = rho_m <= 1.0
     speck_m = np.zeros_like(disk)
@@ -594,20 +622,65 @@ def demodulate(
     xu_m = np.broadcast_to(xu, (ny, nx))[::step, ::step][:m, :m]
     yu_m = np.broadcast_to(yu, (ny, nx))[::step, ::step][:m, :m]
     psi_full = np.zeros((ny, nx), dtype=np.float32)
+    support = np.zeros((m, m), dtype=np.float64)  # share of the window that was measured
+    level = np.zeros((m, m), dtype=np.float64)  # the fringes' local mean (background)
 
     def referenced(model: np.ndarray, radius_bins: float) -> np.ndarray:
+        """Local least squares of the fringe model under the window, at each map pixel.
+
+        The model is ``a + p cos(Phi) + q sin(Phi)`` with Phi the carrier plus the
+        phase model: a background and the fringe. The window's sums over measured
+        pixels give 3x3 normal equations per pixel. In the interior they reduce to
+        Takeda's sideband filter; near the rim and beside specks they keep the
+        background and the conjugate sideband out of the phase. (A second-harmonic
+        term for the camera's tone curve was tried: it cut that error at the rim but
+        raised the noise there by more.)
+        """
         psi_full[region] = basis_region @ model.astype(np.float32)
-        ref = np.exp(-1j * (carrier_phase + psi_full)).astype(np.complex64)
-        z = fringe_signal * ref
-        win_full = _flat_top(dist_full, radius_bins, W2_FLAT)
-        den_full = sfft.ifft2(weight_spec * win_full, workers=WORKERS).real
-        c_full = sfft.ifft2(sfft.fft2(z, workers=WORKERS) * win_full, workers=WORKERS)
-        c_full /= np.maximum(den_full, 0.05)
-        z = z - np.conj(c_full) * (ref * ref) * weight
+        e1 = np.exp(1j * (carrier_phase + psi_full)).astype(np.complex64)
         win = _flat_top(dist, radius_bins, W2_FLAT)
-        num = _decimated_block(sfft.fft2(z, workers=WORKERS), (0, 0), win, (m, m))
-        den = _decimated_block(weight_spec, (0, 0), win, (m, m)).real
-        return num / np.maximum(den, 0.05)
+
+        def local_sum(spectrum: np.ndarray) -> np.ndarray:
+            return _decimated_block(spectrum, (0, 0), win, (m, m)) * (size * size) / (m * m)
+
+        # t[n] = sum of w e^{i n Phi}, n = 0..2; g[n] = sum of w g e^{-i n Phi}, n = 0..1
+        t = [local_sum(weight_spec),
+             local_sum(sfft.fft2(weight * e1, workers=WORKERS)),
+             local_sum(sfft.fft2(weight * (e1 * e1), workers=WORKERS))]
+        g = [local_sum(data_spec),
+             local_sum(sfft.fft2(weighted_data * np.conj(e1), workers=WORKERS))]
+
+        def cos_sum(n: int) -> np.ndarray:  # sum of w cos(n Phi)
+            return t[abs(n)].real
+
+        def sin_sum(n: int) -> np.ndarray:  # sum of w sin(n Phi)
+            return np.sign(n) * t[abs(n)].imag
+
+        terms = [("1", 0), ("c", 1), ("s", 1)]
+        normal = np.empty((m, m, 3, 3))
+        for i, (ki, ni) in enumerate(terms):
+            for j, (kj, nj) in enumerate(terms[i:], start=i):
+                if ki == "1" and kj == "1":
+                    v = t[0].real
+                elif ki == "1":
+                    v = cos_sum(nj) if kj == "c" else sin_sum(nj)
+                elif ki == "c" and kj == "c":
+                    v = 0.5 * (cos_sum(ni - nj) + cos_sum(ni + nj))
+                elif ki == "s" and kj == "s":
+                    v = 0.5 * (cos_sum(ni - nj) - cos_sum(ni + nj))
+                else:  # one cosine, one sine: cos(A) sin(B) = (sin(A+B) - sin(A-B)) / 2
+                    (_, nc), (_, ns) = (terms[i], terms[j]) if ki == "c" else (terms[j], terms[i])
+                    v = 0.5 * (sin_sum(nc + ns) - sin_sum(nc - ns))
+                normal[..., i, j] = normal[..., j, i] = v
+        rhs = np.stack([g[0].real, g[1].real, -g[1].imag], axis=-1)
+        peak = float(np.max(t[0].real)) or 1.0
+        support[...] = t[0].real / peak
+        usable = support > 0.2
+        normal[~usable] = np.eye(3)
+        rhs[~usable] = 0.0
+        sol = np.linalg.solve(normal, rhs[..., None])[..., 0]
+        level[...] = sol[..., 0]
+        return 0.5 * (sol[..., 1] - 1j * sol[..., 2])
 
     for it in range(refinements + 1):
         _check(cancel)
@@ -623,8 +696,7 @@ def demodulate(
         psi_m = psi_full[::step, ::step][:m, :m]
         sel = fit_m & np.isfinite(resid)
         basis_m = zernike_basis(MODEL_TERMS, xu_m[sel], yu_m[sel])
-        delta, *_ = np.linalg.lstsq(basis_m, (psi_m + resid)[sel] - basis_m @ model_coef,
-                                    rcond=None)
+        delta = solve_least_squares(basis_m, (psi_m + resid)[sel] - basis_m @ model_coef)
         model_coef = model_coef + delta
         if np.sqrt(np.sum(delta[3:] ** 2)) < 0.02:  # well under a hundredth of a fringe
             c2 = referenced(model_coef, w2_cpa * bins_per_cpa)
@@ -636,8 +708,7 @@ def demodulate(
             "aperture at the slowest): resolution is reduced; more tilt would help")
 
     # 7. maps on the decimated grid
-    bg = background[::step, ::step][:m, :m]
-    modulation = (2.0 * np.abs(c2) / np.maximum(bg, 1e-6)).astype(np.float32)
+    modulation = (2.0 * np.abs(c2) / np.maximum(level, 1e-6)).astype(np.float32)
     psi_map = psi_full[::step, ::step][:m, :m].astype(np.float64)
     wrapped = np.angle(c2).astype(np.float64)
     masked = speck_m.copy()
@@ -653,6 +724,8 @@ def demodulate(
             f"too little fringe contrast (visibility {med_mod:.2f}): check the lamp, the "
             "focus and the contact between the flats")
     masked |= disk & (modulation < 0.25 * med_mod)
+    # too little measured data around a pixel (beside a speck at the rim): no estimate
+    masked |= disk & (support < 0.3)
     masked &= disk
 
     geometry = MapGeometry(

@@ -122,8 +122,15 @@ def compute_figures(
     wavelength_nm: float,
     diameter_mm: float | None = None,
     removed_terms: tuple[int, ...] = PISTON_TILT,
+    disk_basis: np.ndarray | None = None,
 ) -> Figures:
     """Figures of a surface measured at ``P`` pixels.
+
+    PV and irregularity are taken over the measured pixels. The RMS figures and the
+    fit part of PVr are taken over the whole clear aperture when ``disk_basis`` is
+    given: the fit stands in for pixels that could not be measured (specks, a rim the
+    fringes fade at), and the residual, which the fit leaves orthogonal to it, is
+    added in quadrature from the measured pixels.
 
     Parameters
     ----------
@@ -139,36 +146,46 @@ def compute_figures(
         Physical clear aperture, for the radius of curvature.
     removed_terms : tuple of int
         Noll terms to take out before PV and RMS (always at least piston and tilt).
+    disk_basis : (Q, J) ndarray, optional
+        The same terms at every pixel of the full aperture (measured or not).
     """
     h = np.ravel(np.asarray(height_nm, dtype=float))
     a = np.asarray(fit.coefficients_nm, dtype=float)
     n_terms = a.size
     removed = tuple(sorted(set(PISTON_TILT) | {j for j in removed_terms if 1 <= j <= n_terms}))
 
-    def terms(js) -> np.ndarray:
+    def terms(js, on: np.ndarray = basis) -> np.ndarray:
         idx = [j - 1 for j in js if j <= n_terms]
-        return basis[:, idx] @ a[idx] if idx else np.zeros_like(h)
+        return on[:, idx] @ a[idx] if idx else np.zeros(on.shape[0])
 
     full_fit = basis @ a
     residual = h - full_fit
     surface = h - terms(removed)
+    resid_rms = _rms(residual)
+
+    def rms_without(js) -> float:
+        """RMS with terms ``js`` removed, over the disk when it is known."""
+        if disk_basis is None:
+            return _rms(h - terms(js))
+        kept = [j for j in range(1, n_terms + 1) if j not in set(js)]
+        return float(np.hypot(_rms(terms(kept, disk_basis)), resid_rms))
 
     kept_fit_terms = [j for j in range(1, min(n_terms, PVR_TERMS) + 1) if j not in removed]
-    pvr = _peak_to_valley(terms(kept_fit_terms)) + 3.0 * _rms(residual)
+    fit_surface = terms(kept_fit_terms, basis if disk_basis is None else disk_basis)
+    pvr = _peak_to_valley(fit_surface) + 3.0 * resid_rms
 
     a4 = a[3] if n_terms >= 4 else 0.0
     power = -2.0 * SQRT3 * a4
     without_power = h - terms(sorted(set(PISTON_TILT) | {4}))
     symmetric = [j for j in range(5, n_terms + 1) if noll_to_nm(j)[1] == 0]
-    asymmetric_part = h - terms([1, 2, 3, 4, *symmetric])
     a5 = a[4] if n_terms >= 6 else 0.0
     a6 = a[5] if n_terms >= 6 else 0.0
     # a6 cos 2t + a5 sin 2t = A cos 2(t - t0) with t0 = atan2(a5, a6) / 2
-    axis = float(np.degrees(0.5 * np.arctan2(a5, a6))) % 180.0
+    axis = float(np.degrees(0.5 * np.arctan2(a5, a6))) % 180.0 % 180.0  # -1e-17 % 180 == 180.0
 
     return Figures(
         pv_nm=_peak_to_valley(surface),
-        rms_nm=_rms(surface),
+        rms_nm=rms_without(removed),
         pvr_nm=float(pvr),
         power_nm=float(power),
         power_fringes=to_fringes(float(power), wavelength_nm),
@@ -177,8 +194,9 @@ def compute_figures(
         irregularity_nm=_peak_to_valley(without_power),
         astigmatism_nm=float(2.0 * SQRT6 * np.hypot(a5, a6)),
         astigmatism_axis_deg=axis,
-        symmetric_irregularity_nm=_peak_to_valley(terms(symmetric)),
-        rms_irregularity_nm=_rms(without_power),
-        rms_asymmetric_nm=_rms(asymmetric_part),
+        symmetric_irregularity_nm=_peak_to_valley(
+            terms(symmetric, basis if disk_basis is None else disk_basis)),
+        rms_irregularity_nm=rms_without(sorted(set(removed) | {4})),
+        rms_asymmetric_nm=rms_without([1, 2, 3, 4, *symmetric]),
         removed_terms=removed,
     )

@@ -283,11 +283,12 @@ def measurement_from_height(
         raise UnanalysablePhotoError(
             f"only {n_valid} map pixels could be measured: too few to fit "
             f"{settings.n_terms} Zernike terms")
-    basis = zernike_basis(settings.n_terms, xu[valid], yu[valid])
+    disk_basis = zernike_basis(settings.n_terms, xu[disk], yu[disk])
+    basis = disk_basis[valid[disk]]
     h = np.asarray(height_nm, dtype=float)[valid]
     fit = fit_zernike(h, None, None, n_terms=settings.n_terms, basis=basis)
     figures = compute_figures(h, basis, fit, wavelength_nm=settings.wavelength_nm,
-                              diameter_mm=settings.diameter_mm)
+                              diameter_mm=settings.diameter_mm, disk_basis=disk_basis)
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
@@ -329,12 +330,15 @@ def with_terms_removed(
     """
     xu, yu = m.geometry.unit_xy(m.aperture)
     valid = m.valid
-    basis = zernike_basis(m.zernike.n_terms, xu[valid], yu[valid])
+    disk = np.hypot(xu, yu) <= 1.0
+    disk_basis = zernike_basis(m.zernike.n_terms, xu[disk], yu[disk])
+    basis = disk_basis[valid[disk]]
     # the stored map has piston and tilt out; put them back so the fit stays the same
     h = m.height_nm[valid] + basis[:, :3] @ m.zernike.coefficients_nm[:3]
     removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
     figures = compute_figures(h, basis, m.zernike, wavelength_nm=m.settings.wavelength_nm,
-                              diameter_mm=m.settings.diameter_mm, removed_terms=removed)
+                              diameter_mm=m.settings.diameter_mm, removed_terms=removed,
+                              disk_basis=disk_basis)
     idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
     out = np.full(m.height_nm.shape, np.nan)
     out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]

@@ -8,6 +8,7 @@ import os
 import sys
 from pathlib import Path
 
+from .multi_options import add_multi_options
 from .options import EXIT_CODES, circle_type, wavelength_type
 from .record_options import add_record_options
 
@@ -70,6 +71,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
                         "several photos put {name} in FILE for each photo's name")
     p.add_argument("--detail", action="store_true",
                    help="the full table for every photo, even in a batch")
+    add_multi_options(p)
     add_record_options(p)
     p.set_defaults(run=run)
     return p
@@ -133,6 +135,7 @@ def run(args: argparse.Namespace) -> int:
     from flatsight.analysis.pipeline import measure
     from flatsight.analysis.record import measurement_to_record, save_height_map
 
+    from .multi_options import check_multi_options, combine_with_sections
     from .record_options import apply_preset, finish_record, tolerance_from_args
     from .report_text import Reporter
 
@@ -160,40 +163,63 @@ def run(args: argparse.Namespace) -> int:
         return 2
 
     mode = "json" if args.json else "csv" if args.csv else "table"
-    reporter = Reporter(mode=mode, detail=args.detail or len(photos) == 1,
+    reporter = Reporter(mode=mode, detail=args.detail or len(photos) == 1 or args.average,
                         ordering=args.ordering)
+
+    def report(item, photo: str) -> int:
+        """Record, save, judge and print one result; returns its exit status."""
+        m = item.measurement
+        record = measurement_to_record(m, ordering=args.ordering)
+        record.update(item.sections)
+        if args.save_map:
+            target = _map_path(args.save_map, photo, len(photos))
+            try:
+                save_height_map(m, target)
+            except OSError as exc:
+                raise SettingsError(f"cannot write the height map {target}: "
+                                    f"{exc.strerror or exc}") from None
+            record["height_map_path"] = str(Path(target).resolve())
+        record, verdict_status = finish_record(args, record)
+        reporter.emit(record, m)
+        return verdict_status
+
+    def one_line(exc: Exception, photo: str) -> int:
+        if isinstance(exc, UnanalysablePhotoError):
+            print(f"flatsight measure: cannot analyse {photo}: {exc}", file=err)
+            return 3
+        print(f"flatsight measure: error: {exc}", file=err)
+        return 2
+
+    try:
+        check_multi_options(args)  # a bad reference map fails before any photo
+    except (UnreadablePhotoError, SettingsError) as exc:
+        print(f"flatsight measure: error: {exc}", file=err)
+        return 2
+
     progress = reporter.progress(len(photos), stream=err)
+    collected = []  # with --average: every good measurement, reported once at the end
     try:
         for i, photo in enumerate(photos):
             progress.start(photo, i)
             try:
                 m = measure(photo, settings, progress=progress.stage)
-                record = measurement_to_record(m, ordering=args.ordering)
-                if args.save_map:
-                    target = _map_path(args.save_map, photo, len(photos))
-                    try:
-                        save_height_map(m, target)
-                    except OSError as exc:
-                        raise SettingsError(f"cannot write the height map {target}: "
-                                            f"{exc.strerror or exc}") from None
-                    record["height_map_path"] = str(Path(target).resolve())
-                record, verdict_status = finish_record(args, record)
-                status = max(status, verdict_status)
                 progress.pause()
-                reporter.emit(record, m)
-            except UnreadablePhotoError as exc:
+                if args.average:
+                    collected.append(m)
+                    continue
+                for item in combine_with_sections(args, [m]):
+                    status = max(status, report(item, photo))
+            except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
                 progress.pause()
-                print(f"flatsight measure: error: {exc}", file=err)
-                status = max(status, 2)
-            except UnanalysablePhotoError as exc:
-                progress.pause()
-                print(f"flatsight measure: cannot analyse {photo}: {exc}", file=err)
-                status = max(status, 3)
-            except SettingsError as exc:
-                progress.pause()
-                print(f"flatsight measure: error: {exc}", file=err)
-                status = max(status, 2)
+                status = max(status, one_line(exc, photo))
     finally:
         progress.stop()
+    if args.average and collected:
+        name = "average of " + ", ".join(Path(m.photo).name for m in collected)
+        try:
+            for item in combine_with_sections(args, collected):
+                status = max(status, report(item, name))
+        except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
+            status = max(status, one_line(exc, name))
     reporter.finish()
     return status

@@ -1,0 +1,441 @@
+"""The inspection certificate: one self-contained HTML page (and the map PNG) from a record.
+
+The surface map is re-made from the record alone: from the saved height map when the
+record names one (``height_map_path``), otherwise from its Zernike coefficients
+evaluated over the unit disk, and the page says which. Everything the page needs,
+the map included, is inside the HTML file (a base64 PNG, inline CSS), so it can be
+mailed or archived as it is. It prints on A4 and on Letter: the content is narrower
+than either page and no table is split across pages.
+
+References
+----------
+M. Takeda, H. Ina, S. Kobayashi, "Fourier-transform method of fringe-pattern analysis
+for computer-based topography and interferometry", JOSA 72(1), 156 (1982).
+R. J. Noll, "Zernike polynomials and atmospheric turbulence", JOSA 66(3), 207 (1976).
+C. J. Evans, "PVr - a robust amplitude parameter for optical surface specification",
+Opt. Eng. 48(4), 043605 (2009).
+ISO 10110-5:2015, surface form tolerances (from memory).
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import json
+import math
+from collections.abc import Mapping
+from pathlib import Path
+
+import numpy as np
+
+from .zernike import noll_to_nm, osa_to_noll, term_name, zernike_basis
+
+__all__ = [
+    "MAP_PAD_PX",
+    "MAP_SIZE_PX",
+    "VERDICT_RGB",
+    "certificate_html",
+    "map_colours",
+    "map_grid",
+    "map_png",
+    "surface_map",
+]
+
+MAP_SIZE_PX = 360
+MAP_PAD_PX = 12
+BAR_WIDTH_PX = 22
+VERDICT_RGB = {"pass": (27, 122, 61), "fail": (179, 38, 30), None: (95, 99, 104)}
+_FIGURE_ROWS = [
+    ("pv_nm", "PV", "peak to valley, piston and tilt removed"),
+    ("rms_nm", "RMS", "piston and tilt removed (ISO 10110-5 RMSt)"),
+    ("pvr_nm", "PVr", "Evans's robust PV: 36-term fit PV + 3 x residual RMS"),
+    ("power_nm", "power", "sag of the best-fit sphere, + when the centre is high"),
+    ("irregularity_nm", "irregularity", "PV after power is removed (ISO 10110-5 B)"),
+    ("astigmatism_nm", "astigmatism", "PV of the astigmatism terms"),
+    ("symmetric_irregularity_nm", "symmetric irregularity",
+     "PV of the symmetric terms beyond power (ISO 10110-5 C)"),
+    ("rms_irregularity_nm", "RMSi", "RMS after power is removed"),
+    ("rms_asymmetric_nm", "RMSa", "RMS of the non-symmetric part"),
+]
+
+
+def map_colours(values: np.ndarray, vmin: float, vmax: float) -> np.ndarray:
+    """The project's diverging colour map (``colormap.diverging_rgb``): values to sRGB uint8."""
+    from .colormap import diverging_rgb
+
+    return diverging_rgb(values, vmin, vmax)
+
+
+def map_grid(size_px: int = MAP_SIZE_PX) -> tuple[np.ndarray, np.ndarray]:
+    """Zernike coordinates (x right, y up, unit radius) of the map's pixel centres."""
+    c = (np.arange(size_px) + 0.5) / size_px * 2.0 - 1.0
+    x, y = np.meshgrid(c, -c)
+    return x, y
+
+
+def _noll_coefficients(zernike: Mapping | None) -> np.ndarray:
+    """Noll-ordered coefficients (index 0 = j 1) from the record's ``zernike`` section."""
+    if not zernike or not zernike.get("coefficients_nm"):
+        return np.zeros(0)
+    raw = np.array([np.nan if c is None else c for c in zernike["coefficients_nm"]], float)
+    if zernike.get("ordering", "noll") == "osa":
+        js = [osa_to_noll(k) for k in range(raw.size)]
+        out = np.zeros(max(js))
+        out[np.array(js) - 1] = raw
+        return out
+    return raw
+
+
+def _load_height_map(path: Path) -> np.ndarray | None:
+    """A saved map (``.npy``, or 32-bit float ``.tif`` as ``measure --save-map`` writes)."""
+    try:
+        if path.suffix.lower() in (".tif", ".tiff"):
+            from PIL import Image
+
+            with Image.open(path) as img:
+                return np.asarray(img, dtype=float)
+        return np.load(path, allow_pickle=False).astype(float)
+    except (OSError, ValueError):
+        return None  # moved or unreadable: fall back to the Zernike fit, and say so
+
+
+def surface_map(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> tuple[np.ndarray, str]:
+    """The surface height (nm, piston and tilt removed) as a square map over the aperture.
+
+    Parameters
+    ----------
+    record : mapping
+        A ``measure --json`` record.
+    size_px : int
+        Side of the square map made from the Zernike fit.
+
+    Returns
+    -------
+    height_nm : (size_px, size_px) ndarray
+        NaN outside the aperture; row 0 at the top of the photo.
+    source : str
+        A sentence for the page saying where the map came from.
+    """
+    path = record.get("height_map_path")
+    if path:
+        h = _load_height_map(Path(path))
+        if h is not None and h.ndim == 2 and np.isfinite(h).any():
+            rows = np.flatnonzero(np.isfinite(h).any(axis=1))
+            cols = np.flatnonzero(np.isfinite(h).any(axis=0))
+            h = h[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1]
+            return h, "Map: the measured height map saved with the record."
+    a = _noll_coefficients(record.get("zernike"))
+    x, y = map_grid(size_px)
+    inside = x**2 + y**2 <= 1.0
+    h = np.full(x.shape, np.nan)
+    if a.size:
+        a = np.where(np.isfinite(a), a, 0.0)
+        a[:3] = 0.0  # piston and tilt are not part of the surface's form
+        h[inside] = zernike_basis(a.size, x[inside], y[inside]) @ a
+    else:
+        h[inside] = 0.0
+    return h, (f"Map reconstructed from the Zernike fit ({a.size} Noll terms, piston and "
+               "tilt removed); detail finer than the fit is not shown.")
+
+
+def _font(size: int):
+    from PIL import ImageFont
+
+    try:
+        return ImageFont.load_default(size=size)
+    except (OSError, TypeError):  # Pillow without FreeType: the small bitmap font
+        return ImageFont.load_default()
+
+
+def map_png(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> bytes:
+    """The surface map with its colour bar (nm) as PNG bytes.
+
+    The colour scale is symmetric about zero height, ``+-max|h|``, so the neutral
+    colour is always zero. The map sits at ``(MAP_PAD_PX, MAP_PAD_PX)``, one image
+    pixel per map pixel when the map is made from the Zernike fit.
+    """
+    from PIL import Image, ImageDraw
+
+    h, _ = surface_map(record, size_px=size_px)
+    if h.shape != (size_px, size_px):  # a saved map: pad to a square, then fit it in
+        side = max(h.shape)
+        square = np.full((side, side), np.nan)
+        r0, c0 = (side - h.shape[0]) // 2, (side - h.shape[1]) // 2
+        square[r0:r0 + h.shape[0], c0:c0 + h.shape[1]] = h
+        img = Image.fromarray(square.astype(np.float32))
+        h = np.asarray(img.resize((size_px, size_px), Image.Resampling.NEAREST), float)
+    finite = h[np.isfinite(h)]
+    span = float(np.max(np.abs(finite))) if finite.size else 0.0
+    span = span if span > 0 else 1.0
+    rgb = map_colours(h, -span, span)
+    rgb[~np.isfinite(h)] = 255  # outside the aperture: paper white
+
+    pad, bar = MAP_PAD_PX, BAR_WIDTH_PX
+    font = _font(13)
+    label_w = 86
+    width = pad + size_px + 2 * pad + bar + label_w
+    height = size_px + 2 * pad
+    canvas = Image.new("RGB", (width, height), "white")
+    canvas.paste(Image.fromarray(rgb, "RGB"), (pad, pad))
+    draw = ImageDraw.Draw(canvas)
+    draw.ellipse((pad - 1, pad - 1, pad + size_px, pad + size_px), outline=(120, 120, 120))
+
+    bar_x = pad + size_px + 2 * pad
+    ramp = np.linspace(span, -span, size_px)[:, None] * np.ones((1, bar))
+    canvas.paste(Image.fromarray(map_colours(ramp, -span, span), "RGB"), (bar_x, pad))
+    draw.rectangle((bar_x - 1, pad - 1, bar_x + bar, pad + size_px), outline=(80, 80, 80))
+    for frac in (0.0, 0.25, 0.5, 0.75, 1.0):
+        value = span * (1 - 2 * frac)
+        y = pad + round(frac * (size_px - 1))
+        draw.line((bar_x + bar, y, bar_x + bar + 4, y), fill=(40, 40, 40))
+        draw.text((bar_x + bar + 7, y), f"{value:+.1f} nm" if value else "0 nm",
+                  fill=(20, 20, 20), font=font, anchor="lm")
+    buf = io.BytesIO()
+    canvas.save(buf, format="PNG", optimize=True)
+    return buf.getvalue()
+
+
+def _e(value) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def _fmt(value, digits: int) -> str:
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        return "—"
+    return f"{x:.{digits}f}" if math.isfinite(x) else "—"
+
+
+_CSS = """
+:root { --pass: rgb(27,122,61); --fail: rgb(179,38,30); --none: rgb(95,99,104); }
+* { box-sizing: border-box; }
+html { background: #fff; }
+body { font: 9.5pt/1.35 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; color: #16181b;
+       margin: 0 auto; padding: 10mm 8mm; max-width: 182mm; }
+h1 { font-size: 17pt; margin: 0 0 1mm; }
+h2 { font-size: 11.5pt; margin: 6mm 0 2mm; border-bottom: 0.3mm solid #999;
+     break-after: avoid; page-break-after: avoid; }
+p { margin: 1.5mm 0; }
+.sub { color: #444; margin: 0 0 4mm; }
+table { border-collapse: collapse; width: 100%; break-inside: avoid; page-break-inside: avoid; }
+th, td { text-align: left; padding: 0.8mm 2mm; border-bottom: 0.2mm solid #ccc;
+         vertical-align: top; }
+th { font-weight: 600; background: #f1f2f4; }
+td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; }
+.pair td, .pair th { padding: 0.4mm 1.5mm; }
+.verdict { display: flex; align-items: center; gap: 6mm; padding: 3mm 5mm; color: #fff;
+           border-radius: 1.5mm; margin: 3mm 0 4mm; -webkit-print-color-adjust: exact;
+           print-color-adjust: exact; break-inside: avoid; }
+.verdict .word { font-size: 22pt; font-weight: 700; letter-spacing: 0.08em; }
+.verdict.pass { background: var(--pass); }
+.verdict.fail { background: var(--fail); }
+.verdict.none { background: var(--none); }
+.top { display: flex; gap: 5mm; align-items: flex-start; break-inside: avoid; }
+.top figure { margin: 0; flex: 0 0 86mm; }
+.top figure img { width: 86mm; height: auto; display: block; }
+.keep { break-inside: avoid; page-break-inside: avoid; }
+figcaption { font-size: 8.5pt; color: #444; margin-top: 1mm; }
+.facts { flex: 1; }
+.facts th { width: 26mm; background: none; }
+.hash { font-family: "DejaVu Sans Mono", monospace; font-size: 7.5pt; word-break: break-all; }
+.pair { display: flex; gap: 4mm; break-inside: avoid; }
+.pair table { font-size: 8pt; }
+td.pass { color: var(--pass); font-weight: 700; }
+td.fail { color: var(--fail); font-weight: 700; }
+.sign { display: flex; gap: 10mm; margin-top: 8mm; break-inside: avoid; }
+.sign div { flex: 1; border-top: 0.3mm solid #333; padding-top: 1mm; font-size: 8.5pt; }
+.small { font-size: 8.5pt; color: #333; }
+@page { margin: 12mm; }
+@media print { body { padding: 0; } }
+"""
+
+
+def _when(stamp) -> str | None:
+    """``2026-12-02T07:10:00.000Z`` as ``2026-12-02 07:10:00 UTC``."""
+    if not stamp:
+        return None
+    return str(stamp).replace("T", " ").split(".")[0].removesuffix("Z") + " UTC"
+
+
+def _facts(record: Mapping) -> str:
+    ap = record.get("aperture") or {}
+    settings = record.get("settings") or {}
+    rows = [
+        ("Part", record.get("part")),
+        ("Operator", record.get("operator")),
+        ("Station", record.get("station")),
+        ("Date (UTC)", _when(record.get("logged_utc"))),
+        ("Record", record.get("record_id")),
+        ("Photo", record.get("photo")),
+        ("Wavelength", f"{_fmt(record.get('wavelength_nm'), 2)} nm"),
+        ("Aperture", (f"{_fmt(settings.get('diameter_mm'), 1)} mm diameter"
+                      if settings.get("diameter_mm") else
+                      f"radius {_fmt(ap.get('radius_px'), 1)} px in the photo")),
+    ]
+    body = "".join(f"<tr><th>{_e(k)}</th><td>{_e(v if v is not None else '—')}</td></tr>"
+                   for k, v in rows)
+    body += (f"<tr><th>Photo SHA-256</th><td class=\"hash\">"
+             f"{_e(record.get('photo_sha256') or '—')}</td></tr>")
+    return f'<table class="facts">{body}</table>'
+
+
+def _figures_table(record: Mapping) -> str:
+    lam = record.get("wavelength_nm")
+    rows = []
+    for key, label, meaning in _FIGURE_ROWS:
+        nm = record.get(key)
+        waves = float(nm) / float(lam) if nm is not None and lam else None
+        fringes = 2 * waves if waves is not None else None
+        rows.append(f"<tr><td>{_e(label)}</td><td class=\"num\">{_fmt(nm, 1)}</td>"
+                    f"<td class=\"num\">{_fmt(waves, 4)}</td>"
+                    f"<td class=\"num\">{_fmt(fringes, 3)}</td>"
+                    f"<td class=\"small\">{_e(meaning)}</td></tr>")
+    roc = record.get("radius_of_curvature_m")
+    if roc is not None:
+        rows.append(f"<tr><td>radius of curvature</td><td class=\"num\" colspan=\"3\">"
+                    f"{_fmt(roc, 1)} m</td><td class=\"small\">of the best-fit sphere, "
+                    "signed like the power</td></tr>")
+    return ("<table><thead><tr><th>figure</th><th class=\"num\">nm</th>"
+            f"<th class=\"num\">waves at {_fmt(lam, 2)} nm</th><th class=\"num\">fringes</th>"
+            "<th>meaning</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+
+
+def _spec_table(spec: Mapping) -> str:
+    rows = []
+    for lim in spec.get("limits", []):
+        unit = {"fr": "fringes", "w": "waves", "um": "µm"}.get(lim.get("unit"), lim.get("unit"))
+        wl = lim.get("unit_wavelength_nm")
+        unit_note = f" at {_fmt(wl, 2)} nm" if wl else ""
+        value = "|measured|" if lim.get("compared") == "magnitude" else "measured"
+        name, label = lim.get("name"), lim.get("label")
+        title = label if name == label or not name else f"{name}: {label}"
+        rows.append(
+            f"<tr><td>{_e(title)}</td>"
+            f"<td class=\"num\">≤ {_e(lim.get('limit'))} {_e(unit)}{_e(unit_note)}<br>"
+            f"<span class=\"small\">= {_fmt(lim.get('limit_nm'), 1)} nm</span></td>"
+            f"<td class=\"num\">{_fmt(lim.get('measured_nm'), 1)} nm<br><span class=\"small\">"
+            f"{_e(value)}</span></td><td class=\"num\">{_fmt(lim.get('margin_nm'), 1)} nm</td>"
+            f"<td class=\"{_e(lim.get('verdict'))}\">{_e(str(lim.get('verdict')).upper())}</td>"
+            "</tr>")
+    return ("<table><thead><tr><th>limit</th><th class=\"num\">tolerance</th>"
+            "<th class=\"num\">measured</th><th class=\"num\">margin</th><th>verdict</th>"
+            "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+
+
+def _zernike_tables(record: Mapping) -> str:
+    a = _noll_coefficients(record.get("zernike"))
+    lam = record.get("wavelength_nm")
+    if not a.size:
+        return "<p>The record holds no Zernike coefficients.</p>"
+    half = (a.size + 1) // 2
+    tables = []
+    for start, stop in ((0, half), (half, a.size)):
+        rows = []
+        for i in range(start, stop):
+            j = i + 1
+            n, m = noll_to_nm(j)
+            waves = a[i] / float(lam) if lam else None
+            rows.append(f"<tr><td class=\"num\">{j}</td><td class=\"num\">{n}</td>"
+                        f"<td class=\"num\">{m}</td><td>{_e(term_name(j))}</td>"
+                        f"<td class=\"num\">{_fmt(a[i], 2)}</td>"
+                        f"<td class=\"num\">{_fmt(waves, 4)}</td></tr>")
+        tables.append("<table><thead><tr><th class=\"num\">j</th><th class=\"num\">n</th>"
+                      "<th class=\"num\">m</th><th>term</th><th class=\"num\">nm</th>"
+                      "<th class=\"num\">waves</th></tr></thead><tbody>" + "".join(rows)
+                      + "</tbody></table>")
+    return f'<div class="pair">{"".join(tables)}</div>'
+
+
+def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None) -> str:
+    """The certificate of one logged record as a self-contained HTML document.
+
+    Parameters
+    ----------
+    record : mapping
+        A record from the inspection log (``measure --json`` fields plus ``record_id``,
+        ``part``, ``operator``, ``station``, ``logged_utc``).
+    map_png_bytes : bytes, optional
+        The map image; made with :func:`map_png` when not given.
+
+    Returns
+    -------
+    str
+        The whole HTML page: no external files, fonts or scripts.
+    """
+    png = map_png_bytes if map_png_bytes is not None else map_png(record)
+    _, map_source = surface_map(record, size_px=8)
+    spec = record.get("spec") or {}
+    verdict = spec.get("verdict") if spec.get("verdict") in ("pass", "fail") else None
+    word = {"pass": "PASS", "fail": "FAIL", None: "NO TOLERANCE"}[verdict]
+    against = (f"against {_e(spec.get('tolerance'))} (ISO 10110-5 notation as Flatsight reads "
+               f"it; fringes at {_fmt(spec.get('spec_wavelength_nm'), 2)} nm)"
+               if spec else "no tolerance was given, so no pass or fail is stated")
+    warnings = record.get("warnings") or []
+    settings = record.get("settings") or {}
+    part = record.get("part") or "part not named"
+    zern = record.get("zernike") or {}
+    n_terms = len(zern.get("coefficients_nm") or [])
+    warn_html = ("<h2>Warnings at measurement</h2><ul>" + "".join(
+        f"<li>{_e(w)}</li>" for w in warnings) + "</ul>") if warnings else ""
+    settings_html = ", ".join(f"{_e(k)} = {_e(json.dumps(v))}" for k, v in settings.items())
+    b64 = base64.b64encode(png).decode("ascii")
+    return f"""<!DOCTYPE html>
+<html lang="en">
+<head>
+<meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<title>Flatness certificate — {_e(part)}</title>
+<style>{_CSS}</style>
+</head>
+<body>
+<header>
+<h1>Surface flatness certificate</h1>
+<p class="sub">{_e(part)} · record {_e(record.get('record_id', '—'))} ·
+measured {_e(_when(record.get('logged_utc')) or '—')} ·
+Flatsight {_e(record.get('flatsight_version', ''))}
+</p>
+</header>
+<section class="verdict {verdict or 'none'}" id="verdict">
+<span class="word">{word}</span><span>{against}</span>
+</section>
+<section class="top">
+<figure>
+<img alt="surface height map, colour bar in nanometres" src="data:image/png;base64,{b64}">
+<figcaption>Surface height as the photo is seen (top of the photo up), piston and tilt
+removed; positive is a high point on the part. {_e(map_source)}</figcaption>
+</figure>
+{_facts(record)}
+</section>
+<h2>Figures</h2>
+{_figures_table(record)}
+{"<h2>Tolerance</h2>" + _spec_table(spec) if spec else ""}
+{warn_html}
+<section class="keep">
+<h2>What this measurement covers</h2>
+<p>The figures describe the surface form of the measured face over the analysed aperture,
+from a single photo against a reference flat. The reference flat's own form error is
+included in them, as are air currents, temperature differences and the way the part was
+supported when the photo was taken. They do not cover the other faces, surface
+imperfections (scratches, digs), roughness, dimensions, or anything outside the aperture.
+This certificate is not a substitute for the shop's calibrated instruments or for the
+customer's own acceptance procedure.</p>
+<div class="sign"><div>Inspected by</div><div>Checked by</div><div>Date</div></div>
+</section>
+<h2>Zernike coefficients (Noll order, each the term's RMS)</h2>
+{_zernike_tables(record)}
+<section class="keep">
+<h2>Method</h2>
+<p>One photo of the fringes between the part and a reference flat in monochromatic light
+at {_fmt(record.get('wavelength_nm'), 2)} nm, analysed by Fourier-transform fringe analysis
+(Takeda, Ina &amp; Kobayashi, JOSA 72, 156, 1982); the unwrapped phase gives height as
+phase × wavelength / 4π. A {n_terms}-term Zernike fit in Noll's ordering and normalisation
+(Noll, JOSA 66, 207, 1976) gives power, astigmatism and the symmetric terms; PVr follows
+Evans (Opt. Eng. 48, 043605, 2009). Tolerances are written in ISO 10110-5 notation.</p>
+<p class="small">Settings: {settings_html or '—'}</p>
+</section>
+
+</body>
+</html>
+"""

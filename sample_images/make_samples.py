@@ -1,0 +1,298 @@
+"""Make the demo fringe photos of the invented Brindlewick Optical Works, with their true figures.
+
+Run ``python sample_images/make_samples.py`` to regenerate every photo and
+``manifest.json`` in this folder. The output is deterministic (fixed seeds).
+Everything here is synthetic: the shop, the parts and the operators are invented.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo, write_photo
+
+HERE = Path(__file__).resolve().parent
+SQRT3 = float(np.sqrt(3.0))
+
+# Light sources (references.md, "Facts of the trade"): wavelength in air, nm.
+LAMPS = {
+    "hene": ("He-Ne laser", 632.8),
+    "sodium": ("sodium lamp", 589.3),
+    "mercury": ("mercury lamp, e line", 546.07),
+}
+
+SAMPLES = [
+    dict(
+        file="BW-FL-0412_hene.png",
+        part="reference flat, 50 mm, grade lambda/10",
+        serial="BW-FL-0412",
+        diameter_mm=50.0,
+        operator="Tamsin Ode",
+        station="bench-2",
+        lamp="hene",
+        bit_depth=8,
+        shape=(720, 960),
+        radius_frac=0.40,
+        center_frac=(0.52, 0.48),
+        surface=dict(
+            zernike_nm={4: 11.0, 5: 4.0, 6: -2.5, 11: 1.5}, ripple_nm=0.6, ripple_cycles=9.0
+        ),
+        photo=dict(
+            fringes=16.0,
+            angle_deg=28.0,
+            visibility=0.72,
+            illumination=0.25,
+            surround="dark",
+            gamma=0.72,
+            noise=0.015,
+            dust=3,
+            edge_px=3.0,
+            seed=412,
+        ),
+    ),
+    dict(
+        file="BW-FL-0412_mercury.jpg",
+        part="reference flat, 50 mm, grade lambda/10",
+        serial="BW-FL-0412",
+        diameter_mm=50.0,
+        operator="Ruben Halloway",
+        station="bench-1",
+        lamp="mercury",
+        bit_depth=8,
+        shape=(768, 1024),
+        radius_frac=0.42,
+        center_frac=(0.47, 0.5),
+        surface=dict(
+            zernike_nm={4: 11.0, 5: 4.0, 6: -2.5, 11: 1.5}, ripple_nm=0.6, ripple_cycles=9.0
+        ),
+        photo=dict(
+            fringes=22.0,
+            angle_deg=96.0,
+            visibility=0.6,
+            illumination=0.35,
+            surround="grey",
+            gamma=0.6,
+            noise=0.02,
+            dust=5,
+            edge_px=5.0,
+            seed=4121,
+        ),
+    ),
+    dict(
+        file="BW-FL-0413_sodium.jpg",
+        part="workshop flat, 100 mm, grade lambda/4",
+        serial="BW-FL-0413",
+        diameter_mm=100.0,
+        operator="Ruben Halloway",
+        station="bench-1",
+        lamp="sodium",
+        bit_depth=8,
+        shape=(900, 1200),
+        radius_frac=0.44,
+        center_frac=(0.5, 0.51),
+        surface=dict(
+            zernike_nm={4: -28.0, 6: 9.0, 8: 3.5, 11: -3.0},
+            ripple_nm=1.5,
+            ripple_cycles=7.0,
+            ripple_linear=0.2,
+            ripple_angle_deg=35.0,
+        ),
+        photo=dict(
+            fringes=20.0,
+            angle_deg=142.0,
+            visibility=0.5,
+            illumination=0.3,
+            surround="dark",
+            gamma=0.65,
+            s_curve=0.3,
+            noise=0.02,
+            dust=6,
+            edge_px=4.0,
+            seed=413,
+        ),
+    ),
+    dict(
+        file="BW-WN-0207_mercury.tif",
+        part="window, 60 mm, both faces polished",
+        serial="BW-WN-0207",
+        diameter_mm=60.0,
+        operator="Tamsin Ode",
+        station="bench-2",
+        lamp="mercury",
+        bit_depth=16,
+        shape=(600, 800),
+        radius_frac=0.41,
+        center_frac=(0.5, 0.5),
+        surface=dict(
+            zernike_nm={4: 18.0, 5: -30.0, 6: 22.0, 9: 5.0}, ripple_nm=2.0, ripple_cycles=10.0
+        ),
+        photo=dict(
+            fringes=26.0,
+            angle_deg=63.0,
+            visibility=0.8,
+            illumination=0.2,
+            surround="grey",
+            gamma=0.8,
+            noise=0.01,
+            dust=2,
+            edge_px=2.5,
+            seed=207,
+        ),
+    ),
+    dict(
+        file="BW-TP-0031_hene.tif",
+        part="test plate, 150 mm, grade lambda/20",
+        serial="BW-TP-0031",
+        diameter_mm=150.0,
+        operator="Tamsin Ode",
+        station="bench-3",
+        lamp="hene",
+        bit_depth=16,
+        shape=(640, 640),
+        radius_frac=0.45,
+        center_frac=(0.5, 0.5),
+        surface=dict(zernike_nm={4: 6.5, 6: 2.5, 11: 1.5}, ripple_nm=0.5, ripple_cycles=5.0),
+        photo=dict(
+            fringes=14.0,
+            angle_deg=4.0,
+            visibility=0.85,
+            illumination=0.15,
+            surround="dark",
+            gamma=0.9,
+            noise=0.008,
+            dust=1,
+            edge_px=2.0,
+            seed=31,
+        ),
+    ),
+    dict(
+        file="BW-FL-0588_sodium.png",
+        part="workshop flat, 100 mm, returned for refiguring",
+        serial="BW-FL-0588",
+        diameter_mm=100.0,
+        operator="Ruben Halloway",
+        station="bench-1",
+        lamp="sodium",
+        bit_depth=8,
+        shape=(900, 1200),
+        radius_frac=0.43,
+        center_frac=(0.46, 0.53),
+        surface=dict(
+            zernike_nm={4: 120.0, 5: 38.0, 11: 27.0, 7: -19.0}, ripple_nm=7.0, ripple_cycles=6.0
+        ),
+        photo=dict(
+            fringes=30.0,
+            angle_deg=118.0,
+            visibility=0.55,
+            illumination=0.35,
+            surround="dark",
+            gamma=0.7,
+            noise=0.025,
+            dust=8,
+            edge_px=6.0,
+            seed=588,
+        ),
+    ),
+]
+
+
+def _atomic_json(data: dict, path: Path) -> None:
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            json.dump(data, fh, indent=2)
+            fh.write("\n")
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def make_samples(folder: Path = HERE) -> dict:
+    """Write every sample photo and ``manifest.json`` into ``folder``; return the manifest."""
+    entries = []
+    for spec in SAMPLES:
+        rows, cols = spec["shape"]
+        radius = spec["radius_frac"] * min(rows, cols)
+        center = (spec["center_frac"][0] * (cols - 1), spec["center_frac"][1] * (rows - 1))
+        lamp_name, wavelength = LAMPS[spec["lamp"]]
+        surface = SyntheticSurface(**spec["surface"])
+        photo = make_fringe_photo(
+            surface,
+            shape=(rows, cols),
+            center_xy=center,
+            radius_px=radius,
+            wavelength_nm=wavelength,
+            bit_depth=spec["bit_depth"],
+            **spec["photo"],
+        )
+        path = folder / spec["file"]
+        write_photo(photo, path)
+        truth = photo.truth()
+        a = truth.zernike_nm
+        entries.append(
+            dict(
+                file=spec["file"],
+                part=spec["part"],
+                serial=spec["serial"],
+                diameter_mm=spec["diameter_mm"],
+                operator=spec["operator"],
+                station=spec["station"],
+                light_source=lamp_name,
+                wavelength_nm=wavelength,
+                format=path.suffix.lstrip(".").upper(),
+                bit_depth=spec["bit_depth"],
+                size_px=[cols, rows],
+                file_bytes=path.stat().st_size,
+                true_aperture_px=dict(
+                    center_x_px=round(center[0], 3),
+                    center_y_px=round(center[1], 3),
+                    radius_px=round(radius, 3),
+                ),
+                truth=dict(
+                    note="over the true aperture, piston and tilt removed",
+                    pv_nm=round(truth.pv_nm, 2),
+                    rms_nm=round(truth.rms_nm, 2),
+                    pvr_nm=round(truth.pvr_nm, 2),
+                    pv_waves=round(truth.pv_nm / wavelength, 4),
+                    # sag of the best-fit sphere, edge to centre, positive when the centre is high
+                    # (figures.py): -2 sqrt(3) a4
+                    power_nm=round(-2.0 * SQRT3 * float(a[3]), 2),
+                    zernike_nm={str(j): round(float(a[j - 1]), 3) for j in range(1, 16)},
+                ),
+                surface=dict(
+                    photo.params["zernike_nm"],
+                    ripple_nm=surface.ripple_nm,
+                    ripple_cycles=surface.ripple_cycles,
+                ),
+                generator={k: v for k, v in photo.params.items() if k not in ("zernike_nm",)},
+            )
+        )
+    manifest = dict(
+        scenario="Brindlewick Optical Works (an invented optics shop): synthetic demo photos",
+        synthetic=True,
+        made_by="sample_images/make_samples.py (flatsight.analysis.synthetic)",
+        photos=entries,
+    )
+    _atomic_json(manifest, folder / "manifest.json")
+    return manifest
+
+
+if __name__ == "__main__":
+    made = make_samples()
+    total = 0
+    for e in made["photos"]:
+        total += e["file_bytes"]
+        t = e["truth"]
+        print(
+            f"{e['file']:26s} {e['size_px'][0]:5d}x{e['size_px'][1]:<5d} "
+            f"{e['file_bytes'] / 1e6:5.2f} MB  PV {t['pv_nm']:7.1f} nm ({t['pv_waves']:.3f} waves)"
+            f"  RMS {t['rms_nm']:6.2f} nm  PVr {t['pvr_nm']:7.1f} nm"
+        )
+    print(f"total {total / 1e6:.2f} MB")

@@ -1,0 +1,375 @@
+"""Tests of the phase-shifting algorithms against their papers' statements and synthetic frames."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from flatsight.analysis import phase_shifting as ps
+from flatsight.analysis.errors import SettingsError, UnanalysablePhotoError
+
+RNG_SEED = 20261202
+
+
+def wrap(a):
+    return np.angle(np.exp(1j * a))
+
+
+def surface_phase(shape=(48, 64)):
+    """A known phase map spanning several fringes: tilt, power and a saddle."""
+    y, x = np.mgrid[0 : shape[0], 0 : shape[1]].astype(float)
+    u = (x - shape[1] / 2) / shape[1]
+    v = (y - shape[0] / 2) / shape[0]
+    return 9.0 * u + 4.0 * v + 14.0 * (u * u + v * v) + 6.0 * u * v
+
+
+def make_frames(phi, steps_deg, *, background=0.5, amplitude=0.3):
+    """Frames I_k = A + B cos(phi + delta_k): the model every paper below starts from."""
+    return [background + amplitude * np.cos(phi + np.radians(d)) for d in steps_deg]
+
+
+def phase_error(result, phi):
+    return wrap(result.wrapped_phase - phi)
+
+
+# ---- each formula against its paper's statement, exact without noise ------------------------
+
+
+def test_four_step_matches_bruning_formula_exactly():
+    # Bruning et al., Appl. Opt. 13, 2693 (1974); Creath 1988: steps 0, 90, 180, 270 deg,
+    # phi = atan2(I4 - I2, I1 - I3).
+    phi = surface_phase()
+    r = ps.demodulate_sequence(make_frames(phi, [0, 90, 180, 270]), algorithm="four-step")
+    assert r.steps_deg == (0.0, 90.0, 180.0, 270.0)
+    assert np.max(np.abs(phase_error(r, phi))) < 1e-9
+    assert np.max(np.abs(r.amplitude - 0.3)) < 1e-9
+    assert np.max(np.abs(r.background - 0.5)) < 1e-9
+    assert np.max(np.abs(r.modulation - 0.6)) < 1e-9
+
+
+def test_hariharan_matches_paper_formula_exactly():
+    # Hariharan, Oreb, Eiju, Appl. Opt. 26, 2504 (1987): steps -180..180 by 90 deg,
+    # tan(phi) = 2(I2 - I4) / (2 I3 - I5 - I1).
+    phi = surface_phase()
+    frames = make_frames(phi, [-180, -90, 0, 90, 180])
+    r = ps.demodulate_sequence(frames, algorithm="hariharan")
+    i1, i2, i3, i4, i5 = frames
+    paper = np.arctan2(2 * (i2 - i4), 2 * i3 - i5 - i1)
+    assert np.max(np.abs(wrap(r.wrapped_phase - paper))) < 1e-12
+    assert np.max(np.abs(phase_error(r, phi))) < 1e-9
+    assert np.max(np.abs(r.amplitude - 0.3)) < 1e-9
+
+
+@pytest.mark.parametrize("step", [45.0, 70.0, 90.0, 120.0, 150.0])
+def test_carre_matches_paper_formula_and_recovers_the_step(step):
+    # Carre, Metrologia 2, 13 (1966): steps -3a, -a, a, 3a with a = step / 2, and
+    # tan^2 a = [3(I2 - I3) - (I1 - I4)] / [(I2 - I3) + (I1 - I4)] at every pixel.
+    phi = surface_phase()
+    a = step / 2
+    frames = make_frames(phi, [-3 * a, -a, a, 3 * a])
+    r = ps.demodulate_sequence(frames)  # no step given: Carre is chosen for four frames
+    assert r.algorithm == "carre"
+    assert np.max(np.abs(phase_error(r, phi))) < 1e-9
+    assert r.step_found_deg == pytest.approx(step, abs=1e-9)
+    assert np.max(np.abs(r.amplitude - 0.3)) < 1e-9
+    assert np.max(np.abs(r.background - 0.5)) < 1e-9
+    i1, i2, i3, i4 = frames
+    d23, d14 = i2 - i3, i1 - i4
+    good = np.abs(d23 + d14) > 0.05
+    tan2 = (3 * d23 - d14)[good] / (d23 + d14)[good]
+    assert np.allclose(tan2, np.tan(np.radians(a)) ** 2, rtol=1e-8, atol=1e-10)
+
+
+def test_least_squares_matches_greivenkamp_for_unequal_steps():
+    # Greivenkamp, Opt. Eng. 23(4), 350 (1984): any known steps, phi = atan2(-a2, a1).
+    phi = surface_phase()
+    steps = [0.0, 70.0, 150.0, 260.0, 300.0]
+    r = ps.demodulate_sequence(make_frames(phi, steps), step_deg=steps)
+    assert r.algorithm == "least-squares"
+    assert r.step_found_deg is None  # unequal steps: no single step to report
+    assert np.max(np.abs(phase_error(r, phi))) < 1e-9
+    assert np.max(np.abs(r.amplitude - 0.3)) < 1e-9
+
+
+def test_least_squares_equals_a_slow_per_pixel_fit():
+    # slow obvious reference: numpy.linalg.lstsq on each pixel's own samples, in a loop
+    rng = np.random.default_rng(RNG_SEED)
+    phi = surface_phase((12, 15))
+    steps = [-100.0, -35.0, 10.0, 80.0, 130.0, 200.0]
+    frames = [f + rng.normal(0, 0.02, f.shape) for f in make_frames(phi, steps)]
+    r = ps.least_squares(frames, steps)
+    delta = np.radians(steps)
+    design = np.stack([np.ones_like(delta), np.cos(delta), np.sin(delta)], axis=1)
+    for i in range(phi.shape[0]):
+        for j in range(phi.shape[1]):
+            samples = np.array([f[i, j] for f in frames])
+            (a0, a1, a2), *_ = np.linalg.lstsq(design, samples, rcond=None)
+            assert r[0][i, j] == pytest.approx(np.arctan2(-a2, a1), abs=1e-12)
+            assert r[1][i, j] == pytest.approx(np.hypot(a1, a2), abs=1e-12)
+            assert r[2][i, j] == pytest.approx(a0, abs=1e-12)
+
+
+# ---- step miscalibration, noise, uneven light --------------------------------------------------
+
+
+def test_five_step_tolerates_a_five_percent_step_error_far_better_than_four_step():
+    # references.md (computed): with a 5 % step error the largest phase error is about
+    # 157 mrad for the 4-step and 1.5 mrad for Hariharan's 5-step (Hariharan et al. 1987
+    # show the error is second order in the step error).
+    phi = np.linspace(-np.pi, np.pi, 4001)[None, :]
+    s = 90.0 * 1.05
+    r4 = ps.demodulate_sequence(make_frames(phi, [0, s, 2 * s, 3 * s]), algorithm="four-step")
+    r5 = ps.demodulate_sequence(make_frames(phi, [-2 * s, -s, 0, s, 2 * s]), algorithm="hariharan")
+    e4 = phase_error(r4, phi)
+    e5 = phase_error(r5, phi)
+    assert np.max(np.abs(e4)) == pytest.approx(0.157, rel=0.02)
+    assert np.max(np.abs(e5)) == pytest.approx(0.0015, rel=0.05)
+    # the part that changes across the surface (the constant is piston, dropped anyway)
+    ripple4 = np.max(np.abs(e4 - e4.mean()))
+    ripple5 = np.max(np.abs(e5 - e5.mean()))
+    assert ripple5 < ripple4 / 20
+    # both report the step they actually saw
+    assert r4.step_found_deg == pytest.approx(s, abs=1e-6)
+    assert r5.step_found_deg == pytest.approx(s, abs=1e-6)
+
+
+def test_miscalibrated_step_is_found_and_warned_about():
+    phi = surface_phase()
+    s = 81.0
+    r = ps.demodulate_sequence(make_frames(phi, [(k - 3) * s for k in range(7)]), step_deg=90.0)
+    assert r.step_found_deg == pytest.approx(s, abs=1e-6)
+    assert any("81.0 deg" in w for w in r.warnings)
+
+
+def test_noise_gives_the_expected_phase_scatter():
+    # for N frames equally spaced over 2 pi, least squares gives a phase standard
+    # deviation of sigma / B * sqrt(2 / N) (Greivenkamp 1984; from memory)
+    rng = np.random.default_rng(RNG_SEED)
+    phi = surface_phase((200, 200))
+    sigma, amp = 0.01, 0.3
+    for alg, steps in [
+        ("four-step", [0, 90, 180, 270]),
+        ("least-squares", [k * 60.0 for k in range(6)]),
+    ]:
+        frames = [f + rng.normal(0, sigma, f.shape) for f in make_frames(phi, steps, amplitude=amp)]
+        r = ps.demodulate_sequence(
+            frames, algorithm=alg, step_deg=steps if alg != "four-step" else 90.0
+        )
+        expected = sigma / amp * np.sqrt(2 / len(steps))
+        assert np.std(phase_error(r, phi)) == pytest.approx(expected, rel=0.08)
+
+
+def test_noisy_unknown_step_is_found_within_half_a_degree():
+    rng = np.random.default_rng(RNG_SEED + 1)
+    phi = surface_phase((200, 200))
+    a = 36.0
+    frames = [f + rng.normal(0, 0.01, f.shape) for f in make_frames(phi, [-3 * a, -a, a, 3 * a])]
+    r = ps.demodulate_sequence(frames)
+    assert r.algorithm == "carre"
+    assert r.step_found_deg == pytest.approx(2 * a, abs=0.5)
+    # Hariharan et al. (1987) give the step from five frames as
+    # cos(alpha) = (I5 - I1) / (2 (I4 - I2)); pooled over pixels it must agree with ours
+    f5 = [f + rng.normal(0, 0.01, f.shape) for f in make_frames(phi, [-2 * 84, -84, 0, 84, 168])]
+    i1, i2, _, i4, i5 = f5
+    pooled = np.degrees(np.arccos(np.sum((i5 - i1) * (i4 - i2)) / (2 * np.sum((i4 - i2) ** 2))))
+    found = ps.demodulate_sequence(f5).step_found_deg
+    assert pooled == pytest.approx(84.0, abs=0.5)
+    assert found == pytest.approx(84.0, abs=0.5)
+
+
+def test_uneven_illumination_does_not_bias_the_phase():
+    # a Gaussian beam with a hot spot and a dark corner: A and B vary by 10 x across the field
+    phi = surface_phase((80, 100))
+    y, x = np.mgrid[0:80, 0:100].astype(float)
+    beam = 0.05 + np.exp(-((x - 30) ** 2 + (y - 50) ** 2) / (2 * 35.0**2))
+    for alg, steps in [
+        ("four-step", [0, 90, 180, 270]),
+        ("hariharan", [-180, -90, 0, 90, 180]),
+        ("carre", [-105, -35, 35, 105]),
+    ]:
+        frames = make_frames(phi, steps, background=0.6 * beam, amplitude=0.4 * beam)
+        r = ps.demodulate_sequence(frames, algorithm=alg)
+        assert np.max(np.abs(phase_error(r, phi))) < 1e-9, alg
+        assert np.max(np.abs(r.modulation - 0.4 / 0.6)) < 1e-9, alg
+
+
+def test_float32_frames_stay_float32_and_accurate():
+    phi = surface_phase()
+    frames = [f.astype(np.float32) for f in make_frames(phi, [-180, -90, 0, 90, 180])]
+    r = ps.demodulate_sequence(frames)
+    assert r.wrapped_phase.dtype == np.float32
+    assert np.max(np.abs(phase_error(r, phi))) < 1e-5
+
+
+def test_inputs_are_not_mutated():
+    phi = surface_phase()
+    frames = make_frames(phi, [0, 90, 180, 270])
+    copies = [f.copy() for f in frames]
+    ps.demodulate_sequence(frames)
+    for f, c in zip(frames, copies, strict=True):
+        assert np.array_equal(f, c)
+
+
+# ---- choice of algorithm and bad input ----------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("n", "step", "expected"),
+    [
+        (4, None, "carre"),
+        (4, 90.0, "four-step"),
+        (4, 60.0, "least-squares"),
+        (5, None, "hariharan"),
+        (5, 90.2, "hariharan"),
+        (5, 72.0, "least-squares"),
+        (3, 120.0, "least-squares"),
+        (8, None, "least-squares"),
+        (5, [0, 1, 2, 3, 4], "least-squares"),
+    ],
+)
+def test_choose_algorithm(n, step, expected):
+    assert ps.choose_algorithm(n, step) == expected
+
+
+def test_bad_sequences_raise_settings_errors():
+    phi = surface_phase()
+    with pytest.raises(SettingsError, match="at least 3 frames"):
+        ps.demodulate_sequence(make_frames(phi, [0, 90]))
+    with pytest.raises(SettingsError, match="give it with --step"):
+        ps.demodulate_sequence(make_frames(phi, [0, 120, 240]))
+    with pytest.raises(SettingsError, match="takes 5 frames"):
+        ps.demodulate_sequence(make_frames(phi, [0, 90, 180, 270]), algorithm="hariharan")
+    with pytest.raises(SettingsError, match="differ in size"):
+        ps.demodulate_sequence(
+            [np.zeros((4, 4)), np.zeros((4, 5)), np.zeros((4, 4))], step_deg=90.0
+        )
+    with pytest.raises(SettingsError, match="unknown algorithm"):
+        ps.demodulate_sequence(make_frames(phi, [0, 90, 180, 270]), algorithm="magic")
+
+
+# ---- binning and the aperture from the modulation -----------------------------------------------
+
+
+def test_binning_frames_equals_averaging_the_complex_fringe():
+    # the sum of equal-frequency sinusoids is a sinusoid: binned frames keep the model, and
+    # their phase is the argument of the block mean of B exp(i phi)
+    rng = np.random.default_rng(RNG_SEED)
+    phi = surface_phase((60, 90))
+    amp = 0.2 + 0.1 * rng.random(phi.shape)
+    frames = make_frames(phi, [-180, -90, 0, 90, 180], amplitude=amp)
+    r = ps.demodulate_sequence(ps.bin_frames(frames, 3))
+    field = (amp * np.exp(1j * phi)).reshape(20, 3, 30, 3).mean(axis=(1, 3))
+    assert np.max(np.abs(wrap(r.wrapped_phase - np.angle(field)))) < 1e-9
+    assert np.max(np.abs(r.amplitude - np.abs(field))) < 1e-9
+
+
+def soft_disk(shape, cx, cy, radius, edge_px=2.0):
+    y, x = np.mgrid[0 : shape[0], 0 : shape[1]].astype(float)
+    return 0.5 * (1 - np.tanh((np.hypot(x - cx, y - cy) - radius) / edge_px))
+
+
+def test_aperture_from_modulation_finds_a_soft_edged_disk_with_dust():
+    rng = np.random.default_rng(RNG_SEED)
+    shape = (240, 320)
+    amp = 0.3 * soft_disk(shape, 171.3, 118.6, 96.2) + rng.normal(0, 0.01, shape) ** 2
+    amp[100:106, 150:156] = 0.0  # a dust speck inside
+    amp[30:40, 160:175] *= 0.1  # a bite out of the edge
+    ap = ps.aperture_from_modulation(amp)
+    assert ap.center_x_px == pytest.approx(171.3, abs=0.3)
+    assert ap.center_y_px == pytest.approx(118.6, abs=0.3)
+    assert ap.radius_px == pytest.approx(96.2, abs=0.5)
+
+
+def test_aperture_from_modulation_rejects_a_flat_map():
+    with pytest.raises(UnanalysablePhotoError, match="no fringe modulation"):
+        ps.aperture_from_modulation(np.zeros((100, 100)), source="seq.png")
+
+
+# ---- from a frame sequence to heights -----------------------------------------------------
+
+
+def synthetic_sequence(
+    surface,
+    steps_deg,
+    *,
+    shape=(300, 400),
+    center=(205.0, 148.0),
+    radius=120.0,
+    wavelength=632.8,
+    tilt_fringes=1.5,
+    noise=0.005,
+    seed=0,
+):
+    """Frames of a known surface in a widening gap: phase = 4 pi gap / lambda + delta_k.
+
+    A high point narrows the gap, so the gap is ``tilt - h``. Uneven lamp, a soft
+    aperture edge, a dark speck of dust and camera noise, as real sequences have.
+    """
+    rng = np.random.default_rng(seed)
+    y, x = np.mgrid[0 : shape[0], 0 : shape[1]].astype(float)
+    xu, yu = (x - center[0]) / radius, (center[1] - y) / radius
+    h = surface.height_nm(xu, yu)
+    gap_phase = 2 * np.pi * tilt_fringes * xu / 2 - 4 * np.pi * h / wavelength
+    lamp = 0.6 + 0.15 * xu - 0.1 * yu
+    s = soft_disk(shape, center[0], center[1], radius, edge_px=2.0)
+    s = s * (1 - 0.9 * (np.hypot(x - 230, y - 120) < 4))  # dust
+    frames = []
+    for d in steps_deg:
+        i = s * lamp * (1 + 0.7 * np.cos(gap_phase + np.radians(d))) + 0.02
+        frames.append(np.clip(i + rng.normal(0, noise, shape), 0, 1))
+    return frames
+
+
+def test_measure_stack_recovers_a_known_surface_with_the_right_sign():
+    from flatsight.analysis.pipeline import MeasureSettings
+    from flatsight.analysis.synthetic import SyntheticSurface
+
+    # Noll 4 negative = centre high = convex: figures.py reports positive power for it
+    truth = {4: -40.0, 5: 12.0, 6: -8.0, 7: 6.0, 8: 5.0, 11: 4.0}
+    surface = SyntheticSurface(zernike_nm=truth)
+    step = 90.0 * 1.05  # a 5 % miscalibrated phase shifter
+    frames = synthetic_sequence(surface, [k * step for k in range(-2, 3)])
+    res = ps.measure_stack(
+        frames, MeasureSettings(wavelength_nm=632.8, n_terms=36), names=("seq_1.png",)
+    )
+    m = res.measurement
+    assert res.phase.algorithm == "hariharan"
+    assert res.phase.step_found_deg == pytest.approx(step, abs=1.0)
+    # the lamp is 50 % brighter on the right; the edge is still taken at half the local level
+    assert m.aperture.center_x_px == pytest.approx(205.0, abs=0.3)
+    assert m.aperture.center_y_px == pytest.approx(148.0, abs=0.3)
+    assert m.aperture.radius_px == pytest.approx(120.0, abs=1.0)
+    coef = m.zernike.coefficients_nm
+    for j in range(4, 16):
+        # 1 nm is about lambda/600: the residual of a 5 % step error with Hariharan plus noise
+        assert coef[j - 1] == pytest.approx(truth.get(j, 0.0), abs=1.0), j
+    assert m.figures.power_nm > 0
+    assert m.figures.power_nm == pytest.approx(2 * np.sqrt(3) * 40.0, abs=3.0)
+    assert res.binning == 1
+    assert not m.valid[120, 230]  # the dust speck (x 230, y 120) is left out
+    inverted = ps.measure_stack(frames, MeasureSettings(wavelength_nm=632.8, invert=True))
+    assert inverted.measurement.zernike.coefficients_nm[3] == pytest.approx(40.0, abs=1.0)
+
+
+def test_measure_stack_refuses_frames_without_fringes():
+    from flatsight.analysis.pipeline import MeasureSettings
+
+    flat = [np.full((120, 160), 0.4) for _ in range(5)]
+    with pytest.raises(UnanalysablePhotoError, match="no fringe modulation"):
+        ps.measure_stack(flat, MeasureSettings(), names=("a.png",))
+
+
+def test_measure_stack_reports_progress_and_stops_when_cancelled():
+    import threading
+
+    from flatsight.analysis.errors import MeasurementCancelled
+    from flatsight.analysis.pipeline import MeasureSettings
+    from flatsight.analysis.synthetic import SyntheticSurface
+
+    frames = synthetic_sequence(SyntheticSurface(zernike_nm={4: 10.0}), [0, 90, 180, 270])
+    stages = []
+    ps.measure_stack(frames, MeasureSettings(), progress=lambda s, f: stages.append(s))
+    assert stages[0] == "binning" and stages[-1] == "done"
+    cancel = threading.Event()
+    cancel.set()
+    with pytest.raises(MeasurementCancelled):
+        ps.measure_stack(frames, MeasureSettings(), cancel=cancel)

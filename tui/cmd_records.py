@@ -1,0 +1,328 @@
+"""The ``history``, ``trend`` and ``report`` commands: reading the inspection log back.
+
+``add_parser(subparsers)`` adds all three; each sets ``records_command`` so that
+``run(args)`` knows which to run (``args.run(args)`` works too).
+Exit status: 0 done, 2 bad options or log (one-line error on stderr).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import math
+import shutil
+import sys
+from collections.abc import Sequence
+from datetime import datetime
+from pathlib import Path
+
+from ..analysis.errors import FlatsightError, SettingsError
+
+__all__ = ["add_parser", "run", "run_history", "run_report", "run_trend", "trend_lines"]
+
+TREND_FIGURES = ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm", "astigmatism_nm",
+                 "symmetric_irregularity_nm", "rms_irregularity_nm", "rms_asymmetric_nm")
+CSV_FIELDS = ("record_id", "logged_utc", "part", "operator", "station", "photo",
+              "photo_sha256", "wavelength_nm", *TREND_FIGURES, "radius_of_curvature_m",
+              "tolerance", "verdict")
+
+
+def _log_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--log", metavar="PATH", default=None,
+                   help="inspection log (default: inspections.sqlite in the user data dir)")
+
+
+def add_parser(subparsers) -> None:
+    """Add ``history``, ``trend`` and ``report`` to a CLI's subparsers."""
+    h = subparsers.add_parser(
+        "history", help="list logged inspections, newest first",
+        description="List logged inspections, newest first. --json gives JSON Lines with "
+                    "the fields of 'measure --json' plus record_id, logged_utc, part, "
+                    "operator, station and verdict.")
+    _log_option(h)
+    h.add_argument("--part", metavar="ID", help="only this part")
+    h.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
+    h.add_argument("--verdict", choices=("pass", "fail"), help="only this verdict")
+    h.add_argument("--limit", metavar="N", type=int, default=None, help="at most N records")
+    fmt = h.add_mutually_exclusive_group()
+    fmt.add_argument("--json", action="store_true", help="JSON Lines, one record a line")
+    fmt.add_argument("--csv", action="store_true", help="CSV with one row a record")
+    h.set_defaults(records_command="history", run=run_history)
+
+    t = subparsers.add_parser(
+        "trend", help="plot a figure over time with its tolerance line and pass rate",
+        description="Plot a figure over time in the terminal. Each mark is one record's "
+                    "overall verdict (o passed, x failed, * no tolerance); the dashed line "
+                    "is the latest record's tightest limit on that figure (both signs for "
+                    "power, which is limited by magnitude).")
+    _log_option(t)
+    t.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
+    t.add_argument("--part", metavar="ID", help="only this part")
+    t.add_argument("--figure", default="pvr_nm", choices=TREND_FIGURES,
+                   help="figure to plot (default pvr_nm)")
+    t.add_argument("--height", type=int, default=12, help="plot rows (default 12)")
+    t.set_defaults(records_command="trend", run=run_trend)
+
+    r = subparsers.add_parser(
+        "report", help="write the certificate of one logged inspection",
+        description="Write the certificate of a logged inspection: FILE.html is one "
+                    "self-contained page that prints on A4 or Letter; FILE.png is the "
+                    "surface map alone.")
+    r.add_argument("record_id", type=int, metavar="RECORD_ID", help="see 'flatsight history'")
+    _log_option(r)
+    r.add_argument("--output", "-o", metavar="FILE", required=True, help="FILE.html or FILE.png")
+    r.set_defaults(records_command="report", run=run_report)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run whichever of the three commands ``args`` was parsed for."""
+    commands = {"history": run_history, "trend": run_trend, "report": run_report}
+    return commands[args.records_command](args)
+
+
+def _log_path(args: argparse.Namespace) -> Path:
+    from ..analysis.inspection_log import default_log_path
+
+    return Path(args.log).expanduser() if args.log else default_log_path()
+
+
+def _fail(command: str, exc: FlatsightError) -> int:
+    print(f"flatsight {command}: error: {exc}", file=sys.stderr)
+    return 2
+
+
+# --- history --------------------------------------------------------------------------------
+
+
+def _csv_row(rec: dict) -> dict:
+    spec = rec.get("spec") or {}
+    row = {k: rec.get(k) for k in CSV_FIELDS}
+    row["tolerance"] = spec.get("tolerance")
+    return row
+
+
+def _cell(value, digits: int = 1) -> str:
+    if value is None:
+        return "—"
+    if isinstance(value, float):
+        return f"{value:.{digits}f}" if math.isfinite(value) else "—"
+    return str(value)
+
+
+def run_history(args: argparse.Namespace) -> int:
+    """``flatsight history``: the log's records, newest first."""
+    from ..analysis.inspection_log import query
+
+    try:
+        rows = query(_log_path(args), part=args.part, since=args.since, verdict=args.verdict,
+                     limit=args.limit)
+    except FlatsightError as exc:
+        return _fail("history", exc)
+    out = sys.stdout
+    if args.json:
+        for rec in rows:
+            out.write(json.dumps(rec, allow_nan=False) + "\n")
+        return 0
+    if args.csv:
+        writer = csv.DictWriter(out, fieldnames=CSV_FIELDS, lineterminator="\n")
+        writer.writeheader()
+        for rec in rows:
+            writer.writerow(_csv_row(rec))
+        return 0
+    from rich import box
+    from rich.console import Console
+    from rich.table import Table
+
+    console = Console()
+    if not rows:
+        console.print("no records match", style="dim")
+        return 0
+    # who and where only when the terminal has room: the figures matter more at 80 columns
+    people = console.width >= 120
+    table = Table(box=box.SIMPLE_HEAD, header_style="bold", pad_edge=False)
+    columns = [("id", "right"), ("time (UTC)", "left"), ("part", "left")]
+    if people:
+        columns += [("operator", "left"), ("station", "left")]
+    columns += [("PV", "right"), ("PVr", "right"), ("power", "right"),
+                ("irreg.", "right"), ("verdict", "left")]
+    for name, justify in columns:
+        table.add_column(name, justify=justify, overflow="fold",
+                         no_wrap=name in ("time (UTC)", "part"))
+    for rec in rows:
+        verdict = rec.get("verdict")
+        style = {"pass": "bold green", "fail": "bold red"}.get(verdict, "dim")
+        cells = [str(rec["record_id"]), str(rec.get("logged_utc", ""))[:16].replace("T", " "),
+                 _cell(rec.get("part"))]
+        if people:
+            cells += [_cell(rec.get("operator")), _cell(rec.get("station"))]
+        cells += [_cell(rec.get("pv_nm")), _cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
+                  _cell(rec.get("irregularity_nm")), f"[{style}]{verdict or '—'}[/]"]
+        table.add_row(*cells)
+    console.print(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)",
+                  style="bold", overflow="fold")
+    console.print(table)
+    return 0
+
+
+# --- trend ----------------------------------------------------------------------------------
+
+
+def _parse_time(stamp: str) -> datetime:
+    return datetime.fromisoformat(stamp.replace("Z", "+00:00"))
+
+
+def trend_lines(
+    points: Sequence[tuple[datetime, float, str | None]],
+    *,
+    width: int = 80,
+    height: int = 12,
+    limits_nm: Sequence[float] = (),
+) -> list[str]:
+    """A plain-character plot of values over time.
+
+    Parameters
+    ----------
+    points : sequence of (time, value, verdict)
+        Oldest first; verdict ``"pass"``, ``"fail"`` or None.
+    width, height : int
+        Characters across (all of the plot, labels included) and plot rows.
+    limits_nm : sequence of float
+        Values to draw as dashed lines (a tolerance, and its negative for power).
+
+    Returns
+    -------
+    list of str
+        ``height`` plot rows, the time axis, and its date labels; every line at most
+        ``width`` characters.
+    """
+    values = [v for _, v, _ in points]
+    lo = min([*values, *limits_nm])
+    hi = max([*values, *limits_nm])
+    if hi == lo:
+        lo, hi = lo - 1.0, hi + 1.0
+    pad = 0.05 * (hi - lo)
+    lo, hi = lo - pad, hi + pad
+    label_w = max(len(f"{hi:.1f}"), len(f"{lo:.1f}")) + 1
+    plot_w = max(10, width - label_w - 2)
+    grid = [[" "] * plot_w for _ in range(height)]
+
+    def row_of(v: float) -> int:
+        return min(height - 1, max(0, round((hi - v) / (hi - lo) * (height - 1))))
+
+    for limit in limits_nm:
+        r = row_of(limit)
+        grid[r] = ["-" if c == " " else c for c in grid[r]]
+    t0, t1 = points[0][0], points[-1][0]
+    span = (t1 - t0).total_seconds()
+    rank = {"fail": 3, "pass": 2, None: 1}
+    mark = {"fail": "x", "pass": "o", None: "*"}
+    best: dict[tuple[int, int], str | None] = {}
+    for i, (t, v, verdict) in enumerate(points):
+        frac = (t - t0).total_seconds() / span if span > 0 else (
+            i / (len(points) - 1) if len(points) > 1 else 0.5)
+        cell = (row_of(v), min(plot_w - 1, round(frac * (plot_w - 1))))
+        # where points share a cell, a failure must stay visible
+        if cell not in best or rank[verdict] > rank[best[cell]]:
+            best[cell] = verdict
+    for (r, c), verdict in best.items():
+        grid[r][c] = mark[verdict]
+    lines = []
+    for r in range(height):
+        value = hi - r * (hi - lo) / (height - 1)
+        label = f"{value:.1f}" if r in (0, height - 1, height // 2) else ""
+        lines.append(f"{label:>{label_w}} │" + "".join(grid[r]))
+    lines.append(" " * label_w + " └" + "─" * plot_w)
+    first, last = t0.strftime("%Y-%m-%d %H:%M"), t1.strftime("%Y-%m-%d %H:%M")
+    gap = max(1, plot_w - len(first) - len(last))  # dates under the first and last column
+    lines.append(" " * (label_w + 2) + (first + " " * gap + last if span > 0 else first))
+    return [line[:width] for line in lines]
+
+
+def _limits_for(rec: dict, figure: str) -> tuple[list[float], str]:
+    """The latest record's tightest limit on ``figure`` (and -limit for a magnitude)."""
+    spec = rec.get("spec") or {}
+    found = [lim for lim in spec.get("limits", [])
+             if lim.get("figure") == figure and lim.get("limit_nm") is not None]
+    if not found:
+        return [], "no tolerance on this figure in the latest record"
+    tight = min(found, key=lambda lim: lim["limit_nm"])
+    lines = [tight["limit_nm"]]
+    if tight.get("compared") == "magnitude":
+        lines.append(-tight["limit_nm"])
+    return lines, (f"limit {tight['limit_nm']:.1f} nm "
+                   f"({tight.get('name')} of {spec.get('tolerance')})")
+
+
+def run_trend(args: argparse.Namespace) -> int:
+    """``flatsight trend``: one figure over time, its tolerance line, the pass rate."""
+    from ..analysis.inspection_log import query
+
+    if args.height < 4:
+        return _fail("trend", SettingsError("--height must be at least 4 rows"))
+    try:
+        rows = query(_log_path(args), part=args.part, since=args.since)
+    except FlatsightError as exc:
+        return _fail("trend", exc)
+    rows = rows[::-1]  # oldest first
+    points = [(_parse_time(r["logged_utc"]), float(r[args.figure]), r.get("verdict"))
+              for r in rows if isinstance(r.get(args.figure), int | float)]
+    from rich.console import Console
+    from rich.text import Text
+
+    console = Console(highlight=False)
+    if not points:
+        console.print(f"no records with {args.figure} match", style="dim")
+        return 0
+    limits, limit_note = _limits_for(rows[-1], args.figure)
+    width = min(console.width if console.is_terminal else shutil.get_terminal_size().columns,
+                120)
+    console.print(f"{args.figure} over time: {len(points)} records"
+                  + (f", part {args.part}" if args.part else ""), style="bold")
+    for line in trend_lines(points, width=max(40, width), height=args.height,
+                            limits_nm=limits):
+        label, bar, body = line.partition("│")
+        if not bar:  # the time axis and its dates
+            console.print(Text(line))
+            continue
+        text = Text(body)
+        text.highlight_regex(r"x", "bold red")
+        text.highlight_regex(r"o", "green")
+        text.highlight_regex(r"-+", "yellow")
+        console.print(Text(label + bar) + text)
+    judged = [r for r in rows if r.get("verdict") in ("pass", "fail")]
+    passed = sum(r["verdict"] == "pass" for r in judged)
+    rate = (f"pass rate {passed}/{len(judged)} ({100.0 * passed / len(judged):.1f} %)"
+            if judged else "pass rate: no record had a tolerance")
+    console.print(f"o pass  x fail  * no tolerance  --- {limit_note}")
+    console.print(rate, style="bold")
+    return 0
+
+
+# --- report ---------------------------------------------------------------------------------
+
+
+def run_report(args: argparse.Namespace) -> int:
+    """``flatsight report``: the certificate (HTML) or the map (PNG) of one record."""
+    from ..analysis.atomic import atomic_write_bytes, atomic_write_text
+    from ..analysis.certificate import certificate_html, map_png
+    from ..analysis.inspection_log import get
+
+    out = Path(args.output).expanduser()
+    suffix = out.suffix.lower()
+    if suffix not in (".html", ".htm", ".png"):
+        return _fail("report", SettingsError(
+            f"cannot write a report as {out.name}: name the output FILE.html or FILE.png"))
+    try:
+        rec = get(_log_path(args), args.record_id)
+        if suffix == ".png":
+            atomic_write_bytes(out, map_png(rec))
+        else:
+            atomic_write_text(out, certificate_html(rec))
+    except FlatsightError as exc:
+        return _fail("report", exc)
+    except OSError as exc:
+        return _fail("report", SettingsError(f"cannot write {out}: {exc.strerror or exc}"))
+    verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
+    print(f"wrote {out} (record {args.record_id}, {rec.get('part') or 'no part'}, {verdict})")
+    return 0

@@ -1,0 +1,175 @@
+"""The options that turn a measurement into an inspection record: tolerance, log, part, presets.
+
+``flatsight measure`` (and ``watch``) call these in order::
+
+    add_record_options(parser)                 # when building the parser
+    args = apply_preset(args)                  # after parsing: fill unset options
+    tolerance_from_args(args)                  # before measuring: a bad --spec fails fast
+    record, status = finish_record(args, rec)  # per photo: spec section, record_id, log
+
+A malformed tolerance, preset or log raises :class:`SettingsError` (exit 2).
+"""
+
+from __future__ import annotations
+
+import argparse
+import getpass
+import math
+import socket
+from pathlib import Path
+
+from ..analysis.errors import SettingsError
+from ..analysis.inspection_log import default_log_path, record_measurement, utc_now
+from ..analysis.tolerances import Tolerance, evaluate, parse_tolerance, spec_section
+
+__all__ = [
+    "PRESET_TO_OPTION",
+    "SPEC_HELP",
+    "add_record_options",
+    "apply_preset",
+    "finish_record",
+    "log_path_from_args",
+    "tolerance_from_args",
+]
+
+# preset key -> argparse dest it fills when that option was not given on the command line.
+# wavelength/diameter/terms are the measure command's own options: their defaults must be
+# None for a preset to fill them (the measure command applies its defaults afterwards).
+PRESET_TO_OPTION = {
+    "wavelength_nm": "wavelength",
+    "diameter_mm": "diameter",
+    "zernike_terms": "terms",
+    "tolerance": "spec",
+    "spec_wavelength_nm": "spec_wavelength",
+    "operator": "operator",
+    "station": "station",
+}
+
+SPEC_HELP = (
+    "surface-form tolerance: ISO 10110-5 '3/A(B/C)', '3/A(B)', '3/-(B)', "
+    "'3/A(B/C) RMSi < D' (RMSt, RMSi, RMSa), or plain limits such as 'pv<=63nm, rms<=0.02w, "
+    "power<=2fr'. A = sag error compared with |power|; B = PV irregularity after power "
+    "(astigmatism included); C = rotationally symmetric part of B. A, B, C are fringes "
+    "(half waves) and D waves at 546.07 nm unless --spec-wavelength; plain 'w' is a wave of "
+    "the test wavelength unless --spec-wavelength. A value equal to its limit passes. "
+    "Exit status 1 when a photo fails."
+)
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not math.isfinite(value) or value <= 0:
+        raise argparse.ArgumentTypeError(f"{text!r} must be a positive number")
+    return value
+
+
+def add_record_options(parser: argparse.ArgumentParser) -> None:
+    """Add the tolerance, log, people and preset options to a command's parser."""
+    group = parser.add_argument_group("tolerance and inspection log")
+    group.add_argument("--spec", metavar="TEXT", default=None, help=SPEC_HELP)
+    group.add_argument("--spec-wavelength", metavar="NM", type=_positive_float, default=None,
+                       help="wavelength the drawing states its fringes in (default 546.07)")
+    group.add_argument("--log", metavar="PATH", default=None,
+                       help=f"inspection log (SQLite; default {default_log_path()})")
+    group.add_argument("--no-log", action="store_true", help="do not record this measurement")
+    group.add_argument("--part", metavar="ID", default=None, help="part serial, e.g. BW-FL-0412")
+    group.add_argument("--operator", metavar="NAME", default=None,
+                       help="who measured (default: the login name)")
+    group.add_argument("--station", metavar="NAME", default=None,
+                       help="where it was measured (default: the host name)")
+    group.add_argument("--preset", metavar="NAME", default=None,
+                       help="fill unset options from this station preset")
+    group.add_argument("--presets", metavar="FILE", default=None,
+                       help="presets file (TOML; default presets.toml in the user config dir)")
+
+
+def apply_preset(args: argparse.Namespace) -> argparse.Namespace:
+    """A copy of ``args`` with every unset option (None) filled from ``--preset``.
+
+    Options given on the command line win over the preset. Without ``--preset`` the
+    copy equals ``args``.
+
+    Raises
+    ------
+    SettingsError
+        Bad presets file or unknown preset name (the message lists the known ones).
+    """
+    out = argparse.Namespace(**vars(args))
+    name = getattr(args, "preset", None)
+    if not name:
+        return out
+    from ..analysis.presets import get_preset
+
+    preset = get_preset(name, path=getattr(args, "presets", None))
+    for key, dest in PRESET_TO_OPTION.items():
+        value = getattr(preset, key)
+        if value is not None and getattr(out, dest, None) is None:
+            setattr(out, dest, value)
+    return out
+
+
+def tolerance_from_args(args: argparse.Namespace) -> Tolerance | None:
+    """The parsed ``--spec`` (None without one); raises a pointed SettingsError if malformed."""
+    text = getattr(args, "spec", None)
+    if text is None:
+        return None
+    return parse_tolerance(text, spec_wavelength_nm=getattr(args, "spec_wavelength", None))
+
+
+def log_path_from_args(args: argparse.Namespace) -> Path | None:
+    """Where to log: ``--log``, the default path, or None with ``--no-log``."""
+    if getattr(args, "no_log", False):
+        return None
+    given = getattr(args, "log", None)
+    return Path(given).expanduser() if given else default_log_path()
+
+
+def _default_operator() -> str | None:
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # no login name in some containers
+        return None
+
+
+def finish_record(args: argparse.Namespace, record: dict) -> tuple[dict, int]:
+    """Judge a record against ``--spec``, log it, and say what that adds to the exit status.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed options (after :func:`apply_preset`).
+    record : dict
+        ``measurement_to_record(m)``; not modified.
+
+    Returns
+    -------
+    record : dict
+        A copy with ``part``, ``operator``, ``station``, ``logged_utc``, the ``spec``
+        section when a tolerance was given, and ``record_id`` when logged.
+    status : int
+        1 when the tolerance fails, else 0 (combine with ``max``).
+    """
+    out = dict(record)
+    status = 0
+    tolerance = tolerance_from_args(args)
+    if tolerance is not None:
+        result = evaluate(tolerance, out)
+        out["spec"] = spec_section(result)
+        status = 1 if result.verdict == "fail" else 0
+    out["part"] = getattr(args, "part", None)
+    out["operator"] = getattr(args, "operator", None) or _default_operator()
+    out["station"] = getattr(args, "station", None) or socket.gethostname() or None
+    out["logged_utc"] = utc_now()
+    path = log_path_from_args(args)
+    if path is not None:
+        try:
+            out["record_id"] = record_measurement(
+                path, out, part=out["part"], operator=out["operator"], station=out["station"],
+                logged_utc=out["logged_utc"])
+        except OSError as exc:
+            raise SettingsError(f"cannot write the inspection log {path}: {exc}; "
+                                "give another --log PATH or --no-log") from None
+    return out, status
