@@ -13,10 +13,18 @@ The file holds one table per preset under ``presets``::
 
 Every key is optional; an unknown key is an error (a misspelt key would otherwise be
 silently ignored and the part measured with the wrong settings).
+
+A ``photos`` table may choose the preset by the photo's file name, so one folder can
+hold parts shot on several benches (the first matching pattern wins)::
+
+    [photos]
+    "*_hene.*" = "bench-2-hene"
+    "*_sodium.*" = "bench-1-sodium"
 """
 
 from __future__ import annotations
 
+import fnmatch
 import math
 import tomllib
 from dataclasses import dataclass, fields
@@ -25,7 +33,7 @@ from pathlib import Path
 from .errors import SettingsError
 from .tolerances import parse_tolerance
 
-__all__ = ["Preset", "default_presets_path", "get_preset", "load_presets"]
+__all__ = ["Preset", "default_presets_path", "get_preset", "load_presets", "preset_for_photo"]
 
 
 @dataclass(frozen=True)
@@ -100,7 +108,12 @@ def _preset(path: Path, name: str, table) -> Preset:
 
 
 def load_presets(path: str | Path | None = None) -> dict[str, Preset]:
-    """All presets in a TOML file, by name.
+    """All presets in a TOML file, by name (see :func:`_load`)."""
+    return _load(path)[0]
+
+
+def _load(path: str | Path | None = None) -> tuple[dict[str, Preset], dict[str, str]]:
+    """All presets in a TOML file, by name, and its ``[photos]`` patterns.
 
     Parameters
     ----------
@@ -121,21 +134,40 @@ def load_presets(path: str | Path | None = None) -> dict[str, Preset]:
     except FileNotFoundError:
         if explicit:
             raise SettingsError(f"no presets file at {p}: check the --presets path") from None
-        return {}
+        return {}, {}
     except (OSError, UnicodeDecodeError) as exc:
         raise SettingsError(f"cannot read presets file {p}: {exc}") from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SettingsError(f"presets file {p} is not valid TOML: {exc}") from None
-    extra = sorted(set(data) - {"presets"})
+    extra = sorted(set(data) - {"presets", "photos"})
     if extra:
         raise SettingsError(
             f"{p}: unknown top-level key {extra[0]!r}: put each preset under [presets.NAME]")
     tables = data.get("presets", {})
     if not isinstance(tables, dict):
         raise SettingsError(f"{p}: 'presets' must be tables, written [presets.NAME]")
-    return {name: _preset(p, name, table) for name, table in tables.items()}
+    presets = {name: _preset(p, name, table) for name, table in tables.items()}
+    photos = data.get("photos", {})
+    if not isinstance(photos, dict):
+        raise SettingsError(f"{p}: 'photos' must be a table of \"pattern\" = \"preset\"")
+    for pattern, name in photos.items():
+        if name not in presets:
+            known = ", ".join(sorted(presets)) or "none"
+            raise SettingsError(f"{p}: photos {pattern!r} names no preset {name!r} "
+                                f"(known: {known})")
+    return presets, dict(photos)
+
+
+def preset_for_photo(photo: str | Path, *, path: str | Path) -> Preset | None:
+    """The preset the ``[photos]`` table of ``path`` gives a photo's file name, or None."""
+    presets, patterns = _load(path)
+    name = Path(photo).name
+    for pattern, preset in patterns.items():
+        if fnmatch.fnmatch(name, pattern):
+            return presets[preset]
+    return None
 
 
 def get_preset(name: str, *, path: str | Path | None = None) -> Preset:

@@ -140,14 +140,35 @@ def run(args: argparse.Namespace) -> int:
     from .report_text import Reporter
 
     err = sys.stderr
+
+    def photo_args(photo: str | None) -> tuple[argparse.Namespace, object]:
+        """The options for one photo (its preset applied) and its settings.
+
+        With ``--presets FILE`` and no ``--preset``, each photo takes the preset that the
+        file's ``[photos]`` table gives its name; options on the command line still win.
+        """
+        chosen = None
+        if photo is not None and not args.preset and args.presets:
+            from flatsight.analysis.presets import preset_for_photo
+
+            chosen = preset_for_photo(photo, path=args.presets)
+        a = apply_preset(args, preset=chosen)
+        if a.wavelength is None:
+            where = f" for {photo}" if photo else ""
+            raise SettingsError(f"no test wavelength{where}: give --wavelength NM (e.g. "
+                                "632.8 or hene for a He-Ne laser) or a preset that sets it")
+        a.wavelength = wavelength_type(str(a.wavelength))
+        tolerance_from_args(a)  # a malformed tolerance fails before the photo is measured
+        return a, _settings(a)
+
+    per_photo = bool(args.presets and not args.preset)
     try:
-        args = apply_preset(args)
-        if args.wavelength is None:
-            raise SettingsError("give the test wavelength: --wavelength NM (e.g. 632.8 or "
-                                "hene for a He-Ne laser)")
-        args.wavelength = wavelength_type(str(args.wavelength))
-        tolerance_from_args(args)  # a malformed tolerance fails before any photo
-        settings = _settings(args)
+        if per_photo:
+            from flatsight.analysis.presets import load_presets
+
+            load_presets(args.presets)  # a bad presets file fails before any photo
+        else:
+            args, settings = photo_args(None)
     except (SettingsError, argparse.ArgumentTypeError, ValueError) as exc:
         print(f"flatsight measure: error: {exc}", file=err)
         return 2
@@ -166,7 +187,7 @@ def run(args: argparse.Namespace) -> int:
     reporter = Reporter(mode=mode, detail=args.detail or len(photos) == 1 or args.average,
                         ordering=args.ordering)
 
-    def report(item, photo: str) -> int:
+    def report(item, photo: str, opts: argparse.Namespace) -> int:
         """Record, save, judge and print one result; returns its exit status."""
         m = item.measurement
         record = measurement_to_record(m, ordering=args.ordering)
@@ -179,7 +200,7 @@ def run(args: argparse.Namespace) -> int:
                 raise SettingsError(f"cannot write the height map {target}: "
                                     f"{exc.strerror or exc}") from None
             record["height_map_path"] = str(Path(target).resolve())
-        record, verdict_status = finish_record(args, record)
+        record, verdict_status = finish_record(opts, record)
         reporter.emit(record, m)
         return verdict_status
 
@@ -202,13 +223,14 @@ def run(args: argparse.Namespace) -> int:
         for i, photo in enumerate(photos):
             progress.start(photo, i)
             try:
-                m = measure(photo, settings, progress=progress.stage)
+                opts, photo_settings = photo_args(photo) if per_photo else (args, settings)
+                m = measure(photo, photo_settings, progress=progress.stage)
                 progress.pause()
                 if args.average:
                     collected.append(m)
                     continue
-                for item in combine_with_sections(args, [m]):
-                    status = max(status, report(item, photo))
+                for item in combine_with_sections(opts, [m]):
+                    status = max(status, report(item, photo, opts))
             except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
                 progress.pause()
                 status = max(status, one_line(exc, photo))
@@ -217,8 +239,9 @@ def run(args: argparse.Namespace) -> int:
     if args.average and collected:
         name = "average of " + ", ".join(Path(m.photo).name for m in collected)
         try:
-            for item in combine_with_sections(args, collected):
-                status = max(status, report(item, name))
+            opts = photo_args(collected[0].photo)[0] if per_photo else args
+            for item in combine_with_sections(opts, collected):
+                status = max(status, report(item, name, opts))
         except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
             status = max(status, one_line(exc, name))
     reporter.finish()

@@ -86,11 +86,12 @@ def add_record_options(parser: argparse.ArgumentParser) -> None:
                        help="presets file (TOML; default presets.toml in the user config dir)")
 
 
-def apply_preset(args: argparse.Namespace) -> argparse.Namespace:
+def apply_preset(args: argparse.Namespace, preset=None) -> argparse.Namespace:
     """A copy of ``args`` with every unset option (None) filled from ``--preset``.
 
-    Options given on the command line win over the preset. Without ``--preset`` the
-    copy equals ``args``.
+    Options given on the command line win over the preset. ``preset`` (a
+    :class:`~flatsight.analysis.presets.Preset`) overrides ``--preset``; without
+    either the copy equals ``args``.
 
     Raises
     ------
@@ -99,11 +100,12 @@ def apply_preset(args: argparse.Namespace) -> argparse.Namespace:
     """
     out = argparse.Namespace(**vars(args))
     name = getattr(args, "preset", None)
-    if not name:
-        return out
-    from ..analysis.presets import get_preset
+    if preset is None:
+        if not name:
+            return out
+        from ..analysis.presets import get_preset
 
-    preset = get_preset(name, path=getattr(args, "presets", None))
+        preset = get_preset(name, path=getattr(args, "presets", None))
     for key, dest in PRESET_TO_OPTION.items():
         value = getattr(preset, key)
         if value is not None and getattr(out, dest, None) is None:
