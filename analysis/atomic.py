@@ -11,6 +11,20 @@ from pathlib import Path
 __all__ = ["atomic_path", "atomic_write_bytes", "atomic_write_text"]
 
 
+def _umask() -> int:
+    """The process's umask, read without changing it where the system allows."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    umask = os.umask(0o022)  # elsewhere: set and restore at once
+    os.umask(umask)
+    return umask
+
+
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike, *, suffix: str | None = None) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; on success it replaces ``path`` at once.
@@ -25,6 +39,13 @@ def atomic_path(path: str | os.PathLike, *, suffix: str | None = None) -> Iterat
                                dir=folder)
     os.close(fd)
     tmp_path = Path(tmp)
+    # mkstemp makes the file private (0600); give it the mode a plain write would have,
+    # or the mode of the file it replaces
+    try:
+        mode = target.stat().st_mode & 0o777
+    except OSError:
+        mode = 0o666 & ~_umask()
+    os.chmod(tmp_path, mode)
     try:
         yield tmp_path
         with open(tmp_path, "rb+") as fh:

@@ -45,9 +45,9 @@ MODEL_TERMS = 15
 CROP_MARGIN = 0.32  # crop half-size beyond the radius, as a fraction of it
 TAPER_START, TAPER_END = 1.06, 1.26  # second-pass apodisation, in aperture radii
 MIN_FRINGES = 4.0
-# measured pixels end a little inside the rim, where a soft aperture edge starts to dim
-# the fringes; the local fit carries the phase out to the rim from there
-KNOWN_RHO = 0.95
+# measured pixels end at most this far out (in radii); a soft edge ends them sooner
+# (see _bright_radius); the local fit carries the phase out to the rim from there
+KNOWN_RHO = 0.98
 # second-pass window: radius as a share of the slowest local fringe frequency, and the
 # share of that radius over which it is flat (passes the surface unattenuated)
 W2_FRACTION, W2_FLAT = 0.7, 0.7
@@ -346,6 +346,36 @@ def _unwrap_small(wrapped: np.ndarray, inside: np.ndarray) -> np.ndarray:
     return np.ma.filled(out, np.nan)
 
 
+def _bright_radius(data: np.ndarray, rho: np.ndarray, inframe: np.ndarray | None) -> float:
+    """How far out (in aperture radii) the fringes keep their full brightness.
+
+    The mean over a thin ring averages the fringes away and leaves the edge profile: a
+    soft aperture edge (a defocused or bevelled rim) dims the fringes over a few
+    percent of the radius inside the 50 % point. Measured pixels stop where the ring
+    mean has fallen 15 % of the way from the inside level to the surround, and never
+    beyond KNOWN_RHO.
+    """
+    sel = (rho > 0.8) & (rho < 1.2)
+    if inframe is not None:
+        sel &= np.pad(inframe, ((0, rho.shape[0] - inframe.shape[0]),
+                                (0, rho.shape[1] - inframe.shape[1])))
+    bins = np.floor((rho[sel] - 0.8) / 0.005).astype(int)
+    total = np.bincount(bins, weights=data[sel], minlength=80)
+    count = np.bincount(bins, minlength=80)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        profile = total / count
+    centres = 0.8 + 0.005 * (np.arange(profile.size) + 0.5)
+    inside = np.nanmedian(profile[(centres > 0.86) & (centres < 0.92)])
+    outside = np.nanmedian(profile[(centres > 1.1) & (centres < 1.2)])
+    if not (np.isfinite(inside) and np.isfinite(outside)) or inside - outside <= 0:
+        return KNOWN_RHO
+    level = outside + 0.85 * (inside - outside)
+    below = np.flatnonzero((centres > 0.92) & (profile < level))
+    if below.size == 0:
+        return KNOWN_RHO
+    return float(np.clip(centres[below[0]] - 0.01, 0.88, KNOWN_RHO))
+
+
 def _find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: np.ndarray,
                  rho: np.ndarray, pupil: np.ndarray, k: int) -> np.ndarray:
     """Dust specks, scratches and dead pixels: where the photo departs from its fringe model.
@@ -484,7 +514,8 @@ def demodulate(
     r_b = aperture.radius_px / k
     center_rc = ((aperture.center_y_px - origin[1]) / k, (aperture.center_x_px - origin[0]) / k)
     rho = _radius_grid(data.shape, center_rc, r_b)
-    pupil = rho <= KNOWN_RHO
+    known_rho = _bright_radius(data, rho, inframe)
+    pupil = rho <= known_rho
     if inframe is not None:
         pupil &= inframe
     excluded = np.zeros_like(pupil)
@@ -603,7 +634,7 @@ def demodulate(
     basis_region = zernike_basis(MODEL_TERMS, np.broadcast_to(xu, (ny, nx))[region],
                                  np.broadcast_to(yu, (ny, nx))[region]).astype(np.float32)
     carrier_phase = (2 * np.pi * (fc[0] * yy / ny + fc[1] * xx / nx)).astype(np.float32)
-    weight = (rho <= KNOWN_RHO) & ~specks & ~excluded
+    weight = (rho <= known_rho) & ~specks & ~excluded
     if inframe is not None:
         weight &= np.pad(inframe, ((0, pad), (0, pad))) if pad else inframe
     weight = weight.astype(np.float32)

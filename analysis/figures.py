@@ -123,14 +123,16 @@ def compute_figures(
     diameter_mm: float | None = None,
     removed_terms: tuple[int, ...] = PISTON_TILT,
     disk_basis: np.ndarray | None = None,
+    measured: np.ndarray | None = None,
 ) -> Figures:
     """Figures of a surface measured at ``P`` pixels.
 
-    PV and irregularity are taken over the measured pixels. The RMS figures and the
-    fit part of PVr are taken over the whole clear aperture when ``disk_basis`` is
-    given: the fit stands in for pixels that could not be measured (specks, a rim the
-    fringes fade at), and the residual, which the fit leaves orthogonal to it, is
-    added in quadrature from the measured pixels.
+    With ``disk_basis`` (and ``measured``) every figure is taken over the whole clear
+    aperture: PV and irregularity over the measured heights together with the fit at
+    the pixels that could not be measured (specks, a rim the fringes fade at); the
+    RMS figures as the fit's RMS over the disk with the residual, which the fit leaves
+    orthogonal to it, added in quadrature; PVr from the fit over the disk. Without
+    them, everything is taken over the measured pixels.
 
     Parameters
     ----------
@@ -148,6 +150,8 @@ def compute_figures(
         Noll terms to take out before PV and RMS (always at least piston and tilt).
     disk_basis : (Q, J) ndarray, optional
         The same terms at every pixel of the full aperture (measured or not).
+    measured : (Q,) bool ndarray, optional
+        Which of those ``Q`` pixels are the ``P`` measured ones, in the same order.
     """
     h = np.ravel(np.asarray(height_nm, dtype=float))
     a = np.asarray(fit.coefficients_nm, dtype=float)
@@ -176,7 +180,17 @@ def compute_figures(
 
     a4 = a[3] if n_terms >= 4 else 0.0
     power = -2.0 * SQRT3 * a4
-    without_power = h - terms(sorted(set(PISTON_TILT) | {4}))
+    def whole_disk(js) -> np.ndarray:
+        """Heights with terms ``js`` removed: measured where measured, else the fit."""
+        part = h - terms(js)
+        if disk_basis is None or measured is None:
+            return part
+        out = terms([j for j in range(1, n_terms + 1) if j not in set(js)], disk_basis)
+        out[measured] = part
+        return out
+
+    surface = whole_disk(removed)
+    without_power = whole_disk(sorted(set(removed) | {4}))
     symmetric = [j for j in range(5, n_terms + 1) if noll_to_nm(j)[1] == 0]
     a5 = a[4] if n_terms >= 6 else 0.0
     a6 = a[5] if n_terms >= 6 else 0.0

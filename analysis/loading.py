@@ -108,7 +108,10 @@ def load_photo(path: str | os.PathLike) -> FringePhoto:
     digest = hashlib.sha256(data).hexdigest()
     try:
         with warnings.catch_warnings():
-            # A photo between MAX_IMAGE_PIXELS and twice that only warns in Pillow; refuse it.
+            # A photo between MAX_IMAGE_PIXELS and twice that only warns in Pillow; refuse
+            # it. The filter is restored on leaving (before Python 3.14 it is shared by all
+            # threads meanwhile, which at worst turns another load's bomb warning into
+            # the same refusal).
             warnings.simplefilter("error", Image.DecompressionBombWarning)
             with Image.open(io.BytesIO(data)) as image:
                 # MPO is the JPEG some cameras write with a second, smaller picture inside

@@ -313,7 +313,8 @@ def measurement_from_height(
     h = np.asarray(height_nm, dtype=float)[valid]
     fit = fit_zernike(h, None, None, n_terms=settings.n_terms, basis=basis)
     figures = compute_figures(h, basis, fit, wavelength_nm=settings.wavelength_nm,
-                              diameter_mm=settings.diameter_mm, disk_basis=disk_basis)
+                              diameter_mm=settings.diameter_mm, disk_basis=disk_basis,
+                              measured=valid[disk])
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
@@ -367,7 +368,7 @@ def with_terms_removed(
     removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
     figures = compute_figures(h, basis, m.zernike, wavelength_nm=m.settings.wavelength_nm,
                               diameter_mm=m.settings.diameter_mm, removed_terms=removed,
-                              disk_basis=disk_basis)
+                              disk_basis=disk_basis, measured=valid[disk])
     idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
     out = np.full(m.height_nm.shape, np.nan)
     out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]

@@ -32,12 +32,24 @@ def unwrap(wrapped: np.ndarray, valid: np.ndarray) -> np.ndarray:
     if n > 1:
         sizes = ndimage.sum_labels(valid, labels, index=np.arange(1, n + 1))
         main = int(np.argmax(sizes)) + 1
-        ref = float(np.nanmean(phase[labels == main]))
+        # a quadratic fitted to the largest region carries it across the masks; each
+        # island takes the 2 pi offset that best continues that surface
+        rows, cols = np.indices(wrapped.shape)
+        scale = float(max(wrapped.shape))
+        y, x = rows / scale, cols / scale
+
+        def design(sel):
+            return np.stack([np.ones(sel.sum()), x[sel], y[sel], x[sel] ** 2,
+                             x[sel] * y[sel], y[sel] ** 2], axis=1)
+
+        sel_main = labels == main
+        coef, *_ = np.linalg.lstsq(design(sel_main), phase[sel_main], rcond=None)
         for lab in range(1, n + 1):
             if lab == main:
                 continue
             sel = labels == lab
-            phase[sel] -= 2 * np.pi * np.round((np.nanmean(phase[sel]) - ref) / (2 * np.pi))
+            expected = design(sel) @ coef
+            phase[sel] -= 2 * np.pi * np.round(np.mean(phase[sel] - expected) / (2 * np.pi))
     return phase
 
 

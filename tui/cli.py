@@ -35,8 +35,15 @@ laser and glass-handling procedures. Flatsight's figures support, and do not
 replace, the shop's calibrated instruments and the customer's acceptance test."""
 
 
+class OneLineParser(argparse.ArgumentParser):
+    """An argument parser whose usage errors are one line (exit status 2)."""
+
+    def error(self, message: str):  # noqa: D401 - argparse's hook
+        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = OneLineParser(
         prog="flatsight",
         description=DESCRIPTION,
         epilog=EXIT_CODES,
@@ -50,7 +57,8 @@ def build_parser() -> argparse.ArgumentParser:
     except Exception:  # pragma: no cover - bare source tree
         ver = "unknown"
     parser.add_argument("--version", action="version", version=f"flatsight {ver}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND",
+                                parser_class=OneLineParser)
     for name in COMMANDS:
         try:
             module = importlib.import_module(f"{pkg}.{name}")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import json
 import sys
+from pathlib import Path
 from typing import TextIO
 
 from rich.console import Console
@@ -126,7 +127,9 @@ class Reporter:
         self.detail = detail
         self.ordering = ordering
         self.stream = stream or sys.stdout
-        self.console = Console(file=self.stream, highlight=False)
+        # a pipe or a file gets a fixed, roomy width rather than rich's 80 columns
+        width = None if self.stream.isatty() else 110
+        self.console = Console(file=self.stream, highlight=False, width=width)
         self._csv: csv.DictWriter | None = None
         self._rows: list[dict] = []
 
@@ -188,18 +191,22 @@ class Reporter:
         if self.mode != "table" or not self._rows:
             return
         t = Table(header_style="bold", show_edge=False)
-        for col, just in [("photo", "left"), ("λ nm", "right"), ("PV nm", "right"),
+        name_width = max(len(Path(r["photo"]).name) for r in self._rows)
+        t.add_column("photo", no_wrap=True, min_width=min(name_width, 40))
+        for col, just in [ ("λ nm", "right"), ("PV nm", "right"),
                           ("RMS nm", "right"), ("PVr nm", "right"), ("PVr waves", "right"),
                           ("power nm", "right"), ("irreg. nm", "right"), ("verdict", "left"),
-                          ("notes", "left")]:
+                          ("warn.", "right")]:
             t.add_column(col, justify=just)
         for r in self._rows:
             spec = r.get("spec") or {}
             verdict = spec.get("verdict", "")
             style = {"pass": "green", "fail": "bold red"}.get(verdict, "")
-            t.add_row(r["photo"], f"{r['wavelength_nm']:g}", _fmt(r["pv_nm"]),
+            t.add_row(Path(r["photo"]).name, f"{r['wavelength_nm']:g}", _fmt(r["pv_nm"]),
                       _fmt(r["rms_nm"]), _fmt(r["pvr_nm"]), _fmt(r["pvr_waves"], 3),
                       _fmt(r["power_nm"]), _fmt(r["irregularity_nm"]),
-                      Text(verdict, style=style), f"{len(r.get('warnings', []))} warning(s)"
-                      if r.get("warnings") else "")
+                      Text(verdict, style=style), str(len(r.get("warnings", []))))
         self.console.print(t)
+        for r in self._rows:
+            for w in r.get("warnings", []):
+                self.console.print(f"[yellow]{Path(r['photo']).name}: warning:[/] {w}")

@@ -1,0 +1,126 @@
+"""Shared fixtures: small synthetic fringe photos on disk, good and bad, made once per session.
+
+The photos are about 0.3 MP so the whole suite stays quick on a shared two-core machine;
+they come from ``analysis/synthetic.py``, the same generator the accuracy table uses.
+"""
+
+from __future__ import annotations
+
+import struct
+import zlib
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pytest
+from flatsight.analysis.synthetic import (
+    SyntheticPhoto,
+    SyntheticSurface,
+    make_fringe_photo,
+    write_photo,
+)
+
+SMALL = (480, 640)  # rows, columns: 0.31 MP
+
+
+def pytest_configure(config):
+    # registered here so that warnings-as-errors does not trip over an unknown mark
+    config.addinivalue_line(
+        "markers", "slow: runs the whole measurement several times (still part of the default run)"
+    )
+
+
+def clean_photo(surface: SyntheticSurface, **changes) -> SyntheticPhoto:
+    """A photo without the camera's faults: no noise, dust, uneven light or tone curve.
+
+    For checks against a textbook method that knows nothing about those faults.
+    """
+    kw = dict(shape=SMALL, fringes=20.0, angle_deg=30.0, visibility=0.7, level=0.5,
+              illumination=0.0, gamma=1.0, noise=0.0, dust=0, bad_pixels=0,
+              mount_ring=False, seed=0)
+    kw.update(changes)
+    return make_fringe_photo(surface, **kw)
+
+
+def png_with_header_only(path: Path, width: int, height: int) -> None:
+    """A PNG whose header claims ``width`` x ``height`` pixels with almost no data behind it.
+
+    Chunk layout from the PNG specification (ISO/IEC 15948, from memory): signature,
+    IHDR (13 bytes), IDAT, IEND, each chunk with a CRC-32 of its type and data.
+    """
+
+    def chunk(kind: bytes, data: bytes) -> bytes:
+        return (struct.pack(">I", len(data)) + kind + data
+                + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF))
+
+    ihdr = struct.pack(">IIBBBBB", width, height, 8, 0, 0, 0, 0)  # 8-bit grey
+    path.write_bytes(b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr)
+                     + chunk(b"IDAT", zlib.compress(b"\x00" * 16)) + chunk(b"IEND", b""))
+
+
+@pytest.fixture(scope="session")
+def make_clean_photo():
+    """:func:`clean_photo`, for test modules (the tests folder is not a package)."""
+    return clean_photo
+
+
+@dataclass(frozen=True)
+class PhotoSet:
+    """Paths of the session's photos, and the synthetic photos behind the good ones."""
+
+    folder: Path
+    good_png: Path
+    good_tif16: Path
+    good_jpg: Path
+    good: SyntheticPhoto
+    good16: SyntheticPhoto
+    bad: dict[str, Path]
+    empty_folder: Path
+
+
+@pytest.fixture(scope="session")
+def photo_set(tmp_path_factory) -> PhotoSet:
+    root = tmp_path_factory.mktemp("photos")
+    good_dir = root / "good"
+    bad_dir = root / "bad"
+    empty = root / "empty-folder"
+    for d in (good_dir, bad_dir, empty):
+        d.mkdir()
+    (empty / "notes.txt").write_text("not a photo\n")
+
+    # Part serials of the demo scenario (Brindlewick Optical Works).
+    good = make_fringe_photo(SyntheticSurface({4: 40.0, 6: -12.0, 8: 6.0}, ripple_nm=0.6),
+                             shape=SMALL, fringes=18.0, angle_deg=30.0, dust=0, seed=3)
+    good16 = make_fringe_photo(SyntheticSurface({4: -25.0, 5: 10.0, 11: 5.0}), shape=SMALL,
+                               fringes=22.0, angle_deg=110.0, bit_depth=16, dust=0, seed=4)
+    good_png = good_dir / "BW-FL-0412_hene.png"
+    good_tif = good_dir / "BW-FL-0413_hene.tif"
+    good_jpg = root / "BW-FL-0414_hene.jpg"
+    write_photo(good, good_png)
+    write_photo(good16, good_tif)
+    write_photo(good, good_jpg)
+
+    bad: dict[str, Path] = {}
+
+    def put(name: str) -> Path:
+        bad[name] = bad_dir / name
+        return bad[name]
+
+    put("empty.png").write_bytes(b"")
+    put("text.png").write_text("Brindlewick Optical Works: bench-2 notes\n")
+    data = good_png.read_bytes()
+    put("truncated.png").write_bytes(data[: len(data) // 2])
+    png_with_header_only(put("bomb.png"), 30000, 30000)  # 900 MP, twice past Pillow's limit
+    write_photo(np.full((1, 1), 0.5), put("one-pixel.png"))
+    write_photo(np.full(SMALL, 0.5), put("blank-grey.png"))
+    rng = np.random.default_rng(7)
+    write_photo(rng.uniform(0.0, 1.0, SMALL), put("noise.png"))
+    # closed circular fringes: a strong power term and (almost) no tilt
+    rings = make_fringe_photo(SyntheticSurface({4: 900.0}), shape=SMALL, fringes=0.01,
+                              angle_deg=0.0, dust=0, seed=5)
+    write_photo(rings, put("rings.png"))
+    yy, xx = np.mgrid[0 : SMALL[0], 0 : SMALL[1]]
+    disk = np.hypot(xx - SMALL[1] / 2, yy - SMALL[0] / 2) < 0.4 * SMALL[0]
+    write_photo(np.where(disk, 1.0, 0.02), put("white-disk.png"))
+    return PhotoSet(folder=root, good_png=good_png, good_tif16=good_tif, good_jpg=good_jpg,
+                    good=good, good16=good16, bad=bad, empty_folder=empty)

@@ -1,0 +1,133 @@
+"""Small synthetic photos and a quick stand-in measurement for driving the station in tests.
+
+The stand-in measure skips the Fourier analysis (that has its own tests) but builds its
+result with the library's own ``measurement_from_height`` from a known Zernike surface,
+so figures, term removal and saving run the real code.
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+import numpy as np
+from flatsight.analysis.aperture import Aperture
+from flatsight.analysis.demodulation import MapGeometry, Spectrum
+from flatsight.analysis.errors import (
+    MeasurementCancelled,
+    UnanalysablePhotoError,
+    UnreadablePhotoError,
+)
+from flatsight.analysis.pipeline import measurement_from_height, with_terms_removed
+from flatsight.analysis.record import measurement_to_record, save_height_map
+from flatsight.analysis.zernike import zernike_basis
+from flatsight.tui.station_backend import StationBackend
+
+PHOTO_SHAPE = (120, 160)  # rows, columns: small, so tests stay quick
+FOUND_APERTURE = Aperture(80.0, 60.0, 48.0)
+# Brindlewick Optical Works demo part: 40 nm RMS of power, some astigmatism and coma
+SURFACE_NM = {4: 40.0, 5: 12.0, 6: -6.0, 7: 5.0, 11: 3.0}
+MAP_STEP_PX = 2.0
+
+
+def fringe_image(shape=PHOTO_SHAPE, *, fringes: float = 14.0, seed: int = 0) -> np.ndarray:
+    """A deterministic grey fringe pattern with a bright disk (values 0..1)."""
+    rng = np.random.default_rng(seed)
+    y, x = np.mgrid[0 : shape[0], 0 : shape[1]].astype(float)
+    a = FOUND_APERTURE
+    r = np.hypot(x - a.center_x_px, y - a.center_y_px) / a.radius_px
+    phase = 2 * np.pi * fringes * (y - a.center_y_px) / (2 * a.radius_px) + 3.0 * r**2
+    disk = np.clip((1.0 - r) * 8.0, 0.0, 1.0)
+    img = 0.1 + disk * (0.45 + 0.35 * np.cos(phase)) + 0.01 * rng.standard_normal(shape)
+    return np.clip(img, 0.0, 1.0)
+
+
+def write_photos(folder: Path, names: list[str]) -> list[Path]:
+    """Stand-in photo files (their bytes are never decoded: the fake loader keys on names)."""
+    paths = []
+    for name in names:
+        p = folder / name
+        p.write_bytes(b"stand-in photo for the station tests\n")
+        paths.append(p)
+    return paths
+
+
+class FakeLibrary:
+    """Counts calls and can be told to block, so tests see cancellation and progress."""
+
+    def __init__(self) -> None:
+        self.measured: list[tuple[str, object]] = []
+        self.gate: threading.Event | None = None
+
+    def load_pixels(self, path: Path) -> np.ndarray:
+        if "bad" in path.name:
+            raise UnreadablePhotoError(
+                f"{path}: not a PNG, JPEG or TIFF photo; check the file or export it again"
+            )
+        return fringe_image(seed=len(path.name))
+
+    def measure(self, path, settings, *, progress=None, cancel=None):
+        self.measured.append((Path(path).name, settings))
+        for k, stage in enumerate(("aperture", "demodulation", "unwrapping", "fit")):
+            if progress:
+                progress(stage, k / 4)
+            if self.gate is not None:
+                self.gate.wait(5.0)
+            if cancel is not None and cancel.is_set():
+                raise MeasurementCancelled(f"{path}: cancelled")
+        if "nofringes" in Path(path).name:
+            raise UnanalysablePhotoError(
+                f"{path}: no straight fringes found; add tilt until 10 to 30 fringes cross the flat"
+            )
+        aperture = settings.aperture or FOUND_APERTURE
+        aperture = aperture.with_exclusions(tuple(aperture.exclusions) + tuple(settings.exclusions))
+        n = int(2 * aperture.radius_px / MAP_STEP_PX) + 3
+        geometry = MapGeometry(
+            aperture.center_x_px - MAP_STEP_PX * (n - 1) / 2,
+            aperture.center_y_px - MAP_STEP_PX * (n - 1) / 2,
+            MAP_STEP_PX,
+            (n, n),
+        )
+        xu, yu = geometry.unit_xy(aperture)
+        inside = np.hypot(xu, yu) <= 1.0
+        basis = zernike_basis(max(SURFACE_NM), xu[inside], yu[inside])
+        h = np.full((n, n), np.nan)
+        h[inside] = sum(c * basis[:, j - 1] for j, c in SURFACE_NM.items())
+        px, py = geometry.photo_xy()
+        valid = inside & aperture.inside(px, py)
+        yy, xx = np.mgrid[-16:17, -16:17]
+        spectrum = Spectrum(
+            np.log1p(
+                100 * np.exp(-(xx**2 + (yy - 9) ** 2) / 4.0) + 300 * np.exp(-(xx**2 + yy**2) / 3.0)
+            ),
+            (25.0, 16.0),
+            5.0,
+            3.0,
+        )
+        return measurement_from_height(
+            h,
+            valid,
+            inside,
+            aperture=aperture,
+            geometry=geometry,
+            settings=settings,
+            photo=str(path),
+            spectrum=spectrum,
+            quality_fields={
+                "carrier_fringes": 14.0,
+                "fringe_period_px": 6.9,
+                "carrier_angle_deg": 90.0,
+                "resolution_cycles_per_aperture": 5.0,
+            },
+        )
+
+
+def fake_backend(lib: FakeLibrary | None = None) -> tuple[StationBackend, FakeLibrary]:
+    lib = lib or FakeLibrary()
+    return StationBackend(
+        measure=lib.measure,
+        load_pixels=lib.load_pixels,
+        remove_terms=with_terms_removed,
+        to_record=measurement_to_record,
+        save_height_map=save_height_map,
+    ), lib

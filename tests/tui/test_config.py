@@ -1,0 +1,114 @@
+"""Tests of the station's remembered settings (tui/config.py) and height units."""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import replace
+
+import pytest
+from flatsight.analysis.errors import SettingsError
+from flatsight.tui.config import (
+    StationSettings,
+    load_settings,
+    save_settings,
+    settings_from_toml,
+    settings_to_toml,
+    validate,
+)
+from flatsight.tui.render.units import convert, fmt_height, next_units
+
+
+def test_missing_file_gives_defaults(tmp_path):
+    settings, notice = load_settings(tmp_path / "nothing.toml")
+    assert settings == StationSettings() and notice is None
+    assert settings.wavelength_nm == 632.8  # He-Ne (common practice)
+
+
+def test_round_trip_through_the_file(tmp_path):
+    path = tmp_path / "sub" / "station.toml"
+    s = StationSettings(
+        wavelength_nm=589.3,
+        invert=True,
+        diameter_mm=150.0,
+        n_terms=28,
+        units="fringes",
+        removed_terms=(4, 5, 6),
+        colour="mono",
+    )
+    assert save_settings(s, path) == path
+    loaded, notice = load_settings(path)
+    assert loaded == s and notice is None
+    # a plain TOML reader sees the same values (tomllib, Python's standard library)
+    table = tomllib.loads(path.read_text(encoding="utf-8"))["station"]
+    assert table["wavelength_nm"] == 589.3 and table["removed_terms"] == [4, 5, 6]
+
+
+def test_unset_diameter_is_left_out_and_read_back_as_none(tmp_path):
+    text = settings_to_toml(StationSettings(diameter_mm=None))
+    assert "diameter_mm" not in text
+    assert settings_from_toml(text).diameter_mm is None
+
+
+def test_write_is_atomic_and_leaves_no_temporary_files(tmp_path):
+    path = tmp_path / "station.toml"
+    path.write_text("[station]\nwavelength_nm = 546.07\n", encoding="utf-8")
+    save_settings(StationSettings(wavelength_nm=587.56), path)
+    assert [p.name for p in tmp_path.iterdir()] == ["station.toml"]
+    assert load_settings(path)[0].wavelength_nm == 587.56
+
+
+def test_a_bad_value_is_not_written(tmp_path):
+    path = tmp_path / "station.toml"
+    save_settings(StationSettings(), path)
+    before = path.read_bytes()
+    with pytest.raises(SettingsError, match="wavelength"):
+        save_settings(StationSettings(wavelength_nm=-5.0), path)
+    assert path.read_bytes() == before
+
+
+def test_broken_or_out_of_range_file_falls_back_with_a_note(tmp_path):
+    path = tmp_path / "station.toml"
+    path.write_text("[station\nwavelength_nm = ", encoding="utf-8")
+    settings, notice = load_settings(path)
+    assert settings == StationSettings()
+    assert str(path) in notice and "TOML" in notice and "defaults" in notice
+    path.write_text("[station]\nn_terms = 3\n", encoding="utf-8")
+    settings, notice = load_settings(path)
+    assert settings == StationSettings() and "Zernike terms" in notice
+    path.write_text('[station]\ninvert = "yes"\n', encoding="utf-8")
+    assert "invert" in load_settings(path)[1]
+
+
+def test_unknown_keys_are_ignored():
+    s = settings_from_toml("[station]\nwavelength_nm = 546.07\nshoe_size = 44\n")
+    assert s.wavelength_nm == 546.07
+
+
+@pytest.mark.parametrize(
+    "change, words",
+    [
+        ({"wavelength_nm": 0.0}, "wavelength"),
+        ({"wavelength_nm": float("nan")}, "wavelength"),
+        ({"diameter_mm": -10.0}, "diameter"),
+        ({"n_terms": 200}, "Zernike terms"),
+        ({"units": "furlongs"}, "units"),
+        ({"colour": "sepia"}, "colour"),
+        ({"removed_terms": (2,)}, "removed terms"),
+    ],
+)
+def test_validation_names_what_to_change(change, words):
+    with pytest.raises(SettingsError, match=words):
+        validate(replace(StationSettings(), **change))
+
+
+def test_heights_in_waves_and_fringes():
+    # one fringe is half a wavelength of height; at He-Ne one fringe = 316.40 nm and
+    # lambda/10 = 63.28 nm (references.md, facts of the trade, common practice)
+    assert convert(316.4, "fringes", 632.8) == pytest.approx(1.0)
+    assert convert(63.28, "waves", 632.8) == pytest.approx(0.1)
+    assert convert(273.035, "fringes", 546.07) == pytest.approx(1.0)
+    assert fmt_height(63.28, "waves", 632.8) == "0.100 λ"
+    assert fmt_height(316.4, "fringes", 632.8) == "1.00 fr"
+    assert fmt_height(-12.34, "nm", 632.8, signed=True) == "-12.3 nm"
+    assert fmt_height(float("nan"), "nm", 632.8) == "—"
+    assert [next_units(u) for u in ("nm", "waves", "fringes")] == ["waves", "fringes", "nm"]

@@ -1,0 +1,77 @@
+"""Snapshot tests of the station's main views at 80x24 and 120x40 (pytest-textual-snapshot).
+
+The photos and the stand-in analysis are deterministic, so the screens are too. After a
+deliberate change of the look, review the new screens and accept them with
+``pytest tests/tui/test_snapshots.py --snapshot-update``.
+"""
+
+from __future__ import annotations
+
+import pytest
+from flatsight.tui.app import FlatsightStation
+from flatsight.tui.config import StationSettings
+from station_fakes import fake_backend, write_photos
+from textual.widgets import Input
+
+PARTS = ["BW-FL-0412.png", "BW-FL-0413.png", "bad-photo.png"]
+
+
+def _app(tmp_path) -> FlatsightStation:
+    photos = write_photos(tmp_path, PARTS)
+    backend, _ = fake_backend()
+    # a fixed colour depth, so the terminal running the tests does not matter
+    settings = StationSettings(colour="truecolor", diameter_mm=100.0)
+    return FlatsightStation(photos, settings=settings, backend=backend, config_path=None)
+
+
+def _keys_then_settle(*keys: str):
+    async def run_before(pilot) -> None:
+        await pilot.pause()
+        await pilot.app.workers.wait_for_complete()
+        await pilot.pause()
+        for key in keys:
+            await pilot.press(key)
+            await pilot.app.workers.wait_for_complete()
+            await pilot.pause()
+        for inp in pilot.app.screen.query(Input):
+            inp.cursor_blink = False
+        await pilot.pause()
+
+    return run_before
+
+
+VIEWS = {"fringes": ("1",), "surface": ("3",), "figures": ("5",)}
+LARGE_ONLY = {"spectrum": ("2",), "profiles": ("4",), "surface_no_power": ("3", "p")}
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)], ids=["80x24", "120x40"])
+@pytest.mark.parametrize("view", sorted(VIEWS))
+def test_main_views(snap_compare, tmp_path, view, size):
+    assert snap_compare(
+        _app(tmp_path), terminal_size=size, run_before=_keys_then_settle(*VIEWS[view])
+    )
+
+
+@pytest.mark.parametrize("view", sorted(LARGE_ONLY))
+def test_more_views_at_120x40(snap_compare, tmp_path, view):
+    assert snap_compare(
+        _app(tmp_path), terminal_size=(120, 40), run_before=_keys_then_settle(*LARGE_ONLY[view])
+    )
+
+
+def test_error_in_the_queue(snap_compare, tmp_path):
+    assert snap_compare(
+        _app(tmp_path),
+        terminal_size=(80, 24),
+        run_before=_keys_then_settle("right_square_bracket", "right_square_bracket"),
+    )
+
+
+def test_settings_screen(snap_compare, tmp_path):
+    assert snap_compare(_app(tmp_path), terminal_size=(80, 24), run_before=_keys_then_settle("w"))
+
+
+def test_help_screen(snap_compare, tmp_path):
+    assert snap_compare(
+        _app(tmp_path), terminal_size=(80, 24), run_before=_keys_then_settle("question_mark")
+    )

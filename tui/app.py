@@ -1,0 +1,118 @@
+"""The Flatsight station app: wires the bench screen, its styles, settings and palette together."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from functools import partial
+from pathlib import Path
+
+from textual.app import App, SystemCommand
+from textual.binding import Binding
+from textual.screen import Screen
+
+from .config import StationSettings
+from .screens.bench import BenchScreen
+from .station_backend import StationBackend, default_backend
+from .station_state import QueueEntry
+
+__all__ = ["FlatsightStation"]
+
+
+class FlatsightStation(App):
+    """The inspection station.
+
+    Parameters
+    ----------
+    photos : sequence of paths
+        The queue; the first is measured at once.
+    settings : StationSettings
+        Wavelength, sign, diameter, terms, units (the remembered ones, usually).
+    backend : StationBackend, optional
+        The analysis functions; the real library by default. Tests hand in their own.
+    config_path : path, optional
+        Where changed settings are remembered; None remembers nothing.
+    out_dir : path, optional
+        Where results are saved; by default beside each photo.
+    start_folder : path, optional
+        Where the photo picker opens (default: the first photo's folder, or the cwd).
+    notice : str, optional
+        A note to show at start (for example, that the settings file was unusable).
+    """
+
+    TITLE = "Flatsight"
+    CSS_PATH = ["station.tcss", "screens/screens.tcss"]
+    BINDINGS = [Binding("ctrl+q", "quit", "Quit", priority=True)]
+
+    def __init__(
+        self,
+        photos: Sequence[str | Path] = (),
+        *,
+        settings: StationSettings,
+        backend: StationBackend | None = None,
+        config_path: Path | None = None,
+        out_dir: Path | None = None,
+        start_folder: Path | None = None,
+        notice: str | None = None,
+        presets_file: Path | None = None,
+    ) -> None:
+        super().__init__()
+        self.presets_file = presets_file
+        self.entries = [self.make_entry(Path(p)) for p in photos]
+        self.station_settings = settings
+        self.backend = backend if backend is not None else default_backend()
+        self.config_path = config_path
+        self.out_dir = out_dir
+        self.start_folder = start_folder or (
+            self.entries[0].path.parent if self.entries else Path.cwd()
+        )
+        self.notice = notice
+
+    def make_entry(self, path: Path) -> QueueEntry:
+        """A queue entry, with the settings the presets file gives its name (if any)."""
+        entry = QueueEntry(path)
+        if self.presets_file is not None:
+            from ..analysis.errors import SettingsError
+            from ..analysis.presets import preset_for_photo
+
+            try:
+                preset = preset_for_photo(path, path=self.presets_file)
+            except SettingsError:
+                preset = None  # the file was checked at start; a later edit is ignored
+            if preset is not None:
+                entry.preset = {"wavelength_nm": preset.wavelength_nm,
+                                "diameter_mm": preset.diameter_mm,
+                                "n_terms": preset.zernike_terms}
+        return entry
+
+    def on_mount(self) -> None:
+        self.push_screen(self.make_bench())
+        if self.notice:
+            self.notify(self.notice, severity="warning", timeout=8)
+
+    def make_bench(self) -> BenchScreen:
+        return BenchScreen(
+            self.entries,
+            self.station_settings,
+            self.backend,
+            config_path=self.config_path,
+            out_dir=self.out_dir,
+            start_folder=self.start_folder,
+        )
+
+    @property
+    def bench(self) -> BenchScreen:
+        return next(s for s in self.screen_stack if isinstance(s, BenchScreen))
+
+    def get_system_commands(self, screen: Screen) -> Iterable[SystemCommand]:
+        yield from super().get_system_commands(screen)
+        if not isinstance(screen, BenchScreen):
+            return
+        seen = set()
+        for scope, key, description, action in screen.key_rows():
+            if action in seen:
+                continue
+            seen.add(action)
+            where = "" if scope == "anywhere" else f" ({scope})"
+            yield SystemCommand(
+                f"{description}{where}", f"key: {key}", partial(screen.run_action, action)
+            )

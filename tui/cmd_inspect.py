@@ -1,0 +1,191 @@
+"""`flatsight inspect`: open the inspection station on photos or folders of photos."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from dataclasses import replace
+from pathlib import Path
+
+from .options import EXIT_CODES, wavelength_type
+
+HELP = "open the inspection station (a keyboard-driven terminal app)"
+DESCRIPTION = """\
+Open the inspection station: a queue of fringe photos on the left, and for the
+photo in hand its fringes with the aperture drawn over them, the spectrum, the
+surface map, two profiles and the figures. The first photo is measured at once.
+
+Keys: 1-5 switch views, [ and ] move through the queue, o opens photos, s saves
+the result (JSON record, height map, text summary beside the photo), w opens the
+settings, u switches nm / waves / fringes, ? lists every key, ctrl+q quits.
+
+Settings changed in the station (wavelength, sign, diameter, terms, units) are
+remembered in station.toml in your user config folder; options given here win
+for this run and are remembered too.
+
+Sign: Flatsight takes the air wedge to be wider toward the top of the photo, so
+the fringes travel up when the gap is gently closed (push test); if yours travel
+down, use --invert (or tick Invert in the settings)."""
+
+EXAMPLES = """\
+examples:
+  flatsight inspect sample_images/ --presets sample_images/presets.toml
+  flatsight inspect BW-FL-0412.png BW-FL-0413.png --wavelength hene --diameter 100
+  flatsight inspect shots/ --wavelength mercury-e --out results/
+"""
+
+
+def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    """Add the ``inspect`` subcommand to ``sub``."""
+    p = sub.add_parser(
+        "inspect",
+        help=HELP,
+        description=DESCRIPTION,
+        epilog=EXAMPLES + "\n" + EXIT_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument(
+        "photos",
+        nargs="*",
+        metavar="PHOTO",
+        help="photo files (PNG, JPEG, TIFF) or folders of photos; none opens an "
+        "empty queue (press o to pick photos)",
+    )
+    p.add_argument(
+        "-w",
+        "--wavelength",
+        type=wavelength_type,
+        default=None,
+        metavar="NM",
+        help="test wavelength in nm, or hene, sodium, helium-d, mercury-e "
+        "(default: the remembered one, else 632.8)",
+    )
+    p.add_argument(
+        "--diameter",
+        type=float,
+        metavar="MM",
+        default=None,
+        help="physical clear-aperture diameter, for the radius of curvature",
+    )
+    p.add_argument(
+        "--invert",
+        action="store_true",
+        default=None,
+        help="flip the sign of the surface (see 'Sign' above)",
+    )
+    p.add_argument(
+        "--terms",
+        type=int,
+        metavar="N",
+        default=None,
+        help="Zernike terms to fit (Noll, 15 to 66; default 36)",
+    )
+    p.add_argument(
+        "--out",
+        metavar="FOLDER",
+        default=None,
+        help="save results in FOLDER (default: beside each photo)",
+    )
+    p.add_argument(
+        "--colour",
+        choices=("auto", "truecolor", "256", "mono"),
+        default=None,
+        help="how maps are drawn (default auto: 24-bit if the terminal says so, "
+        "256 colours otherwise, characters with NO_COLOR)",
+    )
+    p.add_argument(
+        "--presets",
+        metavar="FILE",
+        default=None,
+        help="presets file (TOML) whose [photos] table gives each photo its bench's "
+        "wavelength, diameter and terms by file name (see flatsight measure --help)",
+    )
+    p.add_argument(
+        "--config",
+        metavar="FILE",
+        default=None,
+        help="settings file (default: station.toml in the user config folder)",
+    )
+    p.set_defaults(run=run)
+    return p
+
+
+def expand(items: list[str]) -> tuple[list[Path], list[str]]:
+    """Photo paths from files and folders, and one-line problems for names that hold none."""
+    from .screens.open_screen import photos_in
+
+    paths: list[Path] = []
+    problems: list[str] = []
+    for item in items:
+        p = Path(item)
+        if p.is_dir():
+            found = photos_in(p)
+            if not found:
+                problems.append(f"{item}: folder holds no PNG, JPEG or TIFF photos")
+            paths.extend(found)
+        elif p.exists():
+            paths.append(p)  # a bad photo shows as an error in the queue, not here
+        else:
+            problems.append(f"{item}: no such file or folder")
+    return paths, problems
+
+
+def settings_from_args(args: argparse.Namespace, remembered):
+    """The remembered settings with this run's options laid over them (validated)."""
+    from .config import validate
+
+    changes = {}
+    if args.wavelength is not None:
+        changes["wavelength_nm"] = float(args.wavelength)
+    if args.diameter is not None:
+        changes["diameter_mm"] = float(args.diameter)
+    if args.invert:
+        changes["invert"] = True
+    if args.terms is not None:
+        changes["n_terms"] = int(args.terms)
+    if args.colour is not None:
+        changes["colour"] = args.colour
+    return validate(replace(remembered, **changes))
+
+
+def run(args: argparse.Namespace) -> int:
+    """Start the station; returns 0 on a normal quit, 2 for bad options or no photos."""
+    from ..analysis.errors import SettingsError
+    from .config import default_config_path, load_settings
+
+    photos, problems = expand(args.photos)
+    for problem in problems:
+        print(f"flatsight inspect: {problem}", file=sys.stderr)
+    if args.photos and not photos:
+        return 2
+    config_path = Path(args.config) if args.config else default_config_path()
+    remembered, notice = load_settings(config_path)
+    try:
+        settings = settings_from_args(args, remembered)
+    except SettingsError as exc:
+        print(f"flatsight inspect: error: {exc}", file=sys.stderr)
+        return 2
+    presets_file = Path(args.presets) if args.presets else None
+    if presets_file is not None:
+        from ..analysis.presets import load_presets
+
+        try:
+            load_presets(presets_file)
+        except SettingsError as exc:
+            print(f"flatsight inspect: error: {exc}", file=sys.stderr)
+            return 2
+    out_dir = Path(args.out) if args.out else None
+    if out_dir is not None and out_dir.exists() and not out_dir.is_dir():
+        print(
+            f"flatsight inspect: error: --out {out_dir} is a file; give a folder", file=sys.stderr
+        )
+        return 2
+
+    from .app import FlatsightStation  # Textual only now, so `flatsight --help` stays quick
+
+    app = FlatsightStation(
+        photos, settings=settings, config_path=config_path, out_dir=out_dir, notice=notice,
+        presets_file=presets_file,
+    )
+    app.run()
+    return int(app.return_code or 0)

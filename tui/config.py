@@ -1,0 +1,162 @@
+"""The station's settings, remembered between runs in a small TOML file in the config folder."""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, fields, replace
+from pathlib import Path
+
+from ..analysis.atomic import atomic_write_text
+from ..analysis.errors import SettingsError
+
+__all__ = [
+    "StationSettings",
+    "default_config_path",
+    "load_settings",
+    "save_settings",
+    "validate",
+]
+
+UNITS = ("nm", "waves", "fringes")
+COLOUR_MODES = ("auto", "truecolor", "256", "mono")
+MIN_TERMS, MAX_TERMS = 15, 66  # 15 reaches secondary astigmatism; 66 is Noll order 10
+MIN_WAVELENGTH_NM, MAX_WAVELENGTH_NM = 300.0, 1700.0  # UV lamps to telecom lasers
+
+
+@dataclass(frozen=True)
+class StationSettings:
+    """What the operator set in the station.
+
+    Attributes
+    ----------
+    wavelength_nm : float
+        Test wavelength (He-Ne 632.8 by default).
+    invert : bool
+        Flip the surface's sign (see the push test in the settings screen).
+    diameter_mm : float or None
+        Clear-aperture diameter for radius of curvature and mm axes.
+    n_terms : int
+        Noll Zernike terms fitted.
+    units : {"nm", "waves", "fringes"}
+        How heights are shown.
+    removed_terms : tuple of int
+        Noll terms taken out of the map beyond piston and tilt (4 = power ...).
+    colour : {"auto", "truecolor", "256", "mono"}
+        How the maps are drawn; "auto" reads the terminal's environment.
+    """
+
+    wavelength_nm: float = 632.8
+    invert: bool = False
+    diameter_mm: float | None = None
+    n_terms: int = 36
+    units: str = "nm"
+    removed_terms: tuple[int, ...] = ()
+    colour: str = "auto"
+
+
+def validate(s: StationSettings) -> StationSettings:
+    """Return ``s`` if every value is in range, else raise :class:`SettingsError`."""
+    if not (
+        math.isfinite(s.wavelength_nm) and MIN_WAVELENGTH_NM <= s.wavelength_nm <= MAX_WAVELENGTH_NM
+    ):
+        raise SettingsError(
+            f"wavelength {s.wavelength_nm:g} nm is out of range; give one between "
+            f"{MIN_WAVELENGTH_NM:g} and {MAX_WAVELENGTH_NM:g} nm (He-Ne is 632.8)"
+        )
+    if s.diameter_mm is not None and not (math.isfinite(s.diameter_mm) and s.diameter_mm > 0):
+        raise SettingsError(f"diameter {s.diameter_mm:g} mm must be positive, or left empty")
+    if not MIN_TERMS <= s.n_terms <= MAX_TERMS:
+        raise SettingsError(
+            f"{s.n_terms} Zernike terms is out of range; use {MIN_TERMS} to "
+            f"{MAX_TERMS} (36 is usual)"
+        )
+    if s.units not in UNITS:
+        raise SettingsError(f"unknown units {s.units!r}; use one of {', '.join(UNITS)}")
+    if s.colour not in COLOUR_MODES:
+        raise SettingsError(f"unknown colour {s.colour!r}; use one of {', '.join(COLOUR_MODES)}")
+    if any(not 4 <= j <= MAX_TERMS for j in s.removed_terms):
+        raise SettingsError("removed terms must be Noll indices from 4 up")
+    return s
+
+
+def default_config_path() -> Path:
+    """``station.toml`` in the platform's user config folder for flatsight."""
+    from platformdirs import user_config_dir
+
+    return Path(user_config_dir("flatsight")) / "station.toml"
+
+
+def _toml_value(v) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, int | float):
+        return repr(v)
+    if isinstance(v, tuple):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    s = str(v).replace("\\", "\\\\").replace('"', '\\"')
+    return f'"{s}"'
+
+
+def settings_to_toml(s: StationSettings) -> str:
+    """The settings as TOML text (``diameter_mm`` left out when unset: TOML has no null)."""
+    lines = ["# Flatsight station settings; written by `flatsight inspect`.", "[station]"]
+    for f in fields(s):
+        value = getattr(s, f.name)
+        if value is None:
+            continue
+        lines.append(f"{f.name} = {_toml_value(value)}")
+    return "\n".join(lines) + "\n"
+
+
+def settings_from_toml(text: str) -> StationSettings:
+    """Parse settings written by :func:`settings_to_toml`; unknown keys are ignored.
+
+    Raises :class:`SettingsError` for malformed TOML or values out of range.
+    """
+    try:
+        table = tomllib.loads(text).get("station", {})
+    except tomllib.TOMLDecodeError as exc:
+        raise SettingsError(f"settings file is not valid TOML ({exc})") from None
+    known = {f.name for f in fields(StationSettings)}
+    values = {k: v for k, v in table.items() if k in known}
+    try:
+        if "removed_terms" in values:
+            values["removed_terms"] = tuple(int(j) for j in values["removed_terms"])
+        for key in ("wavelength_nm", "diameter_mm"):
+            if key in values:
+                values[key] = float(values[key])
+        if "n_terms" in values:
+            values["n_terms"] = int(values["n_terms"])
+        if "invert" in values and not isinstance(values["invert"], bool):
+            raise TypeError("invert must be true or false")
+        return validate(replace(StationSettings(), **values))
+    except (TypeError, ValueError) as exc:
+        raise SettingsError(f"settings file has a bad value ({exc})") from None
+
+
+def load_settings(path: Path | None = None) -> tuple[StationSettings, str | None]:
+    """Read the settings; a missing file gives the defaults.
+
+    Returns the settings and, when the file was there but unusable, a one-line note
+    saying so (the defaults are used then; the station shows the note and carries on).
+    """
+    path = default_config_path() if path is None else Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        return StationSettings(), None
+    except OSError as exc:
+        return StationSettings(), f"{path}: cannot read settings ({exc.strerror}); using defaults"
+    try:
+        return settings_from_toml(text), None
+    except SettingsError as exc:
+        return StationSettings(), f"{path}: {exc}; using defaults"
+
+
+def save_settings(s: StationSettings, path: Path | None = None) -> Path:
+    """Write the settings atomically (temporary file in the same folder, then rename)."""
+    path = default_config_path() if path is None else Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    atomic_write_text(path, settings_to_toml(validate(s)))
+    return path

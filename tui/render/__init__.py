@@ -1,0 +1,1 @@
+"""Pure renderers for the station: arrays in, rich Text lines out (no Textual here)."""

@@ -1,0 +1,96 @@
+"""A measurement as a plain-text summary, for the operator's file and the station's save."""
+
+from __future__ import annotations
+
+from ...analysis.zernike import term_name
+from .units import fmt_height
+
+__all__ = ["figure_rows", "summary_text", "zernike_rows"]
+
+
+def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str, str]]:
+    """``(name, value)`` pairs of the headline figures in ``units``."""
+
+    def h(v):
+        return fmt_height(v, units, wavelength_nm)
+
+    power = h(figures.power_nm)
+    if units != "fringes":
+        power += f"  ({figures.power_fringes:+.2f} fr)"
+    rows = [
+        ("PV", h(figures.pv_nm)),
+        ("RMS", h(figures.rms_nm)),
+        ("PVr", h(figures.pvr_nm)),
+        ("power", power),
+    ]
+    if figures.radius_of_curvature_m is not None:
+        rows.append(("radius", f"{figures.radius_of_curvature_m:+.1f} m"))
+    rows += [
+        ("irregularity", h(figures.irregularity_nm)),
+        ("astigmatism", f"{h(figures.astigmatism_nm)} @ {figures.astigmatism_axis_deg:.0f}°"),
+        ("sym. irregularity", h(figures.symmetric_irregularity_nm)),
+        ("RMS irregularity", h(figures.rms_irregularity_nm)),
+        ("RMS asymmetric", h(figures.rms_asymmetric_nm)),
+    ]
+    return rows
+
+
+def zernike_rows(coefficients_nm, *, wavelength_nm: float) -> list[tuple[int, str, str, str]]:
+    """``(noll j, trade name, nm, waves)`` for every fitted term."""
+    return [
+        (j, term_name(j), f"{c:+.2f}", f"{c / wavelength_nm:+.4f}")
+        for j, c in enumerate(coefficients_nm, start=1)
+    ]
+
+
+def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str:
+    """The measurement ``m`` as readable text.
+
+    ``figures`` (with ``removed_terms``) adds the figures the operator was looking at
+    when more terms than piston and tilt were taken out.
+    """
+    wl = m.settings.wavelength_nm
+    a = m.aperture
+    out = [
+        "Flatsight measurement summary",
+        f"photo          {m.photo}",
+    ]
+    if m.photo_sha256:
+        out.append(f"sha256         {m.photo_sha256}")
+    out += [
+        f"wavelength     {wl:g} nm   (1 fringe = {wl / 2:g} nm)",
+        f"sign           {'inverted' if m.settings.invert else 'as photographed'}",
+        f"aperture       centre ({a.center_x_px:.1f}, {a.center_y_px:.1f}) px, "
+        f"radius {a.radius_px:.1f} px, {len(a.exclusions)} exclusion(s)",
+    ]
+    if m.settings.diameter_mm:
+        out.append(f"diameter       {m.settings.diameter_mm:g} mm")
+    out += ["", "Figures (piston and tilt removed)"]
+    for name, _ in figure_rows(m.figures, units="nm", wavelength_nm=wl):
+        nm = dict(figure_rows(m.figures, units="nm", wavelength_nm=wl))[name]
+        wv = dict(figure_rows(m.figures, units="waves", wavelength_nm=wl))[name]
+        out.append(f"  {name:<18} {nm:<26} {wv}")
+    if figures is not None and set(removed_terms) - {1, 2, 3}:
+        names = ", ".join(term_name(j) for j in sorted(set(removed_terms) - {1, 2, 3}))
+        out += ["", f"Figures with {names} also removed"]
+        for name, value in figure_rows(figures, units="nm", wavelength_nm=wl)[:3]:
+            out.append(f"  {name:<18} {value}")
+    q = m.quality
+    out += [
+        "",
+        "Fringes",
+        f"  tilt fringes     {q.carrier_fringes:.1f} across the aperture, "
+        f"period {q.fringe_period_px:.1f} px",
+        f"  visibility       {q.mean_modulation:.2f}",
+        f"  masked           {100 * q.masked_fraction:.1f} % of the aperture",
+    ]
+    if m.warnings:
+        out += ["", "Warnings"] + [f"  ! {w}" for w in m.warnings]
+    out += [
+        "",
+        "Zernike terms (Noll order, each coefficient is the term's RMS)",
+        "   j  term                           nm        waves",
+    ]
+    for j, name, nm, waves in zernike_rows(m.zernike.coefficients_nm, wavelength_nm=wl):
+        out.append(f"  {j:>2}  {name:<28} {nm:>9}  {waves:>9}")
+    return "\n".join(out) + "\n"

@@ -1,0 +1,1 @@
+"""The station's screens: the bench, help, settings and the photo picker."""

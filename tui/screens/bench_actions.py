@@ -1,0 +1,192 @@
+"""The bench's actions besides analysis: dialogs, saving, aperture editing, terms, profiles."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+from textual import work
+from textual.worker import Worker, WorkerState
+
+from ...analysis.aperture import Exclusion
+from ..config import StationSettings
+from ..station_backend import describe_error
+from ..widgets.surface_view import TERM_GROUPS
+
+__all__ = ["ViewActions"]
+
+COLOUR_CYCLE = ("truecolor", "256", "mono")
+
+
+class ViewActions:
+    """Actions the keys call; mixed into the bench screen, whose state they change.
+
+    The bench provides ``entry``, ``selected``, ``settings``, ``colour``, ``zoom``,
+    ``profile_angle``, ``redraw()``, ``start_analysis()``, ``_schedule_rerun()`` and
+    ``_update_settings()``.
+    """
+
+    def action_settings(self) -> None:
+        from .settings_screen import SettingsScreen
+
+        def done(new: StationSettings | None) -> None:
+            if new is None or new == self.settings:
+                return
+            measuring = (new.wavelength_nm, new.n_terms, new.invert, new.diameter_mm)
+            old = (
+                self.settings.wavelength_nm,
+                self.settings.n_terms,
+                self.settings.invert,
+                self.settings.diameter_mm,
+            )
+            self._update_settings(new)
+            if measuring != old:
+                for e in self.entries:
+                    if e.state != "error" or e.pixels is not None:
+                        e.forget_result()
+                if self.entry is not None:
+                    self.start_analysis(self.current)
+
+        self.app.push_screen(SettingsScreen(self.settings), done)
+
+    def action_open(self) -> None:
+        from .open_screen import OpenScreen
+
+        def done(paths) -> None:
+            if paths:
+                self.add_photos(paths)
+
+        self.app.push_screen(OpenScreen(self.start_folder), done)
+
+    def action_help(self) -> None:
+        from .help_screen import HelpScreen
+
+        self.app.push_screen(HelpScreen(self.key_rows()))
+
+    def action_save(self) -> None:
+        e = self.entry
+        if e is None or e.measurement is None:
+            self.notify("nothing to save yet: measure the photo first", severity="warning")
+            return
+        _, figures = self._reduced(e.measurement)
+        self._save(e.measurement, figures, self.removed_terms())
+
+    @work(thread=True, exit_on_error=False, group="save")
+    def _save(self, m, figures, removed):
+        from ..station_save import save_result
+
+        return save_result(
+            m, self.backend, folder=self.out_dir, figures=figures, removed_terms=removed
+        )
+
+    def _save_finished(self, worker: Worker) -> None:
+        if worker.state == WorkerState.SUCCESS:
+            paths = worker.result
+            self.say(f"Saved {', '.join(p.name for p in paths)} in {paths[0].parent}")
+            self.notify(f"saved {len(paths)} files in {paths[0].parent}", timeout=4)
+        elif worker.state == WorkerState.ERROR:
+            self.notify(f"not saved: {describe_error(worker.error)}", severity="error")
+
+    # aperture editing (fringe view)
+    def _edit(self, change) -> None:
+        e = self.entry
+        if e is None or e.base_aperture() is None:
+            return
+        ap = e.base_aperture()
+        if self.selected < 0:
+            e.aperture = change(ap)
+        else:
+            ex = list(e.exclusions)
+            ex[self.selected] = change(ex[self.selected])
+            e.exclusions = tuple(ex)
+            e.aperture = e.aperture or ap
+        self.redraw()
+        self._schedule_rerun()
+
+    def _step_px(self) -> float:
+        ap = self.entry.base_aperture() if self.entry else None
+        return max(1.0, 0.01 * ap.radius_px) if ap else 1.0
+
+    def action_nudge(self, dx: int, dy: int) -> None:
+        step = self._step_px()
+        self._edit(lambda c: _moved(c, dx * step, dy * step, 0.0))
+
+    def action_centre_at(self, x: float, y: float) -> None:
+        """Move the outline being edited so its centre is at photo point ``(x, y)``."""
+        self._edit(lambda c: _moved(c, x - c.center_x_px, y - c.center_y_px, 0.0))
+
+    def action_grow(self, sign: int) -> None:
+        step = self._step_px()
+        self._edit(lambda c: _moved(c, 0.0, 0.0, sign * step))
+
+    def action_auto_aperture(self) -> None:
+        e = self.entry
+        if e is not None:
+            e.aperture = None
+            self.selected = -1
+            self.start_analysis(self.current)
+
+    def action_add_exclusion(self) -> None:
+        e = self.entry
+        ap = e.base_aperture() if e else None
+        if ap is None:
+            return
+        e.exclusions = (
+            *e.exclusions,
+            Exclusion(ap.center_x_px, ap.center_y_px, 0.15 * ap.radius_px),
+        )
+        e.aperture = e.aperture or ap
+        self.selected = len(e.exclusions) - 1
+        self.redraw()
+        self._schedule_rerun()
+
+    def action_toggle_zoom(self) -> None:
+        self.zoom = not self.zoom
+        self.redraw()
+
+    def action_next_outline(self) -> None:
+        n = len(self.entry.exclusions) if self.entry else 0
+        self.selected = -1 if self.selected + 1 >= n else self.selected + 1
+        self.redraw()
+
+    def action_remove_exclusion(self) -> None:
+        e = self.entry
+        if e is None or self.selected < 0:
+            self.notify("select an exclusion first (e)", timeout=2)
+            return
+        ex = list(e.exclusions)
+        del ex[self.selected]
+        e.exclusions = tuple(ex)
+        self.selected = -1
+        self.redraw()
+        self._schedule_rerun()
+
+    # surface view
+    def action_toggle_terms(self, key: str) -> None:
+        terms = set(TERM_GROUPS[key][1])
+        removed = set(self.settings.removed_terms)
+        removed = removed - terms if terms <= removed else removed | terms
+        limit = self.settings.n_terms
+        self._update_settings(
+            replace(self.settings, removed_terms=tuple(sorted(j for j in removed if j <= limit)))
+        )
+
+    def action_restore_terms(self) -> None:
+        self._update_settings(replace(self.settings, removed_terms=()))
+
+    def action_cycle_colour(self) -> None:
+        self.colour = COLOUR_CYCLE[(COLOUR_CYCLE.index(self.colour) + 1) % len(COLOUR_CYCLE)]
+        self.notify(f"maps drawn in {self.colour}", timeout=2)
+        self.redraw()
+
+    def action_turn_profiles(self, degrees: float) -> None:
+        self.profile_angle = (self.profile_angle + degrees) % 180.0
+        self.redraw()
+
+
+def _moved(circle, dx: float, dy: float, dr: float):
+    """The aperture or exclusion ``circle`` shifted and grown (radius at least 2 px)."""
+    if isinstance(circle, Exclusion):
+        return Exclusion(
+            circle.center_x_px + dx, circle.center_y_px + dy, max(2.0, circle.radius_px + dr)
+        )
+    return circle.moved(dx, dy, dr)

@@ -1,0 +1,68 @@
+"""Saving a measurement from the station: the JSON record, the height map and a text summary."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+from ..analysis.atomic import atomic_write_text
+from .render.summary import summary_text
+
+__all__ = ["output_paths", "save_result"]
+
+
+def output_paths(photo: str | Path, folder: str | Path | None = None) -> dict[str, Path]:
+    """Where the three files of ``photo``'s result go: beside it, or in ``folder``."""
+    photo = Path(photo)
+    base = Path(folder) if folder is not None else photo.parent
+    stem = photo.stem
+    return {
+        "json": base / f"{stem}.flatsight.json",
+        "map": base / f"{stem}.height.npy",
+        "summary": base / f"{stem}.summary.txt",
+    }
+
+
+def _clean(value):
+    # JSON has no NaN or infinity: write null so every reader can load the file
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_clean(v) for v in value]
+    return value
+
+
+def save_result(
+    m,
+    backend,
+    *,
+    folder: str | Path | None = None,
+    figures=None,
+    removed_terms: tuple[int, ...] = (),
+) -> list[Path]:
+    """Write the result files for ``m``; every file is written atomically.
+
+    Returns the paths written. Raises ``OSError`` when the folder cannot be written, and
+    ``RuntimeError`` when the library cannot make the JSON record or the map file.
+    """
+    paths = output_paths(m.photo, folder)
+    paths["json"].parent.mkdir(parents=True, exist_ok=True)
+    written = []
+    if backend.to_record is None or backend.save_height_map is None:
+        raise RuntimeError(
+            "this build of flatsight cannot write records yet "
+            "(flatsight.analysis.record is missing)"
+        )
+    record = _clean(backend.to_record(m))
+    atomic_write_text(paths["json"], json.dumps(record, indent=2, allow_nan=False) + "\n")
+    written.append(paths["json"])
+    backend.save_height_map(m, paths["map"])
+    written.append(paths["map"])
+    atomic_write_text(
+        paths["summary"], summary_text(m, figures=figures, removed_terms=removed_terms)
+    )
+    written.append(paths["summary"])
+    return written

@@ -1,0 +1,87 @@
+"""The station's model of its photo queue: one entry per photo, with its state and result."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..analysis.aperture import Aperture, Exclusion
+
+__all__ = ["QueueEntry", "STATE_LABELS", "ViewContext"]
+
+# state -> (glyph, label, style) for the queue and the status line
+STATE_LABELS = {
+    "new": ("·", "not measured", "dim"),
+    "running": ("◌", "measuring", "bold #60e8ff"),
+    "ok": ("✓", "measured", "bold #7fd67f"),
+    "warning": ("!", "warning", "bold #ffc440"),
+    "error": ("✗", "error", "bold #ff6e8a"),
+}
+
+
+@dataclass
+class QueueEntry:
+    """One photo in the queue.
+
+    ``aperture`` is the operator's own aperture (None: the finder's); ``exclusions``
+    are the circles the operator left out, added to whichever aperture is used.
+    """
+
+    path: Path
+    state: str = "new"
+    measurement: Any = None
+    error: str | None = None
+    pixels: np.ndarray | None = None
+    aperture: Aperture | None = None
+    exclusions: tuple[Exclusion, ...] = field(default=())
+    # settings a presets file gives this photo by its name (wavelength_nm, diameter_mm,
+    # n_terms); they win over the station's own for this photo
+    preset: dict = field(default_factory=dict)
+
+    @property
+    def name(self) -> str:
+        return self.path.name
+
+    def base_aperture(self) -> Aperture | None:
+        """The aperture in force, without exclusions: the operator's, the found one, a guess."""
+        if self.aperture is not None:
+            return self.aperture.with_exclusions(())
+        if self.measurement is not None:
+            return self.measurement.aperture.with_exclusions(())
+        if self.pixels is not None:
+            h, w = self.pixels.shape
+            return Aperture((w - 1) / 2.0, (h - 1) / 2.0, 0.4 * min(h, w))
+        return None
+
+    def shown_aperture(self) -> Aperture | None:
+        """What the fringe view draws: the aperture in force with the operator's exclusions."""
+        base = self.base_aperture()
+        return None if base is None else base.with_exclusions(self.exclusions)
+
+    def forget_result(self) -> None:
+        """Drop the measurement (settings or aperture changed); the photo stays loaded."""
+        self.measurement = None
+        self.error = None
+        self.state = "new"
+
+
+@dataclass(frozen=True)
+class ViewContext:
+    """What every view needs besides the photo's entry: the operator's current choices.
+
+    ``map_nm`` and ``figures`` are the measurement's map and figures with
+    ``removed_terms`` taken out (None without a measurement).
+    """
+
+    units: str = "nm"
+    wavelength_nm: float = 632.8
+    removed_terms: tuple[int, ...] = ()
+    map_nm: np.ndarray | None = None
+    figures: Any = None
+    selected: int = -1
+    colour: str = "truecolor"
+    profile_angle_deg: float = 0.0
+    zoom: bool = True

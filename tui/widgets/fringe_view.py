@@ -1,0 +1,142 @@
+"""The fringe view: the photo with the aperture and exclusions drawn over it, and editable."""
+
+from __future__ import annotations
+
+import textwrap
+
+from rich.text import Text
+from textual.binding import Binding
+
+from ..render.photo import aperture_region, render_photo
+from .view_base import StationView, side_by_side
+
+__all__ = ["FringeView"]
+
+PANEL_WIDTH = 24
+
+
+class FringeView(StationView):
+    """The photo in half-block grey cells. Keys move and size the outline being edited."""
+
+    BINDINGS = [
+        Binding("left", "screen.nudge(-1, 0)", "Move ←", show=False),
+        Binding("right", "screen.nudge(1, 0)", "Move →", show=False),
+        Binding("up", "screen.nudge(0, -1)", "Move ↑", show=False),
+        Binding("down", "screen.nudge(0, 1)", "Move ↓", show=False),
+        Binding("shift+left", "screen.nudge(-5, 0)", "Move ← ×5", show=False),
+        Binding("shift+right", "screen.nudge(5, 0)", "Move → ×5", show=False),
+        Binding("shift+up", "screen.nudge(0, -5)", "Move ↑ ×5", show=False),
+        Binding("shift+down", "screen.nudge(0, 5)", "Move ↓ ×5", show=False),
+        Binding("plus,equals_sign", "screen.grow(1)", "Grow"),
+        Binding("minus", "screen.grow(-1)", "Shrink"),
+        Binding("a", "screen.auto_aperture", "Auto aperture"),
+        Binding("x", "screen.add_exclusion", "Exclude"),
+        Binding("e", "screen.next_outline", "Next outline"),
+        Binding("d,delete", "screen.remove_exclusion", "Drop exclusion"),
+        Binding("z", "screen.toggle_zoom", "Zoom"),
+    ]
+
+    def draw(self) -> Text:
+        e = self.entry
+        if e is None or e.pixels is None:
+            return self.placeholder() or Text("Loading photo…", style="dim")
+        w, h = self.size.width, self.size.height
+        wide = w >= 60
+        map_w = w - PANEL_WIDTH - 2 if wide else w
+        map_h = h if wide else max(1, h - 2)
+        aperture = e.shown_aperture()
+        region = (
+            aperture_region(aperture, e.pixels.shape)
+            if self.ctx.zoom and aperture is not None
+            else None
+        )
+        lines, self._grid = render_photo(
+            e.pixels,
+            width=map_w,
+            height=map_h,
+            aperture=aperture,
+            selected=self.ctx.selected,
+            mode=self.ctx.colour,
+            region=region,
+        )
+        panel = self._panel(aperture)
+        if wide:
+            return side_by_side(
+                lines, panel, left_width=max((len(x) for x in lines), default=0), height=h
+            )
+        out = Text("\n").join(lines)
+        for line in self._summary(aperture):
+            out.append("\n")
+            line.truncate(w)
+            out.append_text(line)
+        return out
+
+    async def on_click(self, event) -> None:
+        """A click on the photo moves the outline being edited to that point."""
+        grid = getattr(self, "_grid", None)
+        if grid is None or not (0 <= event.x < grid.cols and 0 <= 2 * event.y < grid.rows):
+            return
+        x = grid.origin_x_px + (event.x + 0.5) * grid.step_px - 0.5
+        y = grid.origin_y_px + (2 * event.y + 1.0) * grid.step_px - 0.5
+        await self.screen.run_action(f"centre_at({x:.1f}, {y:.1f})")
+
+    def _summary(self, aperture) -> list[Text]:
+        """Two lines under the photo when there is no room for the side panel."""
+        e = self.entry
+        if aperture is None:
+            return [Text(e.name, style="bold")]
+        editing = "aperture" if self.ctx.selected < 0 else f"exclusion {self.ctx.selected + 1}"
+        first = Text.assemble(
+            (e.name, "bold"),
+            ("  auto" if e.aperture is None else "  manual", "dim"),
+            ("  editing ", "dim"),
+            (editing, "bold #60e8ff"),
+        )
+        second = Text(
+            f"c {aperture.center_x_px:.0f},{aperture.center_y_px:.0f}  "
+            f"r {aperture.radius_px:.0f} px  {len(aperture.exclusions)} excl"
+        )
+        m = e.measurement
+        if m is not None:
+            second.append(
+                f"  {m.quality.carrier_fringes:.0f} fr  "
+                f"masked {100 * m.quality.masked_fraction:.0f} %",
+                style="dim",
+            )
+        elif e.error:
+            second = Text(f"✗ {e.error}", style="#ff6e8a")
+        return [first, second]
+
+    def _panel(self, aperture) -> list[Text]:
+        e = self.entry
+        rows = [Text(e.name, style="bold")]
+        if aperture is None:
+            return rows
+        editing = "aperture" if self.ctx.selected < 0 else f"exclusion {self.ctx.selected + 1}"
+        rows += [
+            Text.assemble(("aperture ", "dim"), ("auto" if e.aperture is None else "manual")),
+            Text(f"centre {aperture.center_x_px:.0f}, {aperture.center_y_px:.0f} px"),
+            Text(f"radius {aperture.radius_px:.0f} px"),
+            Text(f"exclusions {len(aperture.exclusions)}"),
+            Text.assemble(("editing ", "dim"), (editing, "bold #60e8ff")),
+            Text(""),
+        ]
+        m = e.measurement
+        if m is not None:
+            q = m.quality
+            rows += [
+                Text(f"{q.carrier_fringes:.1f} tilt fringes"),
+                Text(f"period {q.fringe_period_px:.1f} px"),
+                Text(f"visibility {q.mean_modulation:.2f}"),
+                Text(f"masked {100 * q.masked_fraction:.1f} %"),
+            ]
+            for warning in m.warnings[:3]:
+                rows += wrapped(f"! {warning}", "#ffc440")
+        elif e.error:
+            rows += wrapped(f"✗ {e.error}", "#ff6e8a")
+        return rows
+
+
+def wrapped(message: str, style: str, width: int = PANEL_WIDTH) -> list[Text]:
+    """A message broken into panel-wide lines."""
+    return [Text(line, style=style) for line in textwrap.wrap(message, width)]

@@ -1,0 +1,60 @@
+"""The queue of photos down the left side: each one's state and headline figure."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.binding import Binding
+from textual.widgets import OptionList
+from textual.widgets.option_list import Option
+
+from ..render.units import fmt_height
+from ..station_state import STATE_LABELS, QueueEntry
+
+__all__ = ["PhotoQueue", "entry_prompt"]
+
+
+def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: int) -> Text:
+    """One queue line: state glyph, photo name (cut to fit), PV in the chosen units."""
+    glyph, _, style = STATE_LABELS[entry.state]
+    if entry.state in ("ok", "warning") and entry.measurement is not None:
+        wl = entry.measurement.settings.wavelength_nm  # the photo's own, under a preset
+        figure = fmt_height(entry.measurement.figures.pv_nm, units, wl)
+    elif entry.state == "error":
+        figure = "error"
+    elif entry.state == "running":
+        figure = "…"
+    else:
+        figure = ""
+    room = max(4, width - 3 - len(figure))
+    name = entry.name if len(entry.name) <= room else entry.name[: room - 1] + "…"
+    line = Text()
+    line.append(glyph + " ", style=style)
+    line.append(name.ljust(room))
+    line.append(" " + figure, style="dim" if entry.state == "error" else "")
+    return line
+
+
+class PhotoQueue(OptionList):
+    """The photos to inspect; moving the highlight opens that photo."""
+
+    BINDINGS = [
+        Binding("down,j", "cursor_down", "Next photo", show=False),
+        Binding("up,k", "cursor_up", "Previous photo", show=False),
+    ]
+
+    def show_entries(
+        self, entries: list[QueueEntry], current: int, *, units: str, wavelength_nm: float
+    ) -> None:
+        """Redraw every line and keep the highlight on ``current``."""
+        width = max(12, (self.scrollable_content_region.width or self.size.width or 22) - 1)
+        options = [
+            Option(
+                entry_prompt(e, units=units, wavelength_nm=wavelength_nm, width=width), id=str(i)
+            )
+            for i, e in enumerate(entries)
+        ]
+        with self.prevent(OptionList.OptionHighlighted):
+            self.clear_options()
+            self.add_options(options)
+            if entries:
+                self.highlighted = current
