@@ -125,7 +125,7 @@ def _validate(settings: MeasureSettings) -> None:
 
 
 def measure(
-    photo: str | Path | np.ndarray,
+    photo,
     settings: MeasureSettings,
     *,
     progress: Progress | None = None,
@@ -135,8 +135,9 @@ def measure(
 
     Parameters
     ----------
-    photo : path or (H, W) ndarray
-        A PNG, JPEG or TIFF file, or an image array (values 0..1, or integers).
+    photo : path, FringePhoto or (H, W) ndarray
+        A PNG, JPEG or TIFF file, a photo already loaded with ``load_photo``, or an
+        image array (values 0..1, or integers).
     settings : MeasureSettings
         Wavelength, number of Zernike terms, sign, aperture.
     progress : callable, optional
@@ -149,7 +150,7 @@ def measure(
     UnreadablePhotoError, UnanalysablePhotoError, SettingsError, MeasurementCancelled
     """
     from .aperture import find_aperture
-    from .loading import load_photo, photo_from_array
+    from .loading import FringePhoto, load_photo, photo_from_array
 
     _validate(settings)
     timings: dict[str, float] = {}
@@ -170,7 +171,10 @@ def measure(
             raise MeasurementCancelled("measurement cancelled")
 
     report("load", 0.0)
-    if isinstance(photo, np.ndarray):
+    if isinstance(photo, FringePhoto):
+        fringe_photo = photo  # already decoded (the station shows it while this runs)
+        name = photo.path or "<array>"
+    elif isinstance(photo, np.ndarray):
         fringe_photo = photo_from_array(photo)
         name = "<array>"
     else:
@@ -191,7 +195,7 @@ def measure(
                 f"{aperture.radius_px:g} does not fit the {W}x{H} photo (centre inside, "
                 "radius at least 16 px)")
     else:
-        aperture = find_aperture(image)
+        aperture = find_aperture(image, photo_name=name)
     if settings.exclusions:
         aperture = aperture.with_exclusions(tuple(aperture.exclusions) + settings.exclusions)
     if fringe_photo.saturated_fraction > 0.01:

@@ -53,7 +53,11 @@ def test_with_terms_removed_matches_the_figures(good):
     without_power, f = with_terms_removed(m, (4,))
     # ISO 14999-4 (from memory): irregularity is the PV once power is out
     assert f.pv_nm == pytest.approx(m.figures.irregularity_nm, rel=1e-9)
-    assert np.nanmax(without_power) - np.nanmin(without_power) == pytest.approx(f.pv_nm)
+    # the map holds the measured pixels; the figures also count the fit where a pixel
+    # could not be measured (figures.compute_figures), so the map's PV is at most theirs
+    assert np.nanmax(without_power) - np.nanmin(without_power) <= f.pv_nm + 1e-9
+    assert np.nanmax(without_power) - np.nanmin(without_power) == pytest.approx(
+        f.pv_nm, rel=0.05)
     assert f.removed_terms == (1, 2, 3, 4)
     # nothing removed beyond piston and tilt gives the measurement's own figures back
     same, f0 = with_terms_removed(m, ())
