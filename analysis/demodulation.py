@@ -508,7 +508,7 @@ def demodulate(
     _check(cancel)
 
     # 2. crop and bin: keep at least ~6 binned pixels per fringe and a few hundred across
-    k = max(1, min(int(period0_px // 6), int(diameter_px // max(12 * fringes0, 400))))
+    k = max(1, min(int(period0_px // 6), int(diameter_px // max(10 * fringes0, 300))))
     data, inframe, origin = _crop(img, aperture, k)
     n = data.shape[0]
     r_b = aperture.radius_px / k
