@@ -117,12 +117,8 @@ class Carrier:
 
     @property
     def angle_deg(self) -> float:
-        """Direction of the carrier from the photo's x axis toward +y (down), degrees.
-
-        In [0, 180) by the sign convention, except that a carrier within about a degree
-        of the x axis is kept pointing right and may read a fraction of a degree below 0.
-        """
-        return math.degrees(math.atan2(self.fy_cpp, self.fx_cpp))
+        """Direction of the carrier from the photo's x axis toward +y (down), in [0, 180)."""
+        return math.degrees(math.atan2(self.fy_cpp, self.fx_cpp)) % 180.0
 
     def fringes_across(self, diameter_px: float) -> float:
         return self.frequency_cpp * diameter_px
@@ -765,8 +761,19 @@ def demodulate(
         step_px=float(step * k),
         shape=(m, m),
     )
+    # The carrier is the tilt of the fringe phase fitted over the aperture: the whole-bin
+    # carrier plus the model's own tilt terms (Noll 2 and 3 are 2x and 2y, so a
+    # coefficient a gives 2a/pi cycles per diameter; rows run down, the model's y up).
+    # A surface's slope can pull the spectrum's peak across the x axis when the fringes
+    # are near vertical; the sign convention follows this fitted tilt, not the peak.
+    fx_cpa = fc[1] / bins_per_cpa + 2.0 * model_coef[1] / np.pi
+    fy_cpa = fc[0] / bins_per_cpa - 2.0 * model_coef[2] / np.pi
+    if fy_cpa < 0 or (fy_cpa == 0 and fx_cpa < 0):
+        fx_cpa, fy_cpa = -fx_cpa, -fy_cpa
+        psi_map, wrapped = -psi_map, -wrapped
+    diameter_photo = 2.0 * aperture.radius_px
     carrier = Carrier(
-        fx_cpp=(v / nx) / k, fy_cpp=(u / ny) / k, concentration=conc,
+        fx_cpp=fx_cpa / diameter_photo, fy_cpp=fy_cpa / diameter_photo, concentration=conc,
     )
     if carrier.period_px < 4.5:
         warnings.append(f"dense fringes ({carrier.period_px:.1f} px per fringe): less tilt "
