@@ -117,7 +117,11 @@ class Carrier:
 
     @property
     def angle_deg(self) -> float:
-        """Direction of the carrier from the photo's x axis toward +y (down), in [0, 180)."""
+        """Direction of the carrier from the photo's x axis toward +y (down), in [0, 180).
+
+        A carrier within about 0.2 degrees of the x axis points right and may read just
+        under 180 when it leans a hair upward.
+        """
         return math.degrees(math.atan2(self.fy_cpp, self.fx_cpp)) % 180.0
 
     def fringes_across(self, diameter_px: float) -> float:
@@ -768,7 +772,9 @@ def demodulate(
     # are near vertical; the sign convention follows this fitted tilt, not the peak.
     fx_cpa = fc[1] / bins_per_cpa + 2.0 * model_coef[1] / np.pi
     fy_cpa = fc[0] / bins_per_cpa - 2.0 * model_coef[2] / np.pi
-    if fy_cpa < 0 or (fy_cpa == 0 and fx_cpa < 0):
+    # within about 0.2 degrees of the x axis the fit cannot tell down from up: point right
+    along_x = abs(fy_cpa) <= 0.0035 * math.hypot(fx_cpa, fy_cpa)
+    if (fx_cpa < 0) if along_x else (fy_cpa < 0):
         fx_cpa, fy_cpa = -fx_cpa, -fy_cpa
         psi_map, wrapped = -psi_map, -wrapped
     diameter_photo = 2.0 * aperture.radius_px
