@@ -37,6 +37,14 @@ class FlatsightStation(App):
         Where the photo picker opens (default: the first photo's folder, or the cwd).
     notice : str, optional
         A note to show at start (for example, that the settings file was unusable).
+    presets_file : path, optional
+        Presets file (TOML): its ``[photos]`` table gives photos their own preset, and
+        the preset picker (b) lists its presets.
+    recorder : StationRecorder, optional
+        Where measurements are logged and with which tolerance and people; by default
+        nothing is logged (``flatsight inspect`` passes the default log).
+    preset : Preset, optional
+        A preset chosen at start (``--preset``), used for every photo.
     """
 
     TITLE = "Flatsight"
@@ -54,9 +62,13 @@ class FlatsightStation(App):
         start_folder: Path | None = None,
         notice: str | None = None,
         presets_file: Path | None = None,
+        recorder=None,
+        preset=None,
     ) -> None:
         super().__init__()
         self.presets_file = presets_file
+        self.recorder = recorder
+        self.preset = preset
         self.entries = [self.make_entry(Path(p)) for p in photos]
         self.station_settings = settings
         self.backend = backend if backend is not None else default_backend()
@@ -79,6 +91,7 @@ class FlatsightStation(App):
             except SettingsError:
                 preset = None  # the file was checked at start; a later edit is ignored
             if preset is not None:
+                entry.preset_source = preset
                 entry.preset = {"wavelength_nm": preset.wavelength_nm,
                                 "diameter_mm": preset.diameter_mm,
                                 "n_terms": preset.zernike_terms}
@@ -97,6 +110,9 @@ class FlatsightStation(App):
             config_path=self.config_path,
             out_dir=self.out_dir,
             start_folder=self.start_folder,
+            recorder=self.recorder,
+            chosen_preset=self.preset,
+            presets_file=self.presets_file,
         )
 
     @property

@@ -8,6 +8,7 @@ from dataclasses import replace
 from pathlib import Path
 
 from .options import EXIT_CODES, wavelength_type
+from .record_options import add_record_options
 
 HELP = "open the inspection station (a keyboard-driven terminal app)"
 DESCRIPTION = """\
@@ -15,9 +16,18 @@ Open the inspection station: a queue of fringe photos on the left, and for the
 photo in hand its fringes with the aperture drawn over them, the spectrum, the
 surface map, two profiles and the figures. The first photo is measured at once.
 
-Keys: 1-5 switch views, [ and ] move through the queue, o opens photos, s saves
-the result (JSON record, height map, text summary beside the photo), w opens the
-settings, u switches nm / waves / fringes, ? lists every key, ctrl+q quits.
+Keys: 1-7 switch views (6 is the trend from the inspection log, 7 the spread
+of averaged photos), [ and ] move through the queue, o opens photos, s saves the
+result (JSON record, height map, text summary beside the photo), w opens the
+settings, b picks a bench preset, space marks photos that g averages or n
+measures as a phase-shifted sequence, u switches nm / waves / fringes, ? lists
+every key, ctrl+q quits.
+
+Every measurement is judged against --spec (or the preset's tolerance) and
+recorded in the inspection log, as flatsight measure records it: the default
+log, --log PATH, or none with --no-log. The part is --part, or else the photo's
+file stem (BW-FL-0412_hene.png is part BW-FL-0412_hene); the queue shows each
+part's verdict, P pass or F fail (bold: measured now; plain: the log's last).
 
 Settings changed in the station (wavelength, sign, diameter, terms, units) are
 remembered in station.toml in your user config folder; options given here win
@@ -30,6 +40,7 @@ down, use --invert (or tick Invert in the settings)."""
 EXAMPLES = """\
 examples:
   flatsight inspect sample_images/ --presets sample_images/presets.toml
+  flatsight inspect BW-FL-0412.png --part BW-FL-0412 --spec "3/1(0.5)" --log shop.sqlite
   flatsight inspect BW-FL-0412.png BW-FL-0413.png --wavelength hene --diameter 100
   flatsight inspect shots/ --wavelength mercury-e --out results/
 """
@@ -94,18 +105,12 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
         "256 colours otherwise, characters with NO_COLOR)",
     )
     p.add_argument(
-        "--presets",
-        metavar="FILE",
-        default=None,
-        help="presets file (TOML) whose [photos] table gives each photo its bench's "
-        "wavelength, diameter and terms by file name (see flatsight measure --help)",
-    )
-    p.add_argument(
         "--config",
         metavar="FILE",
         default=None,
         help="settings file (default: station.toml in the user config folder)",
     )
+    add_record_options(p)
     p.set_defaults(run=run)
     return p
 
@@ -165,15 +170,28 @@ def run(args: argparse.Namespace) -> int:
     except SettingsError as exc:
         print(f"flatsight inspect: error: {exc}", file=sys.stderr)
         return 2
-    presets_file = Path(args.presets) if args.presets else None
-    if presets_file is not None:
-        from ..analysis.presets import load_presets
+    from .record_options import apply_preset, log_path_from_args, tolerance_from_args
+    from .station_log import OPTION_KEYS, StationRecorder
 
-        try:
+    presets_file = Path(args.presets) if args.presets else None
+    chosen = None
+    try:
+        if presets_file is not None:
+            from ..analysis.presets import load_presets
+
             load_presets(presets_file)
-        except SettingsError as exc:
-            print(f"flatsight inspect: error: {exc}", file=sys.stderr)
-            return 2
+        if args.preset:
+            from ..analysis.presets import get_preset
+
+            chosen = get_preset(args.preset, path=presets_file)
+            # the preset fills the measuring options this command line left unset
+            settings = settings_from_args(apply_preset(args, preset=chosen), remembered)
+        tolerance_from_args(args)  # a malformed --spec fails here, pointing at the character
+        recorder = StationRecorder(log_path_from_args(args),
+                                   {k: getattr(args, k) for k in OPTION_KEYS})
+    except SettingsError as exc:
+        print(f"flatsight inspect: error: {exc}", file=sys.stderr)
+        return 2
     out_dir = Path(args.out) if args.out else None
     if out_dir is not None and out_dir.exists() and not out_dir.is_dir():
         print(
@@ -185,7 +203,7 @@ def run(args: argparse.Namespace) -> int:
 
     app = FlatsightStation(
         photos, settings=settings, config_path=config_path, out_dir=out_dir, notice=notice,
-        presets_file=presets_file,
+        presets_file=presets_file, recorder=recorder, preset=chosen,
     )
     app.run()
     return int(app.return_code or 0)

@@ -42,13 +42,17 @@ def save_result(
     folder: str | Path | None = None,
     figures=None,
     removed_terms: tuple[int, ...] = (),
+    photo: str | Path | None = None,
+    record: dict | None = None,
 ) -> list[Path]:
     """Write the result files for ``m``; every file is written atomically.
 
+    ``photo`` names the files instead of ``m.photo`` (an average or a sequence, whose
+    ``m.photo`` lists several files); ``record`` replaces ``backend.to_record(m)``.
     Returns the paths written. Raises ``OSError`` when the folder cannot be written, and
     ``RuntimeError`` when the library cannot make the JSON record or the map file.
     """
-    paths = output_paths(m.photo, folder)
+    paths = output_paths(photo if photo is not None else m.photo, folder)
     paths["json"].parent.mkdir(parents=True, exist_ok=True)
     written = []
     if backend.to_record is None or backend.save_height_map is None:
@@ -56,7 +60,7 @@ def save_result(
             "this build of flatsight cannot write records yet "
             "(flatsight.analysis.record is missing)"
         )
-    record = _clean(backend.to_record(m))
+    record = _clean(record if record is not None else backend.to_record(m))
     atomic_write_text(paths["json"], json.dumps(record, indent=2, allow_nan=False) + "\n")
     written.append(paths["json"])
     backend.save_height_map(m, paths["map"])

@@ -40,10 +40,32 @@ class QueueEntry:
     # settings a presets file gives this photo by its name (wavelength_nm, diameter_mm,
     # n_terms); they win over the station's own for this photo
     preset: dict = field(default_factory=dict)
+    preset_source: Any = None  # the Preset those came from (its tolerance and people too)
+    # inspection record: this session's verdict, the log's last one for the part, the id
+    verdict: str | None = None
+    last_verdict: str | None = None
+    record_id: int | None = None
+    log_error: str | None = None
+    marked: bool = False
+    # a measurement made of several photos: "average" or "sequence", and its photos
+    kind: str = "photo"
+    sources: tuple[Path, ...] = ()
+    combined: Any = None  # the AveragedMeasurement or StackMeasurement behind it
 
     @property
     def name(self) -> str:
+        if self.kind == "average":
+            return f"avg×{len(self.sources)} {self.path.name}"
+        if self.kind == "sequence":
+            return f"seq×{len(self.sources)} {self.path.name}"
         return self.path.name
+
+    @property
+    def shown_verdict(self) -> tuple[str | None, bool]:
+        """The verdict to show and whether it is this session's (else the log's last)."""
+        if self.verdict is not None:
+            return self.verdict, True
+        return self.last_verdict, False
 
     def base_aperture(self) -> Aperture | None:
         """The aperture in force, without exclusions: the operator's, the found one, a guess."""
@@ -66,6 +88,8 @@ class QueueEntry:
         self.measurement = None
         self.error = None
         self.state = "new"
+        self.verdict = self.record_id = self.log_error = None
+        self.combined = None
 
 
 @dataclass(frozen=True)
@@ -85,3 +109,9 @@ class ViewContext:
     colour: str = "truecolor"
     profile_angle_deg: float = 0.0
     zoom: bool = True
+    # the inspection log, newest first, for the trend view; a note when there is none
+    log_rows: tuple = ()
+    log_note: str | None = None
+    part: str | None = None
+    trend_figure: str = "auto"
+    trend_all: bool = False

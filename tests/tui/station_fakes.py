@@ -55,9 +55,11 @@ def write_photos(folder: Path, names: list[str]) -> list[Path]:
 class FakeLibrary:
     """Counts calls and can be told to block, so tests see cancellation and progress."""
 
-    def __init__(self) -> None:
+    def __init__(self, surface_for=None) -> None:
         self.measured: list[tuple[str, object]] = []
         self.gate: threading.Event | None = None
+        # path -> {Noll j: nm RMS}: a surface per photo (default: SURFACE_NM for all)
+        self.surface_for = surface_for
 
     def load_pixels(self, path: Path) -> np.ndarray:
         if "bad" in path.name:
@@ -90,9 +92,10 @@ class FakeLibrary:
         )
         xu, yu = geometry.unit_xy(aperture)
         inside = np.hypot(xu, yu) <= 1.0
-        basis = zernike_basis(max(SURFACE_NM), xu[inside], yu[inside])
+        surface = self.surface_for(Path(path)) if self.surface_for else SURFACE_NM
+        basis = zernike_basis(max(surface), xu[inside], yu[inside])
         h = np.full((n, n), np.nan)
-        h[inside] = sum(c * basis[:, j - 1] for j, c in SURFACE_NM.items())
+        h[inside] = sum(c * basis[:, j - 1] for j, c in surface.items())
         px, py = geometry.photo_xy()
         valid = inside & aperture.inside(px, py)
         yy, xx = np.mgrid[-16:17, -16:17]
@@ -120,6 +123,13 @@ class FakeLibrary:
                 "resolution_cycles_per_aperture": 5.0,
             },
         )
+
+
+def shot_to_shot(path: Path) -> dict:
+    """A surface that reads 3 nm RMS more power per shot (``...-0.png``, ``...-1.png``):
+    air and handling differ between photos of one part."""
+    shot = int(Path(path).stem.rsplit("-", 1)[-1])
+    return {**SURFACE_NM, 4: SURFACE_NM[4] + 3.0 * shot, 6: SURFACE_NM[6] - 1.5 * shot}
 
 
 def fake_backend(lib: FakeLibrary | None = None) -> tuple[StationBackend, FakeLibrary]:

@@ -75,3 +75,44 @@ def test_help_screen(snap_compare, tmp_path):
     assert snap_compare(
         _app(tmp_path), terminal_size=(80, 24), run_before=_keys_then_settle("question_mark")
     )
+
+
+def _logged_app(tmp_path, monkeypatch) -> FlatsightStation:
+    """The station logging to a log that already holds a week of one part's inspections."""
+    from flatsight.analysis.inspection_log import record_measurement
+    from flatsight.tui import record_options
+    from flatsight.tui.station_log import StationRecorder
+
+    log = tmp_path / "log.sqlite"
+    spec = {"tolerance": "pv<=200nm", "limits": [
+        {"figure": "pv_nm", "limit_nm": 200.0, "compared": "value", "name": "pv"}]}
+    for day, pv in ((23, 150.0), (25, 170.0), (26, 230.0), (28, 160.0)):
+        verdict = "pass" if pv <= 200.0 else "fail"
+        record_measurement(log, {"pv_nm": pv, "spec": {**spec, "verdict": verdict}},
+                           part="BW-FL-0412", logged_utc=f"2026-11-{day}T08:00:00Z")
+    # a fixed clock, so the station's own record lands on the same day in every run
+    monkeypatch.setattr(record_options, "utc_now", lambda: "2026-11-30T08:00:00Z")
+    photos = write_photos(tmp_path, PARTS)
+    backend, _ = fake_backend()
+    return FlatsightStation(
+        photos, settings=StationSettings(colour="truecolor", diameter_mm=100.0),
+        backend=backend, config_path=None,
+        recorder=StationRecorder(log, {"spec": "pv<=200nm", "operator": "Tamsin Ode",
+                                       "station": "bench-2"}))
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)], ids=["80x24", "120x40"])
+def test_trend_view_with_the_part_history(snap_compare, tmp_path, monkeypatch, size):
+    assert snap_compare(_logged_app(tmp_path, monkeypatch), terminal_size=size,
+                        run_before=_keys_then_settle("6"))
+
+
+def test_spread_of_three_averaged_photos(snap_compare, tmp_path):
+    from station_fakes import FakeLibrary, shot_to_shot
+
+    photos = write_photos(tmp_path, [f"BW-FL-0412-{k}.png" for k in range(3)])
+    backend, _ = fake_backend(FakeLibrary(surface_for=shot_to_shot))
+    app = FlatsightStation(photos, settings=StationSettings(colour="truecolor"),
+                           backend=backend, config_path=None)
+    keys = ["space", "right_square_bracket"] * 3 + ["g", "7"]
+    assert snap_compare(app, terminal_size=(80, 24), run_before=_keys_then_settle(*keys))

@@ -4,23 +4,20 @@ from __future__ import annotations
 
 import threading
 import time
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from pathlib import Path
 
-from textual import on, work
+from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal
-from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Footer, OptionList, Static, TabbedContent, TabPane
-from textual.worker import Worker, WorkerState
+from textual.worker import Worker
 
-from ...analysis.errors import MeasurementCancelled
-from ...analysis.pipeline import MeasureSettings
 from ..config import StationSettings, save_settings
 from ..render.heatmap import colour_mode_from_env
-from ..render.units import fmt_height, next_units
+from ..render.units import next_units
 from ..station_backend import StationBackend, describe_error
 from ..station_state import STATE_LABELS, QueueEntry, ViewContext
 from ..widgets.figures_view import FiguresView
@@ -28,11 +25,15 @@ from ..widgets.fringe_view import FringeView
 from ..widgets.photo_queue import PhotoQueue
 from ..widgets.profile_view import ProfileView
 from ..widgets.spectrum_view import SpectrumView
+from ..widgets.spread_view import SpreadView
 from ..widgets.status_bar import StatusBar
 from ..widgets.surface_view import SurfaceView
+from ..widgets.trend_view import TrendView
 from .bench_actions import ViewActions
+from .bench_analysis import RERUN_DELAY_S, AnalysisRunner, Job
+from .bench_records import RecordActions
 
-__all__ = ["BenchScreen", "VIEWS"]
+__all__ = ["BenchScreen", "RERUN_DELAY_S", "VIEWS"]
 
 VIEWS = {
     "fringes": ("Fringes", FringeView),
@@ -40,40 +41,14 @@ VIEWS = {
     "surface": ("Surface", SurfaceView),
     "profiles": ("Profiles", ProfileView),
     "figures": ("Figures", FiguresView),
+    "trend": ("Trend", TrendView),
+    "spread": ("Spread", SpreadView),
 }
-RERUN_DELAY_S = 0.4  # let a burst of aperture keys settle before measuring again
 _VIEW_KEYS = Binding.Group("views", compact=True)
 _PHOTO_KEYS = Binding.Group("photo", compact=True)
 
 
-@dataclass(frozen=True)
-class Job:
-    token: int
-    index: int
-    path: Path
-    settings: MeasureSettings
-    cancel: threading.Event
-    load: bool
-
-
-class AnalysisProgress(Message):
-    """A stage of the running analysis reached ``fraction`` (0..1)."""
-
-    def __init__(self, token: int, stage: str, fraction: float) -> None:
-        super().__init__()
-        self.token, self.stage, self.fraction = token, stage, fraction
-
-    def can_replace(self, message: Message) -> bool:
-        return isinstance(message, AnalysisProgress)  # bursts merge: only the newest matters
-
-
-class PhotoLoaded(Message):
-    def __init__(self, token: int, index: int, pixels) -> None:
-        super().__init__()
-        self.token, self.index, self.pixels = token, index, pixels
-
-
-class BenchScreen(ViewActions, Screen):
+class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
     """Queue on the left, views on the right; analysis in exclusive thread workers."""
 
     BINDINGS = [
@@ -82,6 +57,8 @@ class BenchScreen(ViewActions, Screen):
         Binding("3", "view('surface')", "Surface", group=_VIEW_KEYS),
         Binding("4", "view('profiles')", "Profiles", group=_VIEW_KEYS),
         Binding("5", "view('figures')", "Figures", group=_VIEW_KEYS),
+        Binding("6", "view('trend')", "Trend", group=_VIEW_KEYS),
+        Binding("7", "view('spread')", "Spread", group=_VIEW_KEYS),
         Binding("left_square_bracket", "step_photo(-1)", "Previous photo", group=_PHOTO_KEYS),
         Binding("right_square_bracket", "step_photo(1)", "Next photo", group=_PHOTO_KEYS),
         Binding("u", "units", "Units"),
@@ -89,6 +66,10 @@ class BenchScreen(ViewActions, Screen):
         Binding("s", "save", "Save"),
         Binding("o", "open", "Open"),
         Binding("w", "settings", "Settings"),
+        Binding("b", "pick_preset", "Bench preset"),
+        Binding("space", "toggle_mark", "Mark photo"),
+        Binding("g", "average_marked", "Average marked photos"),
+        Binding("n", "sequence_marked", "Marked as phase sequence"),
         Binding("question_mark,f1", "help", "Help"),
     ]
 
@@ -101,8 +82,21 @@ class BenchScreen(ViewActions, Screen):
         config_path: Path | None,
         out_dir: Path | None,
         start_folder: Path,
+        recorder=None,
+        chosen_preset=None,
+        presets_file: Path | None = None,
     ) -> None:
+        from ..station_log import StationRecorder
+
         super().__init__()
+        self.recorder = recorder if recorder is not None else StationRecorder()
+        self.chosen_preset = chosen_preset
+        self.presets_file = presets_file
+        self.log_rows: tuple = ()
+        self.log_note: str | None = None
+        self.trend_figure = "auto"
+        self.trend_all = False
+        self._spread_shown = True
         self.entries = entries
         self.settings = settings
         self.backend = backend
@@ -137,6 +131,7 @@ class BenchScreen(ViewActions, Screen):
     def on_mount(self) -> None:
         self.redraw()
         self.query_one(FringeView).focus()
+        self.reload_log()  # each part's last verdict for the queue, and the trend
         if self.entries:
             self.start_analysis(0)  # no key needed: the first photo is measured at once
         else:
@@ -182,151 +177,34 @@ class BenchScreen(ViewActions, Screen):
             colour=self.colour,
             profile_angle_deg=self.profile_angle,
             zoom=self.zoom,
+            log_rows=self.log_rows,
+            log_note=self.log_note,
+            part=self.part_of(e),
+            trend_figure=self.trend_figure,
+            trend_all=self.trend_all,
         )
 
     def redraw(self) -> None:
         s = self.settings
         diameter = "—" if s.diameter_mm is None else f"{s.diameter_mm:g} mm"
         sign = "inverted" if s.invert else "normal"
+        preset = f" [dim]│[/dim] {self.chosen_preset.name}" if self.chosen_preset else ""
         self.query_one("#bench-bar", Static).update(
             f"[b]Flatsight[/b] [dim]│[/dim] λ {self.wavelength_for(self.entry):g} nm [dim]│[/dim] "
             f"{s.n_terms} terms [dim]│[/dim] sign {sign} [dim]│[/dim] ⌀ {diameter} "
-            f"[dim]│[/dim] {s.units}"
+            f"[dim]│[/dim] {s.units}{preset}"
         )
         self.query_one(PhotoQueue).show_entries(
             self.entries, self.current, units=s.units, wavelength_nm=s.wavelength_nm
         )
+        self._sync_spread_tab()
         ctx = self.context()
         for key, (_, cls) in VIEWS.items():
             self.query_one(f"#{key}-view", cls).show(self.entry, ctx)
 
-    # ---- analysis -----------------------------------------------------------------------
-    def wavelength_for(self, e: QueueEntry | None) -> float:
-        """The wavelength a photo is (or will be) measured at: its preset's, else the station's."""
-        if e is not None and e.measurement is not None:
-            return e.measurement.settings.wavelength_nm
-        if e is not None and e.preset.get("wavelength_nm"):
-            return float(e.preset["wavelength_nm"])
-        return self.settings.wavelength_nm
-
-    def measure_settings(self, e: QueueEntry) -> MeasureSettings:
-        s = self.settings
-        return MeasureSettings(
-            wavelength_nm=float(e.preset.get("wavelength_nm") or s.wavelength_nm),
-            n_terms=int(e.preset.get("n_terms") or s.n_terms),
-            invert=s.invert,
-            diameter_mm=e.preset.get("diameter_mm") or s.diameter_mm,
-            aperture=e.aperture,
-            exclusions=tuple(e.exclusions),
-        )
-
-    def start_analysis(self, index: int) -> None:
-        """Measure photo ``index`` now, cancelling whatever is running."""
-        if self._cancel is not None:
-            self._cancel.set()
-            for job in self._jobs.values():
-                if job.token == self._token and job.index != index:
-                    self._settle_stale(self.entries[job.index])
-        self._token += 1
-        e = self.entries[index]
-        e.state, e.error = "running", None
-        job = Job(
-            self._token,
-            index,
-            e.path,
-            self.measure_settings(e),
-            threading.Event(),
-            load=e.pixels is None,
-        )
-        self._cancel = job.cancel
-        self._jobs[self._analyse(job)] = job
-        self.say(f"Measuring {e.name}…")
-        self.query_one(StatusBar).progress(0.0)
-        self.redraw()
-
-    @work(thread=True, exclusive=True, exit_on_error=False, group="analysis")
-    def _analyse(self, job: Job):
-        if job.load:
-            pixels = self.backend.load_pixels(job.path)
-            self.post_message(PhotoLoaded(job.token, job.index, pixels))
-
-        def progress(stage: str, fraction: float) -> None:
-            if not job.cancel.is_set():
-                self.post_message(AnalysisProgress(job.token, stage, fraction))
-
-        return self.backend.measure(job.path, job.settings, progress=progress, cancel=job.cancel)
-
-    def on_photo_loaded(self, message: PhotoLoaded) -> None:
-        self.entries[message.index].pixels = message.pixels
-        if message.index == self.current:
-            self.redraw()
-
-    def on_analysis_progress(self, message: AnalysisProgress) -> None:
-        if message.token == self._token:
-            self.query_one(StatusBar).progress(message.fraction)
-            self.say(f"Measuring {self.entry.name}: {message.stage}")
-
     @on(Worker.StateChanged)
     def _worker_changed(self, event: Worker.StateChanged) -> None:
-        worker = event.worker
-        if worker.group == "save":
-            self._save_finished(worker)
-            return
-        job = self._jobs.get(worker)
-        if job is None or event.state not in (
-            WorkerState.SUCCESS,
-            WorkerState.ERROR,
-            WorkerState.CANCELLED,
-        ):
-            return
-        del self._jobs[worker]
-        if job.token != self._token or event.state == WorkerState.CANCELLED:
-            return  # a stale run: a newer request has taken over
-        e = self.entries[job.index]
-        bar = self.query_one(StatusBar)
-        bar.progress(None)
-        if event.state == WorkerState.ERROR:
-            if isinstance(worker.error, MeasurementCancelled):
-                return
-            # the queue already names the photo: keep the message to what went wrong
-            message = describe_error(worker.error).replace(f"{job.path}: ", "")
-            e.state, e.error, e.measurement = "error", message, None
-            self.say(f"✗ {e.name}: {e.error}")
-        else:
-            m = worker.result
-            e.measurement, e.error = m, None
-            e.state = "warning" if m.warnings else "ok"
-            if self.first_figures_s is None:
-                self.first_figures_s = time.perf_counter() - self.started_s
-            self.say(self.headline(e))
-        self.redraw()
-
-    def headline(self, e: QueueEntry) -> str:
-        """The status line for a measured photo: PV and RMS in the chosen units."""
-        m = e.measurement
-        wl, units = self.settings.wavelength_nm, self.settings.units
-        return (
-            f"{STATE_LABELS[e.state][0]} {e.name}: PV {fmt_height(m.figures.pv_nm, units, wl)}, "
-            f"RMS {fmt_height(m.figures.rms_nm, units, wl)}"
-            + (f" — {m.warnings[0]}" if m.warnings else "")
-        )
-
-    @staticmethod
-    def _settle_stale(e: QueueEntry) -> None:
-        # the operator moved on before this photo finished: show it as it was before
-        if e.state == "running":
-            m = e.measurement
-            e.state = "new" if m is None else ("warning" if m.warnings else "ok")
-
-    def _schedule_rerun(self) -> None:
-        if self._rerun_timer is not None:
-            self._rerun_timer.stop()
-        self._rerun_timer = self.set_timer(RERUN_DELAY_S, self._rerun)
-
-    def _rerun(self) -> None:
-        self._rerun_timer = None
-        if self.entry is not None:
-            self.start_analysis(self.current)
+        self.worker_changed(event)
 
     # ---- queue --------------------------------------------------------------------------
     def go_to(self, index: int) -> None:
@@ -358,12 +236,31 @@ class BenchScreen(ViewActions, Screen):
             self.notify("those photos are already in the queue")
             return
         self.entries.extend(new)
+        self.reload_log()  # the new photos' parts may have a history
         self.go_to(len(self.entries) - len(new))
 
     # ---- actions ------------------------------------------------------------------------
     def action_view(self, name: str) -> None:
+        if name == "spread" and not self._spread_shown:
+            self.notify("the spread map is for averaged photos: mark photos with space, "
+                        "then g", severity="warning", timeout=4)
+            return
         self.query_one(TabbedContent).active = name
         self.query_one(f"#{name}-view").focus()
+
+    def _sync_spread_tab(self) -> None:
+        """The Spread tab is there only while an average is in hand (it keeps the bar short)."""
+        averaged = self.entry is not None and self.entry.kind == "average"
+        if averaged == self._spread_shown:
+            return
+        tabs = self.query_one(TabbedContent)
+        if averaged:
+            tabs.show_tab("spread")
+        else:
+            if tabs.active == "spread":
+                self.action_view("surface")
+            tabs.hide_tab("spread")
+        self._spread_shown = averaged
 
     @on(TabbedContent.TabActivated)
     def _tab_activated(self, event: TabbedContent.TabActivated) -> None:
@@ -387,6 +284,11 @@ class BenchScreen(ViewActions, Screen):
 
     def _update_settings(self, new: StationSettings, *, persist: bool = True) -> None:
         self.settings = new
+        before = getattr(self, "_settings_before_preset", None)
+        if self.chosen_preset is not None and before is not None:
+            # a preset picked in the station is for this session: remember the bench's own
+            new = replace(new, wavelength_nm=before.wavelength_nm,
+                          diameter_mm=before.diameter_mm, n_terms=before.n_terms)
         if persist and self.config_path is not None:
             try:
                 save_settings(new, self.config_path)
@@ -397,26 +299,8 @@ class BenchScreen(ViewActions, Screen):
                 )
         self.redraw()
 
-    # ---- keys for help and the command palette ------------------------------------------
     def key_rows(self) -> list[tuple[str, str, str, str]]:
         """``(where, key, description, action)`` for every binding of the bench and its views."""
-        rows = []
-        scopes = [
-            ("anywhere", self.BINDINGS),
-            ("fringes", FringeView.BINDINGS),
-            ("surface", SurfaceView.BINDINGS),
-            ("profiles", ProfileView.BINDINGS),
-        ]
-        for scope, bindings in scopes:
-            for b in bindings:
-                key = b.key.split(",")[0]
-                key = {
-                    "left_square_bracket": "[",
-                    "right_square_bracket": "]",
-                    "question_mark": "?",
-                    "equals_sign": "=",
-                    "plus": "+",
-                    "minus": "-",
-                }.get(key, key)
-                rows.append((scope, key, b.description, b.action.removeprefix("screen.")))
-        return rows
+        from .bench_keys import key_rows
+
+        return key_rows(self)

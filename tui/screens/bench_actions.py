@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import copy
 from dataclasses import replace
 
 from textual import work
@@ -68,14 +69,21 @@ class ViewActions:
             self.notify("nothing to save yet: measure the photo first", severity="warning")
             return
         _, figures = self._reduced(e.measurement)
-        self._save(e.measurement, figures, self.removed_terms())
+        photo = None
+        if e.kind != "photo":  # avg3 / seq4 beside the first photo, never over its own files
+            tag = {"average": "avg", "sequence": "seq"}[e.kind]
+            photo = e.path.with_name(f"{e.path.stem}.{tag}{len(e.sources)}{e.path.suffix}")
+        self._save(e.measurement, figures, self.removed_terms(), photo, copy.copy(e))
 
     @work(thread=True, exit_on_error=False, group="save")
-    def _save(self, m, figures, removed):
+    def _save(self, m, figures, removed, photo=None, snapshot=None):
+        from ..station_combine import combined_record
         from ..station_save import save_result
 
+        record = combined_record(snapshot, self.backend) if photo is not None else None
         return save_result(
-            m, self.backend, folder=self.out_dir, figures=figures, removed_terms=removed
+            m, self.backend, folder=self.out_dir, figures=figures, removed_terms=removed,
+            photo=photo, record=record,
         )
 
     def _save_finished(self, worker: Worker) -> None:

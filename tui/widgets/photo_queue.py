@@ -10,11 +10,21 @@ from textual.widgets.option_list import Option
 from ..render.units import fmt_height
 from ..station_state import STATE_LABELS, QueueEntry
 
-__all__ = ["PhotoQueue", "entry_prompt"]
+__all__ = ["PhotoQueue", "VERDICT_TAGS", "entry_prompt"]
+
+# verdict -> (tag, style of this session's verdict, style of the log's last one)
+VERDICT_TAGS = {
+    "pass": ("P", "bold #7fd67f", "#4f8f4f"),
+    "fail": ("F", "bold #ffffff on #b0304a", "#ff6e8a"),
+}
 
 
 def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: int) -> Text:
-    """One queue line: state glyph, photo name (cut to fit), PV in the chosen units."""
+    """One queue line: state glyph, mark, photo name (cut to fit), PV, verdict tag.
+
+    The verdict tag is P (pass) or F (fail): bold for this session's measurement, plain
+    for the part's last verdict in the inspection log.
+    """
     glyph, _, style = STATE_LABELS[entry.state]
     if entry.state in ("ok", "warning") and entry.measurement is not None:
         wl = entry.measurement.settings.wavelength_nm  # the photo's own, under a preset
@@ -25,12 +35,19 @@ def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: 
         figure = "…"
     else:
         figure = ""
-    room = max(4, width - 3 - len(figure))
+    verdict, fresh = entry.shown_verdict
+    tag = VERDICT_TAGS.get(verdict)
+    room = max(4, width - 3 - len(figure) - (2 if tag else 0) - (1 if entry.marked else 0))
     name = entry.name if len(entry.name) <= room else entry.name[: room - 1] + "…"
     line = Text()
     line.append(glyph + " ", style=style)
+    if entry.marked:
+        line.append("▸", style="bold #60e8ff")
     line.append(name.ljust(room))
     line.append(" " + figure, style="dim" if entry.state == "error" else "")
+    if tag:
+        line.append(" ")
+        line.append(tag[0], style=tag[1] if fresh else tag[2])
     return line
 
 

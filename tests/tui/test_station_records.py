@@ -1,0 +1,360 @@
+"""The station's inspection records, driven with the Pilot: logging, verdicts, trend, presets.
+
+The stand-in analysis (station_fakes) builds its map from a known Zernike surface, so
+each verdict is checked against the PV of that map computed here with numpy, and each
+logged record against what ``flatsight measure``'s functions make of the same result.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import functools
+import sqlite3
+
+import numpy as np
+import pytest
+from flatsight.analysis.inspection_log import query, record_measurement
+from flatsight.analysis.record import measurement_to_record
+from flatsight.analysis.tolerances import evaluate, parse_tolerance
+from flatsight.tui.app import FlatsightStation
+from flatsight.tui.config import StationSettings
+from flatsight.tui.screens.bench import BenchScreen
+from flatsight.tui.screens.preset_screen import PresetScreen
+from flatsight.tui.station_log import StationRecorder
+from station_fakes import fake_backend, write_photos
+
+PARTS = ["BW-FL-0412.png", "BW-FL-0413.png"]
+
+
+def sync(scenario):
+    @functools.wraps(scenario)
+    def test(*args, **kwargs):
+        asyncio.run(scenario(*args, **kwargs))
+
+    return test
+
+
+async def settle(pilot, rounds: int = 4):
+    # a measurement starts a record worker, which starts a log read: wait for the chain
+    for _ in range(rounds):
+        await pilot.pause()
+        await pilot.app.workers.wait_for_complete()
+    await pilot.pause()
+
+
+def make_app(tmp_path, *, names=PARTS, log=True, presets_file=None, preset=None, **options):
+    photos = write_photos(tmp_path, names)
+    backend, lib = fake_backend()
+    recorder = StationRecorder(tmp_path / "log.sqlite" if log else None,
+                               {"operator": "Tamsin Ode", "station": "bench-2", **options})
+    app = FlatsightStation(photos, settings=StationSettings(colour="truecolor"),
+                           backend=backend, config_path=tmp_path / "station.toml",
+                           recorder=recorder, presets_file=presets_file, preset=preset)
+    return app, lib
+
+
+def queue_lines(app) -> list[str]:
+    q = app.screen.query_one("#queue")
+    return [q.get_option_at_index(i).prompt.plain for i in range(q.option_count)]
+
+
+def status(app) -> str:
+    return str(app.screen.query_one("#status-text").render())
+
+
+def map_pv(m) -> float:
+    # slow obvious reference: PV is the highest minus the lowest measured height
+    h = m.height_nm[m.valid]
+    return float(h.max() - h.min())
+
+
+@sync
+async def test_each_measurement_is_logged_as_measure_logs_it_with_its_verdict(tmp_path):
+    app, _ = make_app(tmp_path, spec="pv<=500nm, rms<=5nm")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        bench = app.screen
+        e = bench.entries[0]
+        # the fake surface has 40 nm RMS of power: PV well under 500 nm, RMS over 5 nm
+        assert map_pv(e.measurement) < 500 and e.measurement.figures.rms_nm > 5
+        assert e.verdict == "fail" and e.record_id == 1
+        assert "FAIL pv<=500nm, rms<=5nm" in status(app) and "record 1" in status(app)
+        assert queue_lines(app)[0].endswith(" F")
+        rows = query(tmp_path / "log.sqlite")
+        assert len(rows) == 1
+        row = rows[0]
+        assert (row["part"], row["operator"], row["station"]) == (
+            "BW-FL-0412", "Tamsin Ode", "bench-2")
+        expected = measurement_to_record(e.measurement)
+        for key in ("photo_sha256", "pv_nm", "rms_nm", "power_nm", "zernike", "settings"):
+            assert row[key] == expected[key], key
+        judged = evaluate(parse_tolerance("pv<=500nm, rms<=5nm"), expected)
+        assert row["spec"]["verdict"] == judged.verdict == "fail"
+        # a second photo is its own part (the file stem) and is logged too
+        await pilot.press("right_square_bracket")
+        await settle(pilot)
+        assert [r["part"] for r in query(tmp_path / "log.sqlite")] == [
+            "BW-FL-0413", "BW-FL-0412"]
+
+
+@sync
+async def test_the_queue_shows_each_parts_last_verdict_from_the_log(tmp_path):
+    log = tmp_path / "log.sqlite"
+    record_measurement(log, {"spec": {"tolerance": "3/1(0.5)", "verdict": "fail"}},
+                       part="BW-FL-0413", logged_utc="2026-11-30T08:00:00Z")
+    app, lib = make_app(tmp_path, spec="pv<=500nm")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        lines = queue_lines(app)
+        assert [n for n, _ in lib.measured] == ["BW-FL-0412.png"]  # 0413 not measured now
+        assert lines[1].endswith(" F") and lines[0].endswith(" P")
+        assert app.screen.entries[1].shown_verdict == ("fail", False)
+
+
+@sync
+async def test_part_option_names_every_photo_and_no_log_still_judges(tmp_path):
+    app, _ = make_app(tmp_path, log=False, spec="pv<=500nm", part="BW-FL-0588")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        bench = app.screen
+        assert bench.part_of(bench.entries[1]) == "BW-FL-0588"
+        e = bench.entries[0]
+        assert e.verdict == "pass" and e.record_id is None and e.log_error is None
+        assert not (tmp_path / "log.sqlite").exists()
+
+
+@pytest.mark.parametrize("kind", ["folder-is-a-file", "not-a-database"])
+@sync
+async def test_a_log_that_cannot_be_written_is_a_message_not_a_crash(tmp_path, kind):
+    if kind == "folder-is-a-file":
+        (tmp_path / "blocker").write_text("a file where the log's folder should be")
+        log = tmp_path / "blocker" / "log.sqlite"
+    else:
+        log = tmp_path / "log.sqlite"
+        log.write_bytes(b"this is not SQLite" * 100)
+    photos = write_photos(tmp_path, PARTS)
+    backend, _ = fake_backend()
+    app = FlatsightStation(photos, settings=StationSettings(), backend=backend,
+                           recorder=StationRecorder(log, {"spec": "pv<=500nm"}))
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        e = app.screen.entries[0]
+        assert app.is_running and e.state == "ok"
+        assert e.verdict == "pass"  # judged all the same
+        assert e.log_error.startswith("not logged:") and str(log.parent) in e.log_error
+        assert "\n" not in e.log_error and "not logged" in status(app)
+
+
+@sync
+async def test_trend_view_plots_the_part_with_its_tolerance_line_and_pass_rate(tmp_path):
+    log = tmp_path / "log.sqlite"
+    spec = {"tolerance": "pvr<=80nm", "limits": [
+        {"figure": "pvr_nm", "limit_nm": 80.0, "compared": "value", "name": "pvr"}]}
+    history = [("2026-11-20T08:00:00Z", 70.0, "pass"), ("2026-11-25T08:00:00Z", 95.0, "fail"),
+               ("2026-11-28T08:00:00Z", 60.0, "pass")]
+    for when, pvr, verdict in history:
+        record_measurement(log, {"pvr_nm": pvr, "spec": {**spec, "verdict": verdict}},
+                           part="BW-FL-0412", logged_utc=when)
+    record_measurement(log, {"pvr_nm": 20.0, "spec": {**spec, "verdict": "pass"}},
+                       part="BW-TP-0031", logged_utc="2026-11-29T08:00:00Z")
+    app, _ = make_app(tmp_path, names=PARTS[:1], spec="pvr<=80nm")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("6")
+        await pilot.pause()
+        text = app.screen.query_one("#trend-view").render().plain
+        pvr_now = app.screen.entries[0].measurement.figures.pvr_nm
+        passed = sum(v == "pass" for _, _, v in history) + (pvr_now <= 80.0)
+        assert "pvr_nm over time · part BW-FL-0412 · 4 records" in text
+        assert f"pass rate {passed}/4" in text
+        assert "limit 80.0 nm" in text and "---" in text
+        assert "x" in text.split("└")[0]  # the failed inspection is marked
+        await pilot.press("l")
+        await pilot.pause()
+        text = app.screen.query_one("#trend-view").render().plain
+        assert "all parts · 5 records" in text and f"pass rate {passed + 1}/5" in text
+        await pilot.press("f")
+        await pilot.pause()
+        assert app.screen.query_one("#trend-view").render().plain.startswith("pvr_nm")
+        await pilot.press("f")
+        await pilot.pause()
+        assert app.screen.query_one("#trend-view").render().plain.startswith("pv_nm")
+
+
+PRESETS = """
+[presets.bench-1-sodium]
+wavelength_nm = 589.3
+diameter_mm = 80
+zernike_terms = 28
+tolerance = "pv<=1nm"
+operator = "Ruben Halloway"
+station = "bench-1"
+
+[presets.bench-2-hene]
+wavelength_nm = 632.8
+tolerance = "pv<=900nm"
+operator = "Tamsin Ode"
+"""
+
+
+@sync
+async def test_a_preset_chosen_in_the_station_applies_its_settings_and_people(tmp_path):
+    presets = tmp_path / "presets.toml"
+    presets.write_text(PRESETS)
+    app, lib = make_app(tmp_path, names=PARTS[:1], presets_file=presets, operator=None,
+                        station=None)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("b")
+        await pilot.pause()
+        assert isinstance(app.screen, PresetScreen)
+        await pilot.press("down", "enter")  # past "by photo name" to bench-1-sodium
+        await settle(pilot)
+        bench = app.screen
+        assert isinstance(bench, BenchScreen) and bench.chosen_preset.name == "bench-1-sodium"
+        s = lib.measured[-1][1]
+        assert (s.wavelength_nm, s.diameter_mm, s.n_terms) == (589.3, 80.0, 28)
+        assert "bench-1-sodium" in str(bench.query_one("#bench-bar").render())
+        row = query(tmp_path / "log.sqlite", limit=1)[0]
+        assert (row["operator"], row["station"], row["spec"]["tolerance"]) == (
+            "Ruben Halloway", "bench-1", "pv<=1nm")
+        assert row["verdict"] == bench.entries[0].verdict == "fail"
+        await pilot.press("u")  # remembering the units must not remember the preset's bench
+        await pilot.pause()
+        from flatsight.tui.config import load_settings
+
+        remembered, _ = load_settings(tmp_path / "station.toml")
+        assert (remembered.units, remembered.wavelength_nm) == ("waves", 632.8)
+        # back to the settings and each photo's own preset (none here): 632.8 nm again
+        await pilot.press("b")
+        await pilot.pause()
+        await pilot.press("home", "enter")
+        await settle(pilot)
+        assert bench.chosen_preset is None
+        assert "bench-1-sodium" not in str(bench.query_one("#bench-bar").render())
+        s = lib.measured[-1][1]
+        assert (s.wavelength_nm, s.diameter_mm, s.n_terms) == (632.8, None, 36)
+
+
+@sync
+async def test_presets_file_without_presets_says_so(tmp_path):
+    presets = tmp_path / "presets.toml"
+    presets.write_text("# nothing yet\n")
+    app, _ = make_app(tmp_path, names=PARTS[:1], presets_file=presets)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("b")
+        await pilot.pause()
+        assert isinstance(app.screen, BenchScreen) and app.is_running
+
+
+def test_new_actions_have_keys_in_help_and_the_palette(tmp_path):
+    async def scenario():
+        app, _ = make_app(tmp_path, names=PARTS[:1], log=False)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await settle(pilot)
+            bench = app.screen
+            actions = {row[3]: row[1] for row in bench.key_rows()}
+            for action, key in {"view('trend')": "6", "view('spread')": "7",
+                                "pick_preset": "b", "toggle_mark": "space",
+                                "average_marked": "g", "sequence_marked": "n",
+                                "trend_figure": "f", "trend_scope": "l"}.items():
+                assert actions.get(action) == key, action
+            titles = [c.title for c in app.get_system_commands(bench)]
+            for row in bench.key_rows():
+                assert any(t.startswith(row[2]) for t in titles), row
+
+    asyncio.run(scenario())
+
+
+# ---- the command line that starts the station ---------------------------------------------
+def _inspect(tmp_path, monkeypatch, *argv):
+    import argparse
+
+    from flatsight.tui import app as app_module
+    from flatsight.tui import cmd_inspect
+
+    started = {}
+
+    class Stub:
+        return_code = 0
+
+        def __init__(self, photos, **kwargs):
+            started.update(kwargs, photos=photos)
+
+        def run(self):
+            pass
+
+    monkeypatch.setattr(app_module, "FlatsightStation", Stub)
+    parser = argparse.ArgumentParser()
+    cmd_inspect.add_parser(parser.add_subparsers())
+    photo = write_photos(tmp_path, ["BW-FL-0412.png"])[0]
+    args = parser.parse_args(["inspect", str(photo), "--config", str(tmp_path / "s.toml"),
+                              *argv])
+    return cmd_inspect.run(args), started
+
+
+def test_inspect_passes_log_part_people_and_preset_to_the_station(tmp_path, monkeypatch):
+    presets = tmp_path / "presets.toml"
+    presets.write_text(PRESETS)
+    code, started = _inspect(tmp_path, monkeypatch, "--log", str(tmp_path / "l.sqlite"),
+                             "--part", "BW-FL-0412", "--operator", "Tamsin Ode",
+                             "--presets", str(presets), "--preset", "bench-1-sodium")
+    assert code == 0
+    rec = started["recorder"]
+    assert rec.log_path == tmp_path / "l.sqlite"
+    assert rec.options["part"] == "BW-FL-0412" and rec.options["operator"] == "Tamsin Ode"
+    assert started["preset"].name == "bench-1-sodium"
+    assert started["settings"].wavelength_nm == 589.3  # the preset fills the unset option
+    code, started = _inspect(tmp_path, monkeypatch, "--no-log")
+    assert code == 0 and started["recorder"].log_path is None
+
+
+@pytest.mark.parametrize("argv, says", [
+    (("--spec", "3/1(0.5"), "3/1(0.5"),
+    (("--preset", "bench-9"), "no preset 'bench-9'"),
+])
+def test_inspect_refuses_a_bad_tolerance_or_preset_with_exit_2(tmp_path, monkeypatch, capsys,
+                                                               argv, says):
+    presets = tmp_path / "presets.toml"
+    presets.write_text(PRESETS)
+    code, started = _inspect(tmp_path, monkeypatch, "--presets", str(presets), *argv)
+    err = capsys.readouterr().err
+    assert code == 2 and not started
+    assert err.startswith("flatsight inspect: error:") and says in err
+    assert len(err.strip().splitlines()) == 1
+
+
+def test_log_file_is_a_real_sqlite_log(tmp_path):
+    # the records the station writes are plain SQLite: integrity as sqlite3 itself sees it
+    async def scenario():
+        app, _ = make_app(tmp_path, names=PARTS[:1], spec="pv<=500nm")
+        async with app.run_test(size=(80, 24)) as pilot:
+            await settle(pilot)
+
+    asyncio.run(scenario())
+    con = sqlite3.connect(tmp_path / "log.sqlite")
+    try:
+        assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        assert con.execute("SELECT count(*) FROM inspections").fetchone()[0] == 1
+    finally:
+        con.close()
+    assert np.isfinite(query(tmp_path / "log.sqlite")[0]["pv_nm"])
+
+
+def test_read_log_finds_a_parts_last_verdict_beyond_the_rows_it_reads(tmp_path):
+    from flatsight.tui.station_log import read_log
+
+    log = tmp_path / "log.sqlite"
+    record_measurement(log, {"spec": {"verdict": "fail"}}, part="BW-FL-0412",
+                       logged_utc="2026-11-01T08:00:00Z")
+    record_measurement(log, {"spec": {"verdict": "pass"}}, part="BW-FL-0412",
+                       logged_utc="2026-11-02T08:00:00Z")
+    record_measurement(log, {"spec": {"verdict": "fail"}}, part="BW-TP-0031",
+                       logged_utc="2026-11-03T08:00:00Z")
+    rows, verdicts, note = read_log(log, parts={"BW-FL-0412", "BW-TP-0031", "BW-WN-0207"},
+                                    limit=1)
+    assert note is None and [r["part"] for r in rows] == ["BW-TP-0031"]
+    assert verdicts == {"BW-TP-0031": "fail", "BW-FL-0412": "pass"}  # newest, not oldest
+    assert read_log(None)[2].startswith("not logging")
+    assert read_log(tmp_path / "none.sqlite")[2].startswith("no records yet")

@@ -1,0 +1,208 @@
+"""The bench's analysis: measuring in exclusive thread workers, progress, results, reruns."""
+
+from __future__ import annotations
+
+import threading
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+from textual import work
+from textual.message import Message
+from textual.worker import Worker, WorkerState
+
+from ...analysis.errors import MeasurementCancelled
+from ...analysis.pipeline import MeasureSettings
+from ..render.units import fmt_height
+from ..station_backend import describe_error
+from ..station_state import STATE_LABELS, QueueEntry
+from ..widgets.status_bar import StatusBar
+
+__all__ = ["AnalysisProgress", "AnalysisRunner", "Job", "PhotoLoaded", "RERUN_DELAY_S"]
+
+RERUN_DELAY_S = 0.4  # let a burst of aperture keys settle before measuring again
+
+
+@dataclass(frozen=True)
+class Job:
+    token: int
+    index: int
+    path: Path
+    settings: MeasureSettings
+    cancel: threading.Event
+    load: bool
+    kind: str = "photo"
+    sources: tuple[Path, ...] = ()
+
+
+class AnalysisProgress(Message):
+    """A stage of the running analysis reached ``fraction`` (0..1)."""
+
+    def __init__(self, token: int, stage: str, fraction: float) -> None:
+        super().__init__()
+        self.token, self.stage, self.fraction = token, stage, fraction
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, AnalysisProgress)  # bursts merge: only the newest matters
+
+
+class PhotoLoaded(Message):
+    def __init__(self, token: int, index: int, pixels) -> None:
+        super().__init__()
+        self.token, self.index, self.pixels = token, index, pixels
+
+
+class AnalysisRunner:
+    """Mixed into the bench screen: starts, follows and settles the analysis workers.
+
+    The bench provides ``entries``, ``current``, ``settings``, ``backend``, ``redraw()``,
+    ``say()``, ``record()``, ``verdict_text()`` and the worker bookkeeping attributes.
+    """
+
+    # ---- analysis -----------------------------------------------------------------------
+    def wavelength_for(self, e: QueueEntry | None) -> float:
+        """The wavelength a photo is (or will be) measured at: its preset's, else the station's."""
+        if e is not None and e.measurement is not None:
+            return e.measurement.settings.wavelength_nm
+        own = self.photo_settings(e)
+        if own.get("wavelength_nm"):
+            return float(own["wavelength_nm"])
+        return self.settings.wavelength_nm
+
+    def measure_settings(self, e: QueueEntry) -> MeasureSettings:
+        s = self.settings
+        own = self.photo_settings(e)
+        return MeasureSettings(
+            wavelength_nm=float(own.get("wavelength_nm") or s.wavelength_nm),
+            n_terms=int(own.get("n_terms") or s.n_terms),
+            invert=s.invert,
+            diameter_mm=own.get("diameter_mm") or s.diameter_mm,
+            aperture=e.aperture,
+            exclusions=tuple(e.exclusions),
+        )
+
+    def start_analysis(self, index: int) -> None:
+        """Measure photo ``index`` now, cancelling whatever is running."""
+        if self._cancel is not None:
+            self._cancel.set()
+            for job in self._jobs.values():
+                if job.token == self._token and job.index != index:
+                    self._settle_stale(self.entries[job.index])
+        self._token += 1
+        e = self.entries[index]
+        e.state, e.error = "running", None
+        job = Job(
+            self._token,
+            index,
+            e.path,
+            self.measure_settings(e),
+            threading.Event(),
+            load=e.pixels is None,
+            kind=e.kind,
+            sources=e.sources,
+        )
+        self._cancel = job.cancel
+        self._jobs[self._analyse(job)] = job
+        self.say(f"Measuring {e.name}…")
+        self.query_one(StatusBar).progress(0.0)
+        self.redraw()
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="analysis")
+    def _analyse(self, job: Job):
+        if job.load:
+            pixels = self.backend.load_pixels(job.path)
+            self.post_message(PhotoLoaded(job.token, job.index, pixels))
+
+        def progress(stage: str, fraction: float) -> None:
+            if not job.cancel.is_set():
+                self.post_message(AnalysisProgress(job.token, stage, fraction))
+
+        if job.kind != "photo":
+            from .. import station_combine
+
+            combine = (station_combine.measure_average if job.kind == "average"
+                       else station_combine.measure_sequence)
+            return combine(self.backend, job.sources, job.settings, progress=progress,
+                           cancel=job.cancel)
+        return self.backend.measure(job.path, job.settings, progress=progress, cancel=job.cancel)
+
+    def on_photo_loaded(self, message: PhotoLoaded) -> None:
+        self.entries[message.index].pixels = message.pixels
+        if message.index == self.current:
+            self.redraw()
+
+    def on_analysis_progress(self, message: AnalysisProgress) -> None:
+        if message.token == self._token:
+            self.query_one(StatusBar).progress(message.fraction)
+            self.say(f"Measuring {self.entry.name}: {message.stage}")
+
+    def worker_changed(self, event: Worker.StateChanged) -> None:
+        """Every worker's end: saving, recording, reading the log, or an analysis."""
+        worker = event.worker
+        if worker.group == "save":
+            self._save_finished(worker)
+            return
+        if worker.group in ("record", "logread"):
+            if event.state in (WorkerState.SUCCESS, WorkerState.ERROR):
+                (self._record_finished if worker.group == "record" else self._log_read)(worker)
+            return
+        job = self._jobs.get(worker)
+        if job is None or event.state not in (
+            WorkerState.SUCCESS,
+            WorkerState.ERROR,
+            WorkerState.CANCELLED,
+        ):
+            return
+        del self._jobs[worker]
+        if job.token != self._token or event.state == WorkerState.CANCELLED:
+            return  # a stale run: a newer request has taken over
+        e = self.entries[job.index]
+        bar = self.query_one(StatusBar)
+        bar.progress(None)
+        if event.state == WorkerState.ERROR:
+            if isinstance(worker.error, MeasurementCancelled):
+                return
+            # the queue already names the photo: keep the message to what went wrong
+            message = describe_error(worker.error).replace(f"{job.path}: ", "")
+            e.state, e.error, e.measurement = "error", message, None
+            self.say(f"✗ {e.name}: {e.error}")
+        else:
+            m = worker.result
+            if e.kind != "photo":  # an average or a sequence: its measurement inside
+                e.combined, m = m, m.measurement
+            e.measurement, e.error = m, None
+            e.state = "warning" if m.warnings else "ok"
+            e.verdict = e.record_id = e.log_error = None
+            if self.first_figures_s is None:
+                self.first_figures_s = time.perf_counter() - self.started_s
+            self.say(self.headline(e))
+            self.record(job.index)
+        self.redraw()
+
+    def headline(self, e: QueueEntry) -> str:
+        """The status line for a measured photo: PV and RMS in the chosen units."""
+        m = e.measurement
+        wl, units = self.settings.wavelength_nm, self.settings.units
+        return (
+            f"{STATE_LABELS[e.state][0]} {e.name}: PV {fmt_height(m.figures.pv_nm, units, wl)}, "
+            f"RMS {fmt_height(m.figures.rms_nm, units, wl)}"
+            + self.verdict_text(e)
+            + (f" — {m.warnings[0]}" if m.warnings else "")
+        )
+
+    @staticmethod
+    def _settle_stale(e: QueueEntry) -> None:
+        # the operator moved on before this photo finished: show it as it was before
+        if e.state == "running":
+            m = e.measurement
+            e.state = "new" if m is None else ("warning" if m.warnings else "ok")
+
+    def _schedule_rerun(self) -> None:
+        if self._rerun_timer is not None:
+            self._rerun_timer.stop()
+        self._rerun_timer = self.set_timer(RERUN_DELAY_S, self._rerun)
+
+    def _rerun(self) -> None:
+        self._rerun_timer = None
+        if self.entry is not None:
+            self.start_analysis(self.current)
