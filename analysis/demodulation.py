@@ -251,7 +251,7 @@ def find_carrier(
 
     def refine(line: np.ndarray, i: int) -> float:
         if 0 < i < line.size - 1:
-            a, b, c = np.log(line[i - 1] + 1e-30), np.log(line[i] + 1e-30), np.log(line[i + 1] + 1e-30)
+            a, b, c = (np.log(line[j] + 1e-30) for j in (i - 1, i, i + 1))
             den = a - 2 * b + c
             if den < 0:
                 return float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
@@ -583,10 +583,6 @@ def demodulate(
     # 5. first pass: plain Takeda, to get a smooth model of the phase
     fc = (int(round(u)), int(round(v)))
     spec = sfft.fft2(filled, workers=WORKERS)
-    fu_full = sfft.fftfreq(ny, 1.0 / ny)[:, None]
-    fv_full = sfft.fftfreq(nx, 1.0 / nx)[None, :]
-    dc_window = _flat_top(np.hypot(fu_full, fv_full), 0.45 * f0_bins, 0.6)
-    background = sfft.ifft2(spec * dc_window, workers=WORKERS).real.astype(np.float32)
 
     step1 = max(step, int(size // max(64, int(3.2 * 0.6 * f0_bins))) or 1)
     while size % step1:

@@ -6,14 +6,13 @@ import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 
 from .aperture import Aperture, Exclusion
 from .demodulation import MapGeometry, Spectrum, demodulate
-from .figures import PISTON_TILT, Figures, compute_figures
 from .errors import SettingsError, UnanalysablePhotoError
+from .figures import PISTON_TILT, Figures, compute_figures
 from .unwrapping import phase_to_height_nm, unwrap
 from .zernike import ZernikeFit, fit_zernike, zernike_basis
 

@@ -53,7 +53,9 @@ def unwrap(wrapped: np.ndarray, valid: np.ndarray) -> np.ndarray:
     return phase
 
 
-def phase_to_height_nm(phase: np.ndarray, wavelength_nm: float, *, invert: bool = False) -> np.ndarray:
+def phase_to_height_nm(
+    phase: np.ndarray, wavelength_nm: float, *, invert: bool = False
+) -> np.ndarray:
     """Surface height from interferometric phase in double pass: ``h = phi * lambda / (4 pi)``.
 
     One fringe (2 pi of phase) is half a wavelength of height, because the light

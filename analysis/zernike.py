@@ -173,6 +173,13 @@ _M_NAMES = {1: "coma", 2: "astigmatism", 3: "trefoil", 4: "tetrafoil", 5: "penta
 _ORDINALS = ["primary", "secondary", "tertiary", "quaternary", "quinary"]
 
 
+def _rank_prefix(rank: int, n: int) -> str:
+    """'' for the primary term of a family, 'secondary ', 'tertiary ' ... after it."""
+    if rank == 0:
+        return ""
+    return f"{_ORDINALS[rank]} " if rank < len(_ORDINALS) else f"order-{n} "
+
+
 def term_name(j: int) -> str:
     """The trade's name for Noll term ``j``: piston, tilt, power, astigmatism, coma..."""
     n, m = noll_to_nm(j)
@@ -184,14 +191,12 @@ def term_name(j: int) -> str:
     if n == 2 and m == 0:
         return "power"
     if am == 0:
-        rank = n // 2 - 2
-        prefix = "" if rank == 0 else f"{_ORDINALS[rank]} " if rank < len(_ORDINALS) else f"order-{n} "
-        return f"{prefix}spherical"
+        return f"{_rank_prefix(n // 2 - 2, n)}spherical"
     # the lowest order that carries this azimuthal frequency is the "primary" one
     lowest = 3 if am == 1 else am
     rank = (n - lowest) // 2
     base = _M_NAMES.get(am, f"{am}-foil")
-    prefix = "" if rank == 0 else (f"{_ORDINALS[rank]} " if rank < len(_ORDINALS) else f"order-{n} ")
+    prefix = _rank_prefix(rank, n)
     if am == 1:
         axis = "x" if m > 0 else "y"
     else:

@@ -8,12 +8,11 @@ import sys
 from pathlib import Path
 from typing import TextIO
 
+from flatsight.analysis.record import flat_fields
+from flatsight.analysis.zernike import noll_to_osa, term_name
 from rich.console import Console
 from rich.table import Table
 from rich.text import Text
-
-from flatsight.analysis.record import flat_fields
-from flatsight.analysis.zernike import noll_to_osa, term_name
 
 __all__ = ["Reporter", "figures_table", "zernike_table"]
 
