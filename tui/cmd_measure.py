@@ -206,7 +206,9 @@ def run(args: argparse.Namespace) -> int:
 
     def one_line(exc: Exception, photo: str) -> int:
         if isinstance(exc, UnanalysablePhotoError):
-            print(f"flatsight measure: cannot analyse {photo}: {exc}", file=err)
+            # the library names the photo in some messages; say it once
+            where = "" if photo in str(exc) else f" {photo}"
+            print(f"flatsight measure: cannot analyse{where}: {exc}", file=err)
             return 3
         print(f"flatsight measure: error: {exc}", file=err)
         return 2
