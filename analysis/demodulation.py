@@ -24,7 +24,6 @@ R. W. Gerchberg, "Super-resolution through error energy reduction", Optica Acta 
 from __future__ import annotations
 
 import math
-import os
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -34,20 +33,24 @@ import scipy.fft as sfft
 from scipy import ndimage
 
 from .aperture import Aperture
-from .errors import MeasurementCancelled, UnanalysablePhotoError
+from .carrier import Carrier, Spectrum, crop_aperture, find_carrier, radius_grid, spectrum_view
+from .errors import UnanalysablePhotoError
+from .extension import (
+    WORKERS,
+    bright_radius,
+    check_cancel,
+    find_specks,
+    flat_top,
+    gerchberg_extend,
+)
 from .zernike import solve_least_squares, zernike_basis
 
 __all__ = ["Carrier", "Demodulated", "MapGeometry", "Spectrum", "demodulate", "find_carrier"]
 
-WORKERS = max(1, min(4, os.cpu_count() or 1))
 # Low-order model used to re-reference the second pass (Noll 1..15, radial order <= 4).
 MODEL_TERMS = 15
-CROP_MARGIN = 0.32  # crop half-size beyond the radius, as a fraction of it
-TAPER_START, TAPER_END = 1.06, 1.26  # second-pass apodisation, in aperture radii
+TAPER_END = 1.26  # how far out (in radii) the phase model is evaluated
 MIN_FRINGES = 4.0
-# measured pixels end at most this far out (in radii); a soft edge ends them sooner
-# (see _bright_radius); the local fit carries the phase out to the rim from there
-KNOWN_RHO = 0.98
 # second-pass window: radius as a share of the slowest local fringe frequency, and the
 # share of that radius over which it is flat (passes the surface unattenuated)
 W2_FRACTION, W2_FLAT = 0.7, 0.7
@@ -79,53 +82,6 @@ class MapGeometry:
         px, py = self.photo_xy()
         return ((px - aperture.center_x_px) / aperture.radius_px,
                 (aperture.center_y_px - py) / aperture.radius_px)
-
-
-@dataclass(frozen=True)
-class Spectrum:
-    """A small log-magnitude view of the photo's spectrum, centred on zero frequency.
-
-    ``carrier_rc`` (row, column) and the radii are in this image's own pixels, so a
-    view can draw the carrier and the sideband window over it directly.
-    """
-
-    log_magnitude: np.ndarray
-    carrier_rc: tuple[float, float]
-    window_radius: float
-    dc_radius: float
-
-
-@dataclass(frozen=True)
-class Carrier:
-    """The tilt carrier: spatial frequency of the straight fringes the wedge puts in.
-
-    Frequencies in cycles per photo pixel, x right and y down. By Flatsight's sign
-    convention the carrier points down the photo (``fy > 0``, or ``fy == 0`` and ``fx > 0``).
-    """
-
-    fx_cpp: float
-    fy_cpp: float
-    concentration: float  # share of the fringe energy near the sidebands (1 = clean fringes)
-
-    @property
-    def frequency_cpp(self) -> float:
-        return float(math.hypot(self.fx_cpp, self.fy_cpp))
-
-    @property
-    def period_px(self) -> float:
-        return 1.0 / self.frequency_cpp
-
-    @property
-    def angle_deg(self) -> float:
-        """Direction of the carrier from the photo's x axis toward +y (down), in [0, 180).
-
-        A carrier within about 0.2 degrees of the x axis points right and may read just
-        under 180 when it leans a hair upward.
-        """
-        return math.degrees(math.atan2(self.fy_cpp, self.fx_cpp)) % 180.0
-
-    def fringes_across(self, diameter_px: float) -> float:
-        return self.frequency_cpp * diameter_px
 
 
 @dataclass(frozen=True)
@@ -165,145 +121,6 @@ class Demodulated:
 Progress = Callable[[str, float], None]
 
 
-def _check(cancel: threading.Event | None) -> None:
-    if cancel is not None and cancel.is_set():
-        raise MeasurementCancelled("measurement cancelled")
-
-
-def _bin(image: np.ndarray, k: int, *, stride: bool = False) -> np.ndarray:
-    """Mean of each k x k block (or, with ``stride``, one pixel of each: a quick look)."""
-    if k == 1:
-        return image
-    if stride:
-        return np.ascontiguousarray(image[k // 2::k, k // 2::k])
-    h, w = (image.shape[0] // k) * k, (image.shape[1] // k) * k
-    blocks = image[:h, :w].reshape(h // k, k, w // k, k)
-    return blocks.sum(axis=3, dtype=np.float32).sum(axis=1) * np.float32(1.0 / (k * k))
-
-
-def _crop(image: np.ndarray, aperture: Aperture, k: int, *, stride: bool = False):
-    """Square crop around the aperture with a margin, padded where it leaves the frame.
-
-    Returns the binned crop, a mask of pixels that came from the photo, and the photo
-    coordinates of the binned pixel (0, 0)'s centre.
-    """
-    half = aperture.radius_px * (1.0 + CROP_MARGIN)
-    n = int(math.ceil(2 * half / k)) * k
-    x0 = int(math.floor(aperture.center_x_px - n / 2 + 0.5))
-    y0 = int(math.floor(aperture.center_y_px - n / 2 + 0.5))
-    H, W = image.shape
-    xa, xb = max(0, x0), min(W, x0 + n)
-    ya, yb = max(0, y0), min(H, y0 + n)
-    if xa >= xb or ya >= yb:
-        raise UnanalysablePhotoError("the aperture lies outside the photo")
-    if (xa, ya, xb, yb) == (x0, y0, x0 + n, y0 + n):
-        crop = image[ya:yb, xa:xb]
-        inframe = None
-    else:
-        crop = np.zeros((n, n), dtype=np.float32)
-        crop[ya - y0:yb - y0, xa - x0:xb - x0] = image[ya:yb, xa:xb]
-        inframe = np.zeros((n, n), dtype=bool)
-        inframe[ya - y0:yb - y0, xa - x0:xb - x0] = True
-    binned = _bin(np.asarray(crop, dtype=np.float32), k, stride=stride)
-    inframe_b = None if inframe is None else _bin(inframe.astype(np.float32), k) > 0.99
-    origin = (x0 + (k - 1) / 2.0, y0 + (k - 1) / 2.0)
-    if stride:
-        origin = (x0 + k // 2, y0 + k // 2)
-    return binned, inframe_b, origin
-
-
-def _radius_grid(shape, center_rc, radius) -> np.ndarray:
-    yy = np.arange(shape[0], dtype=np.float32)[:, None] - np.float32(center_rc[0])
-    xx = np.arange(shape[1], dtype=np.float32)[None, :] - np.float32(center_rc[1])
-    return np.sqrt(yy * yy + xx * xx) / np.float32(radius)
-
-
-def find_carrier(
-    spectrum_mag: np.ndarray, *, min_radius_bins: float, full: bool
-) -> tuple[float, float, float]:
-    """Peak of a magnitude spectrum away from zero frequency, with sub-bin refinement.
-
-    Parameters
-    ----------
-    spectrum_mag : (Ny, Nx) or (Ny, Nx//2+1) ndarray
-        ``|fft2|`` (``full=True``) or ``|rfft2|`` of a real image, unshifted.
-    min_radius_bins : float
-        Zero-order region to ignore, in bins.
-
-    Returns
-    -------
-    (u, v, concentration, prominence)
-        Peak position in bins (row frequency ``u``, column frequency ``v``; signed) with
-        the half-plane convention ``u > 0`` or ``u == 0, v > 0``; the share of the
-        spectrum's energy (outside the zero-order region) within half the carrier
-        frequency of either sideband; and the peak's power over the median power at
-        the same spatial frequency.
-    """
-    ny = spectrum_mag.shape[0]
-    nx = spectrum_mag.shape[1] if full else (spectrum_mag.shape[1] - 1) * 2
-    u = sfft.fftfreq(ny, 1.0 / ny)[:, None]
-    v = (sfft.fftfreq(nx, 1.0 / nx) if full else sfft.rfftfreq(nx, 1.0 / nx))[None, :]
-    r = np.hypot(u, v)
-    power = spectrum_mag.astype(np.float64) ** 2
-    power = np.where(r > min_radius_bins, power, 0.0)
-    idx = np.unravel_index(int(np.argmax(power)), power.shape)
-    pu, pv = float(u[idx[0], 0]), float(v[0, idx[1]])
-
-    def refine(line: np.ndarray, i: int) -> float:
-        if 0 < i < line.size - 1:
-            a, b, c = (np.log(line[j] + 1e-30) for j in (i - 1, i, i + 1))
-            den = a - 2 * b + c
-            if den < 0:
-                return float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
-        return 0.0
-
-    du = refine(np.roll(power[:, idx[1]], ny // 2 - idx[0])[ny // 2 - 1:ny // 2 + 2], 1)
-    dv = refine(power[idx[0], max(0, idx[1] - 1):idx[1] + 2], 1 if idx[1] > 0 else 0)
-    # the half-plane is decided on the whole-bin peak, so a sub-bin shift of a carrier
-    # lying along the x axis (fringes within about a degree of vertical) cannot flip it
-    flip = pu < 0 or (pu == 0 and pv < 0)
-    pu, pv = pu + du, pv + dv
-    f0 = math.hypot(pu, pv)
-    # share of the energy (zero order aside) within half the carrier of either sideband
-    near = (np.hypot(u - pu, v - pv) <= 0.5 * f0) | (np.hypot(u + pu, v + pv) <= 0.5 * f0)
-    total = float(power.sum())
-    concentration = float(power[near].sum() / total) if total > 0 else 0.0
-    # peak over the typical power at the same spatial frequency: straight fringes stand
-    # thousands of times above it, noise or closed (ring-spectrum) fringes a few tens
-    ring = (r > 0.8 * f0) & (r < 1.2 * f0)
-    typical = float(np.median(power[ring])) if ring.any() else 0.0
-    prominence = float(power[idx] / typical) if typical > 0 else float("inf")
-    if flip:
-        pu, pv = -pu, -pv
-    return pu, pv, concentration, prominence
-
-
-def _flat_top(dist: np.ndarray, radius: float, flat: float = 0.75) -> np.ndarray:
-    """1 inside ``flat * radius``, a raised-cosine fall to 0 at ``radius``."""
-    t = np.clip((dist - flat * radius) / ((1 - flat) * radius), 0.0, 1.0)
-    return (0.5 * (1 + np.cos(np.pi * t))).astype(np.float32)
-
-
-def _gerchberg(
-    data: np.ndarray, known: np.ndarray, band: np.ndarray, n_iter: int,
-    cancel: threading.Event | None, start: np.ndarray | None = None,
-) -> np.ndarray:
-    """Extend ``data`` beyond ``known`` as a signal limited to the spectral ``band``.
-
-    Alternately keeps only the band's frequencies and restores the measured values
-    where they are known (Gerchberg 1974; Roddier & Roddier 1987).
-    """
-    x = start.copy() if start is not None else np.where(known, data, data[known].mean())
-    x = x.astype(np.float32, copy=False)
-    for _ in range(n_iter):
-        _check(cancel)
-        f = sfft.rfft2(x, workers=WORKERS)
-        f *= band
-        y = sfft.irfft2(f, s=x.shape, workers=WORKERS)
-        x = np.where(known, data, y).astype(np.float32, copy=False)
-    return x
-
-
 def _decimated_block(f: np.ndarray, center: tuple[int, int], window: np.ndarray,
                      m: tuple[int, int]) -> np.ndarray:
     """Inverse transform of the spectrum block around ``center`` on an ``m``-sized grid.
@@ -322,95 +139,11 @@ def _decimated_block(f: np.ndarray, center: tuple[int, int], window: np.ndarray,
     return out * (my * mx) / (ny * nx)
 
 
-def _spectrum_view(mag: np.ndarray, carrier_bins: tuple[float, float], window_bins: float,
-                   dc_bins: float, size: int = 160) -> Spectrum:
-    """A centred, shrunk log-magnitude spectrum with the carrier in its own pixel units."""
-    ny, nx = mag.shape
-    shifted = np.fft.fftshift(np.log1p(mag.astype(np.float64)))
-    k = max(1, int(math.ceil(max(ny, nx) / size)))
-    h, w = (ny // k) * k, (nx // k) * k
-    small = shifted[:h, :w].reshape(h // k, k, w // k, k).max(axis=(1, 3))
-    cy, cx = (ny // 2) / k, (nx // 2) / k
-    return Spectrum(
-        log_magnitude=small.astype(np.float32),
-        carrier_rc=(cy + carrier_bins[0] / k, cx + carrier_bins[1] / k),
-        window_radius=window_bins / k,
-        dc_radius=dc_bins / k,
-    )
-
-
 def _unwrap_small(wrapped: np.ndarray, inside: np.ndarray) -> np.ndarray:
     from skimage.restoration import unwrap_phase
 
     out = unwrap_phase(np.ma.masked_array(wrapped, mask=~inside), rng=0)
     return np.ma.filled(out, np.nan)
-
-
-def _bright_radius(data: np.ndarray, rho: np.ndarray, inframe: np.ndarray | None) -> float:
-    """How far out (in aperture radii) the fringes keep their full brightness.
-
-    The mean over a thin ring averages the fringes away and leaves the edge profile: a
-    soft aperture edge (a defocused or bevelled rim) dims the fringes over a few
-    percent of the radius inside the 50 % point. Measured pixels stop where the ring
-    mean has fallen 15 % of the way from the inside level to the surround, and never
-    beyond KNOWN_RHO.
-    """
-    sel = (rho > 0.8) & (rho < 1.2)
-    if inframe is not None:
-        sel &= np.pad(inframe, ((0, rho.shape[0] - inframe.shape[0]),
-                                (0, rho.shape[1] - inframe.shape[1])))
-    bins = np.floor((rho[sel] - 0.8) / 0.005).astype(int)
-    total = np.bincount(bins, weights=data[sel], minlength=80)
-    count = np.bincount(bins, minlength=80)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        profile = total / count
-    centres = 0.8 + 0.005 * (np.arange(profile.size) + 0.5)
-    inside = np.nanmedian(profile[(centres > 0.86) & (centres < 0.92)])
-    outside = np.nanmedian(profile[(centres > 1.1) & (centres < 1.2)])
-    if not (np.isfinite(inside) and np.isfinite(outside)) or inside - outside <= 0:
-        return KNOWN_RHO
-    level = outside + 0.85 * (inside - outside)
-    below = np.flatnonzero((centres > 0.92) & (profile < level))
-    if below.size == 0:
-        return KNOWN_RHO
-    return float(np.clip(centres[below[0]] - 0.01, 0.88, KNOWN_RHO))
-
-
-def _find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: np.ndarray,
-                 rho: np.ndarray, pupil: np.ndarray, k: int) -> np.ndarray:
-    """Dust specks, scratches and dead pixels: where the photo departs from its fringe model.
-
-    The band-limited (Gerchberg) model holds the fringes, their background and a
-    harmonic; a speck is broadband and stands out of the residual. A lightly smoothed
-    residual also catches faint, semi-transparent specks a few pixels across.
-    """
-    model = sfft.irfft2(sfft.rfft2(filled, workers=WORKERS) * band, s=filled.shape,
-                        workers=WORKERS)
-    resid = data - model
-    inner = known & (rho <= 1.0)
-    specks = np.zeros_like(known)
-    # the band-limited model rings where the aperture edge cuts the fringes, so the
-    # residual's spread is judged ring by ring near the rim, not once for the disk
-    edges = np.array([0.0, 0.8, 0.86, 0.9, 0.93, 0.95, 0.97, 0.985, 1.0 + 1e-9])
-    zone = np.digitize(rho, edges) - 1
-    for smooth, level in ((0.0, 6.0), (1.2, 5.0)):
-        r = ndimage.gaussian_filter(resid, smooth) if smooth else resid
-        dev = np.zeros_like(r)
-        for z in range(edges.size - 1):
-            sel = inner & (zone == z)
-            if sel.sum() < 50:
-                continue
-            med = float(np.median(r[sel]))
-            sigma = 1.4826 * float(np.median(np.abs(r[sel] - med))) + 1e-6
-            dev[sel] = np.abs(r[sel] - med) / sigma
-        specks |= inner & (dev > level)
-    if specks.any():
-        # drop lone noise pixels, keep anything with a neighbour or far out of the noise
-        neighbours = ndimage.uniform_filter(specks.astype(np.float32), size=3) * 9 - 1
-        specks &= neighbours >= 1
-        grow = max(2, int(round(3.0 / k)) + 1)
-        specks = ndimage.binary_dilation(specks, iterations=grow) & pupil
-    return specks
 
 
 def _slowest_fringes(model_coef: np.ndarray, fc: tuple[int, int],
@@ -485,10 +218,10 @@ def demodulate(
     # 1. coarse carrier on a small copy, to choose how far to bin
     report("carrier", 0.0)
     k0 = max(1, int(diameter_px // 256))
-    coarse, _, _ = _crop(img, aperture, k0, stride=True)
+    coarse, _, _ = crop_aperture(img, aperture, k0, stride=True)
     rc = aperture.radius_px / k0
     cc = (coarse.shape[0] / 2 - 0.5, coarse.shape[1] / 2 - 0.5)
-    pupil0 = _radius_grid(coarse.shape, cc, rc) <= 1.0
+    pupil0 = radius_grid(coarse.shape, cc, rc) <= 1.0
     filled0 = np.where(pupil0, coarse - coarse[pupil0].mean(), 0.0).astype(np.float32)
     mag0 = np.abs(sfft.rfft2(filled0, workers=WORKERS))
     bins_per_cpa0 = coarse.shape[0] / (2 * rc)  # bins per cycle-per-aperture
@@ -505,16 +238,16 @@ def demodulate(
         raise UnanalysablePhotoError(
             f"fringes too dense to sample ({period0_px:.1f} px per fringe): reduce the tilt "
             "or photograph the flat larger")
-    _check(cancel)
+    check_cancel(cancel)
 
     # 2. crop and bin: keep at least ~6 binned pixels per fringe and a few hundred across
     k = max(1, min(int(period0_px // 6), int(diameter_px // max(10 * fringes0, 300))))
-    data, inframe, origin = _crop(img, aperture, k)
+    data, inframe, origin = crop_aperture(img, aperture, k)
     n = data.shape[0]
     r_b = aperture.radius_px / k
     center_rc = ((aperture.center_y_px - origin[1]) / k, (aperture.center_x_px - origin[0]) / k)
-    rho = _radius_grid(data.shape, center_rc, r_b)
-    known_rho = _bright_radius(data, rho, inframe)
+    rho = radius_grid(data.shape, center_rc, r_b)
+    known_rho = bright_radius(data, rho, inframe)
     pupil = rho <= known_rho
     if inframe is not None:
         pupil &= inframe
@@ -538,7 +271,7 @@ def demodulate(
         known = np.pad(known, ((0, pad), (0, pad)))
         pupil = np.pad(pupil, ((0, pad), (0, pad)))
         excluded = np.pad(excluded, ((0, pad), (0, pad)))
-        rho = _radius_grid(data.shape, center_rc, r_b)
+        rho = radius_grid(data.shape, center_rc, r_b)
     ny = nx = size
     bins_per_cpa = size / cpa  # FFT bins per cycle-per-aperture
 
@@ -551,7 +284,7 @@ def demodulate(
     f0_bins = math.hypot(u, v)
     fringes = f0_bins / bins_per_cpa
     report("carrier", 1.0)
-    _check(cancel)
+    check_cancel(cancel)
 
     # 4. Gerchberg extension over the zero-order and sideband regions, specks found midway
     def band_mask(radius_dc: float, radius_sb: float) -> np.ndarray:
@@ -566,17 +299,17 @@ def demodulate(
 
     band = band_mask(0.45 * f0_bins, 0.72 * f0_bins)
     n1 = max(3, gerchberg_iterations // 3)
-    filled = _gerchberg(data, known, band, n1, cancel, start)
+    filled = gerchberg_extend(data, known, band, n1, cancel, start)
     report("extension", 0.3)
-    specks = _find_specks(data, filled, band, known, rho, pupil, k)
+    specks = find_specks(data, filled, band, known, rho, pupil, k)
     if specks.any():
         # a speck makes the band-limited model ring around it, and the rings look like
         # more specks; fill the first finds, and look again with a model free of them
-        filled = _gerchberg(data, known & ~specks, band, n1, cancel,
+        filled = gerchberg_extend(data, known & ~specks, band, n1, cancel,
                             np.where(specks, filled, data))
-        specks = _find_specks(data, filled, band, known, rho, pupil, k)
+        specks = find_specks(data, filled, band, known, rho, pupil, k)
     known2 = known & ~specks
-    filled = _gerchberg(data, known2, band, gerchberg_iterations - n1, cancel,
+    filled = gerchberg_extend(data, known2, band, gerchberg_iterations - n1, cancel,
                         np.where(known2, data, filled))
     report("extension", 1.0)
 
@@ -589,7 +322,7 @@ def demodulate(
         step1 -= 1
     m1 = size // step1
     du = np.fft.ifftshift(np.arange(m1) - m1 // 2)
-    w1 = _flat_top(np.hypot(du[:, None] + (fc[0] - u), du[None, :] + (fc[1] - v)),
+    w1 = flat_top(np.hypot(du[:, None] + (fc[0] - u), du[None, :] + (fc[1] - v)),
                    0.5 * f0_bins, 0.7)
     c1 = _decimated_block(spec, fc, w1, (m1, m1))
     grid1 = np.arange(m1) * step1
@@ -607,7 +340,7 @@ def demodulate(
     basis1 = zernike_basis(MODEL_TERMS, xu1[fit_px], yu1[fit_px])
     model_coef = solve_least_squares(basis1, phase1[fit_px])
     report("first pass", 1.0)
-    _check(cancel)
+    check_cancel(cancel)
 
     f_min, along_min = _slowest_fringes(model_coef, fc, bins_per_cpa)
     if along_min <= 0.5:
@@ -665,7 +398,7 @@ def demodulate(
         """
         psi_full[region] = basis_region @ model.astype(np.float32)
         e1 = np.exp(1j * (carrier_phase + psi_full)).astype(np.complex64)
-        win = _flat_top(dist, radius_bins, W2_FLAT)
+        win = flat_top(dist, radius_bins, W2_FLAT)
 
         def local_sum(spectrum: np.ndarray) -> np.ndarray:
             return _decimated_block(spectrum, (0, 0), win, (m, m)) * (size * size) / (m * m)
@@ -710,7 +443,7 @@ def demodulate(
         return 0.5 * (sol[..., 1] - 1j * sol[..., 2])
 
     for it in range(refinements + 1):
-        _check(cancel)
+        check_cancel(cancel)
         w2_cpa = float(np.clip(W2_FRACTION * f_min, 2.0, W2_FRACTION * fringes))
         c2 = referenced(model_coef, w2_cpa * bins_per_cpa)
         report("second pass", (it + 1) / (refinements + 1))
@@ -783,7 +516,7 @@ def demodulate(
     if fringes < 10:
         warnings.append(f"only {fringes:.0f} tilt fringes across the aperture: 10 to 30 suit "
                         "this method best")
-    spectrum = _spectrum_view(np.abs(spec), (u if u < ny / 2 else u - ny, v),
+    spectrum = spectrum_view(np.abs(spec), (u if u < ny / 2 else u - ny, v),
                               0.5 * f0_bins, 0.45 * f0_bins)
     return Demodulated(
         model_phase=psi_map,
