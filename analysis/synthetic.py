@@ -28,8 +28,6 @@ R. J. Noll, "Zernike polynomials and atmospheric turbulence", JOSA 66(3), 207 (1
 
 from __future__ import annotations
 
-import os
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -37,6 +35,7 @@ import numpy as np
 from PIL import Image
 
 from .aperture import Aperture
+from .atomic import atomic_path
 from .errors import SettingsError
 from .zernike import fit_zernike, zernike, zernike_basis
 
@@ -606,16 +605,8 @@ def write_photo(
         "JPEG": {"quality": 92},
         "TIFF": {"compression": "tiff_adobe_deflate"},
     }[fmt]
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            img.save(fh, format=fmt, **options)
-        os.chmod(tmp, 0o644)  # mkstemp makes it private; a photo is for everyone to read
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+    with atomic_path(path) as tmp:
+        img.save(tmp, format=fmt, **options)
 
 
 # Accuracy targets of the issue: (floor in nm, fraction of the true value).

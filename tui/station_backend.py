@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -39,10 +40,40 @@ class StationBackend:
     save_height_map: Callable[[Any, Path], None] | None = None
 
 
-def _load_pixels(path: Path) -> np.ndarray:
-    from ..analysis.loading import load_photo
+class _LastPhoto:
+    """The photo last decoded for the fringe view, so measuring it does not decode it again.
 
-    return load_photo(path).pixels
+    Keyed by path, size and modification time: a photo rewritten on disk is read anew.
+    """
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self._key: tuple | None = None
+        self._photo: Any = None
+
+    @staticmethod
+    def _key_of(path: Path) -> tuple | None:
+        try:
+            st = Path(path).stat()
+        except OSError:
+            return None
+        return (str(path), st.st_size, st.st_mtime_ns)
+
+    def load_pixels(self, path: Path) -> np.ndarray:
+        from ..analysis.loading import load_photo
+
+        photo = load_photo(path)
+        with self._lock:
+            self._key, self._photo = self._key_of(path), photo
+        return photo.pixels
+
+    def measure(self, path: Path, settings, **kwargs):
+        from ..analysis import pipeline
+
+        key = self._key_of(path)
+        with self._lock:
+            photo = self._photo if key is not None and key == self._key else None
+        return pipeline.measure(photo if photo is not None else path, settings, **kwargs)
 
 
 def default_backend() -> StationBackend:
@@ -50,9 +81,10 @@ def default_backend() -> StationBackend:
     from ..analysis import pipeline
     from ..analysis.record import measurement_to_record, save_height_map
 
+    last = _LastPhoto()
     return StationBackend(
-        measure=pipeline.measure,
-        load_pixels=_load_pixels,
+        measure=last.measure,
+        load_pixels=last.load_pixels,
         remove_terms=pipeline.with_terms_removed,
         to_record=measurement_to_record,
         save_height_map=save_height_map,
