@@ -16,7 +16,7 @@ from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
-from .options import wavelength_type
+from .options import circle_type, wavelength_type
 from .record_options import add_record_options
 
 __all__ = ["FolderWatcher", "add_parser", "measure_photo", "run"]
@@ -47,6 +47,14 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     w.add_argument("--terms", type=int, metavar="N", default=None,
                    help="Zernike terms to fit (Noll, default 36)")
     w.add_argument("--invert", action="store_true", help="flip the sign of the surface")
+    w.add_argument("--aperture", type=circle_type, metavar="X,Y,R",
+                   help="clear aperture in photo pixels (x right, y down) for every photo; "
+                        "default: found in each photo")
+    w.add_argument("--exclude", type=circle_type, metavar="X,Y,R", action="append",
+                   default=[], help="leave a circle out of every photo; repeatable")
+    w.add_argument("--save-map", metavar="FILE", default=None,
+                   help="write each height map (.npy or .tif); put {name} in FILE for the "
+                        "photo's name, e.g. maps/{name}.npy")
     add_record_options(w)
     w.add_argument("--existing", action="store_true",
                    help="also measure the photos already in the folder")
@@ -153,16 +161,32 @@ class FolderWatcher:
 
 def measure_photo(path: Path, args: argparse.Namespace) -> dict:
     """Measure one photo with the watch's settings; the record of ``measure --json``."""
+    from ..analysis.aperture import Aperture, Exclusion
+    from ..analysis.errors import SettingsError
     from ..analysis.pipeline import MeasureSettings, measure
-    from ..analysis.record import measurement_to_record
+    from ..analysis.record import measurement_to_record, save_height_map
 
+    aperture = getattr(args, "aperture", None)
     settings = MeasureSettings(
         wavelength_nm=float(args.wavelength),
         n_terms=int(args.terms) if args.terms is not None else 36,
         invert=bool(args.invert),
         diameter_mm=float(args.diameter) if args.diameter is not None else None,
+        aperture=Aperture(*aperture) if aperture else None,
+        exclusions=tuple(Exclusion(*c) for c in getattr(args, "exclude", []) or []),
     )
-    return measurement_to_record(measure(str(path), settings))
+    m = measure(str(path), settings)
+    record = measurement_to_record(m)
+    template = getattr(args, "save_map", None)
+    if template:
+        target = Path(template.replace("{name}", path.stem))
+        try:
+            save_height_map(m, target)
+        except OSError as exc:
+            raise SettingsError(f"cannot write the height map {target}: "
+                                f"{exc.strerror or exc}") from None
+        record["height_map_path"] = str(target.resolve())
+    return record
 
 
 class _Stop(Exception):
@@ -232,6 +256,13 @@ def run(args: argparse.Namespace) -> int:
         if not folder.is_dir():
             raise SettingsError(f"{folder} is not a folder: give the folder the camera "
                                 "writes into")
+        if args.save_map:
+            if "{name}" not in args.save_map:
+                raise SettingsError("--save-map needs {name} in it, one map per photo (e.g. "
+                                    "maps/{name}.npy)")
+            if Path(args.save_map).expanduser().resolve().parent == folder.resolve():
+                raise SettingsError("--save-map must write outside the watched folder, or "
+                                    "each map would be taken for a new photo")
         for name, value in (("--interval", args.interval), ("--settle", args.settle)):
             if not value >= 0:
                 raise SettingsError(f"{name} must be zero or more seconds")

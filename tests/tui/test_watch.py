@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import io
 import os
+import shutil
 import signal
 import subprocess
 import sys
@@ -158,3 +159,33 @@ def test_ctrl_c_stops_cleanly(tmp_path):
     assert proc.returncode == 0
     assert "watch stopped (ctrl+c): 0 photos" in out
     assert "Traceback" not in err and "Traceback" not in out
+
+
+def test_watch_applies_aperture_exclusions_and_saves_maps(tmp_path, photo_set):
+    # The options `measure` has for one photo apply to every photo the watch sees.
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    maps = tmp_path / "maps"
+    maps.mkdir()
+    shutil.copy(photo_set.good_png, folder / "BW-FL-0100.png")
+    ap = photo_set.good.aperture
+    parser = argparse.ArgumentParser()
+    sub = parser.add_subparsers()
+    cmd_watch.add_parser(sub)
+    args = parser.parse_args([
+        "watch", str(folder), "--wavelength", "632.8", "--existing", "--no-log",
+        "--max-files", "1", "--interval", "0.05", "--settle", "0",
+        "--aperture", f"{ap.center_x_px},{ap.center_y_px},{ap.radius_px}",
+        "--exclude", f"{ap.center_x_px},{ap.center_y_px},{0.1 * ap.radius_px}",
+        "--save-map", str(maps / "{name}.npy"),
+    ])
+    record = cmd_watch.measure_photo(folder / "BW-FL-0100.png", args)
+    assert record["aperture"]["source"] == "given"
+    assert record["aperture"]["radius_px"] == pytest.approx(ap.radius_px, abs=0.01)
+    assert len(record["aperture"]["exclusions"]) == 1
+    saved = np.load(maps / "BW-FL-0100.npy")
+    assert saved.ndim == 2 and np.isfinite(saved).any()
+    # a map written into the watched folder would be taken for a new photo: refused
+    bad = parser.parse_args(["watch", str(folder), "--wavelength", "632.8", "--no-log",
+                             "--save-map", str(folder / "{name}.tif")])
+    assert cmd_watch.run(bad) == 2
