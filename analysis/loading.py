@@ -25,6 +25,7 @@ __all__ = [
     "is_photo_path",
     "load_photo",
     "photo_from_array",
+    "photos_in",
 ]
 
 #: Formats Flatsight decodes; anything else is refused with a message naming them.
@@ -78,6 +79,11 @@ class FringePhoto:
 def is_photo_path(path: str | os.PathLike) -> bool:
     """True when the file name ends in .png, .jpg, .jpeg, .tif or .tiff (any case)."""
     return Path(path).suffix.lower() in PHOTO_SUFFIXES
+
+
+def photos_in(folder: str | os.PathLike) -> list[Path]:
+    """The photos directly inside ``folder`` (by :func:`is_photo_path`), sorted by name."""
+    return sorted(p for p in Path(folder).iterdir() if p.is_file() and is_photo_path(p))
 
 
 def load_photo(path: str | os.PathLike) -> FringePhoto:

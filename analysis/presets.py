@@ -33,7 +33,8 @@ from pathlib import Path
 from .errors import SettingsError
 from .tolerances import parse_tolerance
 
-__all__ = ["Preset", "default_presets_path", "get_preset", "load_presets", "preset_for_photo"]
+__all__ = ["Preset", "PresetsFile", "default_presets_path", "get_preset", "load_presets",
+           "load_presets_file", "preset_for_photo"]
 
 
 @dataclass(frozen=True)
@@ -160,14 +161,30 @@ def _load(path: str | Path | None = None) -> tuple[dict[str, Preset], dict[str, 
     return presets, dict(photos)
 
 
+@dataclass(frozen=True)
+class PresetsFile:
+    """A presets file read once: its presets by name and its ``[photos]`` patterns."""
+
+    presets: dict[str, Preset]
+    patterns: dict[str, str]
+
+    def for_photo(self, photo: str | Path) -> Preset | None:
+        """The preset the first matching ``[photos]`` pattern gives the photo's name."""
+        name = Path(photo).name
+        for pattern, preset in self.patterns.items():
+            if fnmatch.fnmatch(name, pattern):
+                return self.presets[preset]
+        return None
+
+
+def load_presets_file(path: str | Path) -> PresetsFile:
+    """Read a presets file once, for choosing presets photo by photo."""
+    return PresetsFile(*_load(path))
+
+
 def preset_for_photo(photo: str | Path, *, path: str | Path) -> Preset | None:
     """The preset the ``[photos]`` table of ``path`` gives a photo's file name, or None."""
-    presets, patterns = _load(path)
-    name = Path(photo).name
-    for pattern, preset in patterns.items():
-        if fnmatch.fnmatch(name, pattern):
-            return presets[preset]
-    return None
+    return load_presets_file(path).for_photo(photo)
 
 
 def get_preset(name: str, *, path: str | Path | None = None) -> Preset:

@@ -67,6 +67,7 @@ class FlatsightStation(App):
     ) -> None:
         super().__init__()
         self.presets_file = presets_file
+        self._photo_presets = None  # the presets file, read at the first photo
         self.recorder = recorder
         self.preset = preset
         self.entries = [self.make_entry(Path(p)) for p in photos]
@@ -84,12 +85,14 @@ class FlatsightStation(App):
         entry = QueueEntry(path)
         if self.presets_file is not None:
             from ..analysis.errors import SettingsError
-            from ..analysis.presets import preset_for_photo
+            from ..analysis.presets import PresetsFile, load_presets_file
 
-            try:
-                preset = preset_for_photo(path, path=self.presets_file)
-            except SettingsError:
-                preset = None  # the file was checked at start; a later edit is ignored
+            if self._photo_presets is None:  # read the file once, for every photo
+                try:
+                    self._photo_presets = load_presets_file(self.presets_file)
+                except SettingsError:  # checked at start; a later bad edit is ignored
+                    self._photo_presets = PresetsFile({}, {})
+            preset = self._photo_presets.for_photo(path)
             if preset is not None:
                 entry.preset_source = preset
                 entry.preset = {"wavelength_nm": preset.wavelength_nm,

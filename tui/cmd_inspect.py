@@ -7,7 +7,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from .options import EXIT_CODES, wavelength_type
+from .options import EXIT_CODES, expand_photos, wavelength_type
 from .record_options import add_record_options
 
 HELP = "open the inspection station (a keyboard-driven terminal app)"
@@ -116,20 +116,15 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
 
 
 def expand(items: list[str]) -> tuple[list[Path], list[str]]:
-    """Photo paths from files and folders, and one-line problems for names that hold none."""
-    from .screens.open_screen import photos_in
+    """Photo paths from files, folders and globs, and one-line problems for names that hold none.
 
+    A photo that is there but unreadable shows as an error in the queue, not here.
+    """
+    found, problems = expand_photos(items)
     paths: list[Path] = []
-    problems: list[str] = []
-    for item in items:
-        p = Path(item)
-        if p.is_dir():
-            found = photos_in(p)
-            if not found:
-                problems.append(f"{item}: folder holds no PNG, JPEG or TIFF photos")
-            paths.extend(found)
-        elif p.exists():
-            paths.append(p)  # a bad photo shows as an error in the queue, not here
+    for item in found:
+        if Path(item).exists():
+            paths.append(Path(item))
         else:
             problems.append(f"{item}: no such file or folder")
     return paths, problems

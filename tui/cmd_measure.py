@@ -3,13 +3,11 @@
 from __future__ import annotations
 
 import argparse
-import glob
-import os
 import sys
 from pathlib import Path
 
 from .multi_options import add_multi_options
-from .options import EXIT_CODES, circle_type, wavelength_type
+from .options import EXIT_CODES, circle_type, expand_photos, wavelength_type
 from .record_options import add_record_options
 
 HELP = "measure fringe photos: PV, RMS, PVr, power, irregularity"
@@ -77,33 +75,6 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     return p
 
 
-def expand_photos(items: list[str]) -> tuple[list[str], list[str]]:
-    """Files to measure from the command line's files, folders and globs.
-
-    Returns the paths (in the order given, folders and globs sorted) and one-line
-    problems for entries that name nothing.
-    """
-    from flatsight.analysis.loading import is_photo_path
-
-    paths: list[str] = []
-    problems: list[str] = []
-    for item in items:
-        if os.path.isdir(item):
-            found = sorted(str(p) for p in Path(item).iterdir()
-                           if p.is_file() and is_photo_path(p))
-            if not found:
-                problems.append(f"{item}: folder holds no PNG, JPEG or TIFF photos")
-            paths.extend(found)
-        elif not os.path.exists(item) and glob.has_magic(item):
-            found = sorted(p for p in glob.glob(item) if os.path.isfile(p) and is_photo_path(p))
-            if not found:
-                problems.append(f"{item}: no photos match")
-            paths.extend(found)
-        else:
-            paths.append(item)  # loading reports a missing or unreadable file
-    return paths, problems
-
-
 def _settings(args: argparse.Namespace):
     from flatsight.analysis.aperture import Aperture, Exclusion
     from flatsight.analysis.pipeline import MeasureSettings
@@ -148,10 +119,8 @@ def run(args: argparse.Namespace) -> int:
         file's ``[photos]`` table gives its name; options on the command line still win.
         """
         chosen = None
-        if photo is not None and not args.preset and args.presets:
-            from flatsight.analysis.presets import preset_for_photo
-
-            chosen = preset_for_photo(photo, path=args.presets)
+        if photo is not None and presets_file is not None:
+            chosen = presets_file.for_photo(photo)
         a = apply_preset(args, preset=chosen)
         if a.wavelength is None:
             where = f" for {photo}" if photo else ""
@@ -162,11 +131,13 @@ def run(args: argparse.Namespace) -> int:
         return a, _settings(a)
 
     per_photo = bool(args.presets and not args.preset)
+    presets_file = None
     try:
         if per_photo:
-            from flatsight.analysis.presets import load_presets
+            from flatsight.analysis.presets import load_presets_file
 
-            load_presets(args.presets)  # a bad presets file fails before any photo
+            # read once; a bad presets file fails before any photo
+            presets_file = load_presets_file(args.presets)
         else:
             args, settings = photo_args(None)
     except (SettingsError, argparse.ArgumentTypeError, ValueError) as exc:

@@ -135,7 +135,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
 
 
 def _frames(items: list[str]) -> list[str]:
-    from .cmd_measure import expand_photos
+    from .options import expand_photos
 
     paths, problems = expand_photos(items)
     if problems:

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import glob
+import os
 
-__all__ = ["SPECTRAL_LINES", "parse_wavelength", "parse_circle", "wavelength_type",
+__all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle", "wavelength_type",
            "circle_type", "EXIT_CODES"]
 
 # Wavelengths in air of the usual test sources (common practice; references.md).
@@ -67,3 +69,29 @@ def _argtype(fn, name):
 
 wavelength_type = _argtype(parse_wavelength, "wavelength")
 circle_type = _argtype(parse_circle, "circle")
+
+
+def expand_photos(items: list[str]) -> tuple[list[str], list[str]]:
+    """Files to measure from the command line's files, folders and globs.
+
+    Returns the paths (in the order given, folders and globs sorted) and one-line
+    problems for entries that name nothing.
+    """
+    from flatsight.analysis.loading import is_photo_path, photos_in
+
+    paths: list[str] = []
+    problems: list[str] = []
+    for item in items:
+        if os.path.isdir(item):
+            found = [str(p) for p in photos_in(item)]
+            if not found:
+                problems.append(f"{item}: folder holds no PNG, JPEG or TIFF photos")
+            paths.extend(found)
+        elif not os.path.exists(item) and glob.has_magic(item):
+            found = sorted(p for p in glob.glob(item) if os.path.isfile(p) and is_photo_path(p))
+            if not found:
+                problems.append(f"{item}: no photos match")
+            paths.extend(found)
+        else:
+            paths.append(item)  # loading reports a missing or unreadable file
+    return paths, problems

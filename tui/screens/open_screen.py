@@ -11,14 +11,9 @@ from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import DirectoryTree, Static
 
-__all__ = ["OpenScreen", "PhotoTree", "PHOTO_SUFFIXES", "photos_in"]
+from ...analysis.loading import is_photo_path, photos_in
 
-PHOTO_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff")
-
-
-def photos_in(folder: Path) -> list[Path]:
-    """The photos directly inside ``folder``, sorted by name."""
-    return sorted(p for p in folder.iterdir() if p.is_file() and p.suffix.lower() in PHOTO_SUFFIXES)
+__all__ = ["OpenScreen", "PhotoTree", "photos_in"]
 
 
 class PhotoTree(DirectoryTree):
@@ -28,7 +23,7 @@ class PhotoTree(DirectoryTree):
         return [
             p
             for p in paths
-            if not p.name.startswith(".") and (p.is_dir() or p.suffix.lower() in PHOTO_SUFFIXES)
+            if not p.name.startswith(".") and (p.is_dir() or is_photo_path(p))
         ]
 
 
