@@ -29,6 +29,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .version import flatsight_version
 from .zernike import noll_to_nm, osa_to_noll, term_name, zernike_basis
 
 __all__ = [
@@ -39,6 +40,7 @@ __all__ = [
     "map_colours",
     "map_grid",
     "map_png",
+    "software",
     "surface_map",
 ]
 
@@ -156,6 +158,7 @@ def map_png(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> bytes:
     pixel per map pixel when the map is made from the Zernike fit.
     """
     from PIL import Image, ImageDraw
+    from PIL.PngImagePlugin import PngInfo
 
     h, _ = surface_map(record, size_px=size_px)
     if h.shape != (size_px, size_px):  # a saved map: pad to a square, then fit it in
@@ -191,8 +194,10 @@ def map_png(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> bytes:
         draw.line((bar_x + bar, y, bar_x + bar + 4, y), fill=(40, 40, 40))
         draw.text((bar_x + bar + 7, y), f"{value:+.1f} nm" if value else "0 nm",
                   fill=(20, 20, 20), font=font, anchor="lm")
+    info = PngInfo()  # the PNG's own Software field, read by image viewers and exiftool
+    info.add_text("Software", software(record))
     buf = io.BytesIO()
-    canvas.save(buf, format="PNG", optimize=True)
+    canvas.save(buf, format="PNG", optimize=True, pnginfo=info)
     return buf.getvalue()
 
 
@@ -259,6 +264,22 @@ def _when(stamp) -> str | None:
     return str(stamp).replace("T", " ").split(".")[0].removesuffix("Z") + " UTC"
 
 
+def software(record: Mapping) -> str:
+    """Which Flatsight measured the record, and which wrote the certificate when that differs.
+
+    The record's ``flatsight_version`` is the version that measured; a certificate
+    written later by another version says so, so the page never hides a change of
+    software between measurement and report.
+    """
+    measured = record.get("flatsight_version")
+    writer = flatsight_version()
+    if not measured:
+        return f"Flatsight version not recorded; certificate by Flatsight {writer}"
+    if measured == writer:
+        return f"Flatsight {measured}"
+    return f"measured with Flatsight {measured}; certificate by Flatsight {writer}"
+
+
 def _facts(record: Mapping) -> str:
     ap = record.get("aperture") or {}
     settings = record.get("settings") or {}
@@ -273,6 +294,7 @@ def _facts(record: Mapping) -> str:
         ("Aperture", (f"{_fmt(settings.get('diameter_mm'), 1)} mm diameter"
                       if settings.get("diameter_mm") else
                       f"radius {_fmt(ap.get('radius_px'), 1)} px in the photo")),
+        ("Software", software(record)),
     ]
     body = "".join(f"<tr><th>{_e(k)}</th><td>{_e(v if v is not None else '—')}</td></tr>"
                    for k, v in rows)
@@ -394,7 +416,7 @@ def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None) -> 
 <h1>Surface flatness certificate</h1>
 <p class="sub">{_e(part)} · record {_e(record.get('record_id', '—'))} ·
 measured {_e(_when(record.get('logged_utc')) or '—')} ·
-Flatsight {_e(record.get('flatsight_version', ''))}
+{_e(software(record))}
 </p>
 </header>
 <section class="verdict {verdict or 'none'}" id="verdict">

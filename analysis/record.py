@@ -5,7 +5,6 @@ from __future__ import annotations
 import io
 import math
 import os
-from importlib import metadata
 from pathlib import Path
 
 import numpy as np
@@ -14,6 +13,7 @@ from .atomic import atomic_path, atomic_write_bytes
 from .errors import SettingsError
 from .figures import to_fringes, to_waves
 from .pipeline import Measurement
+from .version import flatsight_version
 
 __all__ = ["RECORD_SCHEMA", "SIGN_CONVENTION", "measurement_to_record", "save_height_map",
            "flat_fields"]
@@ -24,13 +24,6 @@ SIGN_CONVENTION = (
     "(right for vertical fringes): the wedge is assumed wider toward the top (left); "
     "positive = high point on the part" )
 _WAVE_FIELDS = ("pv", "rms", "pvr", "power", "irregularity", "astigmatism")
-
-
-def _version() -> str:
-    try:
-        return metadata.version("flatsight")
-    except metadata.PackageNotFoundError:  # pragma: no cover - running from a bare tree
-        return "unknown"
 
 
 def _num(value: float | None, digits: int = 4) -> float | None:
@@ -53,7 +46,7 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
     lam = m.settings.wavelength_nm
     rec: dict = {
         "schema": RECORD_SCHEMA,
-        "flatsight_version": _version(),
+        "flatsight_version": flatsight_version(),
         "photo": m.photo,
         "photo_sha256": m.photo_sha256,
         "wavelength_nm": lam,

@@ -11,6 +11,7 @@ import importlib
 import os
 import sys
 
+from ..analysis.version import flatsight_version
 from .options import EXIT_CODES
 
 # (module, one-line summary) in the order a shop uses them
@@ -50,13 +51,12 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     pkg = __package__ or "flatsight.tui"
-    try:
-        from importlib.metadata import version
-
-        ver = version("flatsight")
-    except Exception:  # pragma: no cover - bare source tree
-        ver = "unknown"
-    parser.add_argument("--version", action="version", version=f"flatsight {ver}")
+    parser.add_argument(
+        "--version",
+        action="version",
+        version=f"flatsight {flatsight_version()}",
+        help="print the installed version and exit",
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND",
                                 parser_class=OneLineParser)
     for name in COMMANDS:

@@ -14,6 +14,7 @@ from flatsight.analysis import certificate
 from flatsight.analysis.colormap import diverging_rgb
 from flatsight.analysis.figures import compute_figures
 from flatsight.analysis.tolerances import evaluate, parse_tolerance, spec_section
+from flatsight.analysis.version import flatsight_version
 from flatsight.analysis.zernike import ZernikeFit, zernike_basis
 from PIL import Image
 
@@ -92,6 +93,24 @@ def test_html_is_self_contained_with_verdict_and_map():
 def test_no_tolerance_says_so():
     page = certificate.certificate_html(make_record(spec=None))
     assert 'class="verdict none"' in page and "NO TOLERANCE" in page
+
+
+def test_the_certificate_names_the_version_that_measured():
+    rec = make_record() | {"flatsight_version": flatsight_version()}
+    page = certificate.certificate_html(rec)
+    assert f"<th>Software</th><td>Flatsight {flatsight_version()}</td>" in page
+    assert "certificate by" not in page  # measured and written by the same version
+    png = Image.open(io.BytesIO(certificate.map_png(rec)))
+    assert png.text["Software"] == f"Flatsight {flatsight_version()}"
+
+
+def test_a_record_from_another_version_says_both():
+    now = flatsight_version()
+    page = certificate.certificate_html(make_record() | {"flatsight_version": "0.0.9"})
+    assert f"measured with Flatsight 0.0.9; certificate by Flatsight {now}" in page
+    # a record written before records carried a version says so rather than guessing
+    page = certificate.certificate_html(make_record())
+    assert f"Flatsight version not recorded; certificate by Flatsight {now}" in page
 
 
 def test_map_colours_match_the_colour_map_at_known_pixels():

@@ -15,6 +15,7 @@ from flatsight.analysis import record as record_module
 from flatsight.analysis.errors import SettingsError
 from flatsight.analysis.pipeline import MeasureSettings, measure
 from flatsight.analysis.record import flat_fields, measurement_to_record, save_height_map
+from flatsight.analysis.version import flatsight_version
 from flatsight.analysis.zernike import noll_to_osa
 from PIL import Image
 
@@ -47,6 +48,7 @@ def test_record_has_every_field_the_issue_lists(rec, photo_set):
     assert set(q) >= {"carrier_fringes", "resolution_cycles_per_aperture", "mean_modulation",
                       "masked_fraction"}
     assert isinstance(rec["warnings"], list)
+    assert rec["flatsight_version"] == flatsight_version()
 
 
 def test_record_values_agree_with_the_measurement(rec, measured):

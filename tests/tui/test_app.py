@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 from flatsight.analysis.pipeline import with_terms_removed
 from flatsight.analysis.record import measurement_to_record
+from flatsight.analysis.version import flatsight_version
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings, load_settings
 from flatsight.tui.screens.bench import RERUN_DELAY_S, BenchScreen
@@ -305,6 +306,9 @@ async def test_save_writes_the_record_the_map_and_a_summary(tmp_path):
         np.testing.assert_allclose(saved, m.height_nm, rtol=1e-6, equal_nan=True)
         summary = (out / "BW-FL-0412.summary.txt").read_text(encoding="utf-8")
         assert f"{m.figures.pv_nm:.1f} nm" in summary and "power also removed" in summary
+        # both files name the Flatsight that measured, for whoever reads them later
+        assert record["flatsight_version"] == flatsight_version()
+        assert f"\nflatsight      {flatsight_version()}\n" in summary
         assert sorted(p.name for p in out.iterdir()) == [
             "BW-FL-0412.flatsight.json",
             "BW-FL-0412.height.npy",

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from ...analysis.version import flatsight_version
 from ...analysis.zernike import term_name
 from .units import fmt_height
 
@@ -53,6 +54,7 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
     a = m.aperture
     out = [
         "Flatsight measurement summary",
+        f"flatsight      {flatsight_version()}",
         f"photo          {m.photo}",
     ]
     if m.photo_sha256:
