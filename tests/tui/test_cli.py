@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import subprocess
 import sys
+from pathlib import Path
 
 from flatsight.analysis.version import flatsight_version
 from flatsight.tui.cli import main
@@ -16,9 +17,11 @@ def test_version_prints_the_package_version(capsys):
 
 
 def test_version_from_a_fresh_process():
-    # as a shop's IT person would check an install: the module, not this test process
+    # as a shop's IT person would check an install: the environment's own console script
+    exe = Path(sys.executable).with_name("flatsight")
+    command = [str(exe)] if exe.exists() else [sys.executable, "-m", "flatsight.tui.cli"]
     done = subprocess.run(
-        [sys.executable, "-m", "flatsight.tui.cli", "--version"],
+        command + ["--version"],
         capture_output=True,
         text=True,
         timeout=60,

@@ -14,7 +14,6 @@ import csv
 import io
 import json
 import os
-import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -271,8 +270,10 @@ def test_no_command_shows_help(capsys):
 
 @pytest.mark.slow
 def test_console_command(photo_set, tmp_path):
-    exe = shutil.which("flatsight")
-    command = [exe] if exe else [sys.executable, "-m", "flatsight.tui.cli"]
+    # the console script of the environment running the tests (.venv/bin is seldom on
+    # PATH, and a `flatsight` found there may be another install)
+    exe = Path(sys.executable).with_name("flatsight")
+    command = [str(exe)] if exe.exists() else [sys.executable, "-m", "flatsight.tui.cli"]
     env = dict(os.environ, HOME=str(tmp_path), XDG_DATA_HOME=str(tmp_path / "data"),
                XDG_CONFIG_HOME=str(tmp_path / "config"), COLUMNS="120")
     env.pop("FLATSIGHT_DEBUG", None)
