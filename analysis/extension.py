@@ -18,13 +18,10 @@ from scipy import ndimage
 
 from .errors import MeasurementCancelled
 
-__all__ = ["KNOWN_RHO", "WORKERS", "bright_radius", "check_cancel", "find_specks",
-           "flat_top", "gerchberg_extend"]
+__all__ = ["WORKERS", "check_cancel", "find_specks", "flat_top", "fringe_envelope",
+           "gerchberg_extend"]
 
 WORKERS = max(1, min(4, os.cpu_count() or 1))
-# measured pixels end at most this far out (in radii); a soft edge ends them sooner
-# (see bright_radius); the local fit carries the phase out to the rim from there
-KNOWN_RHO = 0.98
 
 
 def check_cancel(cancel: threading.Event | None) -> None:
@@ -56,36 +53,6 @@ def gerchberg_extend(
         y = sfft.irfft2(f, s=x.shape, workers=WORKERS)
         x = np.where(known, data, y).astype(np.float32, copy=False)
     return x
-
-
-def bright_radius(data: np.ndarray, rho: np.ndarray, inframe: np.ndarray | None) -> float:
-    """How far out (in aperture radii) the fringes keep their full brightness.
-
-    The mean over a thin ring averages the fringes away and leaves the edge profile: a
-    soft aperture edge (a defocused or bevelled rim) dims the fringes over a few
-    percent of the radius inside the 50 % point. Measured pixels stop where the ring
-    mean has fallen 15 % of the way from the inside level to the surround, and never
-    beyond KNOWN_RHO.
-    """
-    sel = (rho > 0.8) & (rho < 1.2)
-    if inframe is not None:
-        sel &= np.pad(inframe, ((0, rho.shape[0] - inframe.shape[0]),
-                                (0, rho.shape[1] - inframe.shape[1])))
-    bins = np.floor((rho[sel] - 0.8) / 0.005).astype(int)
-    total = np.bincount(bins, weights=data[sel], minlength=80)
-    count = np.bincount(bins, minlength=80)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        profile = total / count
-    centres = 0.8 + 0.005 * (np.arange(profile.size) + 0.5)
-    inside = np.nanmedian(profile[(centres > 0.86) & (centres < 0.92)])
-    outside = np.nanmedian(profile[(centres > 1.1) & (centres < 1.2)])
-    if not (np.isfinite(inside) and np.isfinite(outside)) or inside - outside <= 0:
-        return KNOWN_RHO
-    level = outside + 0.85 * (inside - outside)
-    below = np.flatnonzero((centres > 0.92) & (profile < level))
-    if below.size == 0:
-        return KNOWN_RHO
-    return float(np.clip(centres[below[0]] - 0.01, 0.88, KNOWN_RHO))
 
 
 def find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: np.ndarray,
@@ -125,3 +92,64 @@ def find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: n
     return specks
 
 
+
+
+def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
+                    *, inner: float = 0.85) -> tuple[np.ndarray, np.ndarray]:
+    """The fringes' local mean and half-amplitude, following the aperture's soft edge.
+
+    The light is a smooth illumination (a quadratic fitted over the inner disk, where
+    the fringes average out) times an edge profile that depends on the radius only.
+    The profile of the mean and of the half-amplitude are read ring by ring from the
+    upper and lower envelope of the photo divided by the illumination (its 95th and
+    5th percentiles, which the fringes reach on every ring whatever their direction).
+    Dividing the photo by them leaves fringes of constant mean and amplitude out to
+    the rim, so the local fit no longer rings against a fading edge.
+
+    Returns
+    -------
+    mean, half : (S, S) ndarrays
+        Local mean and half peak-to-peak of the fringes; outside the data, the rim's.
+    """
+    yy, xx = np.indices(data.shape, dtype=np.float64)
+    sel = known & (rho <= inner)
+    scale = float(max(data.shape))
+    y0, x0 = yy / scale, xx / scale
+
+    def design(ix):
+        y, x = y0[ix], x0[ix]
+        return np.stack([np.ones_like(x), x, y, x * x, x * y, y * y], axis=1)
+
+    coef, *_ = np.linalg.lstsq(design(sel), data[sel].astype(np.float64), rcond=None)
+    illum = (np.stack([np.ones_like(x0), x0, y0, x0 * x0, x0 * y0, y0 * y0], axis=-1)
+             @ coef)
+    illum = np.maximum(illum, 1e-6 * max(float(np.max(illum)), 1e-12))
+    q = data / illum
+    width = 0.01
+    edges = np.arange(inner - 0.1, 1.0 + width, width)
+    centres, upper, lower = [], [], []
+    for lo in edges:
+        ring = known & (rho >= lo) & (rho < lo + width)
+        if ring.sum() < 64:
+            continue
+        v = q[ring]
+        centres.append(lo + 0.5 * width)
+        upper.append(np.percentile(v, 95))
+        lower.append(np.percentile(v, 5))
+    if len(centres) < 4:
+        mean = illum * np.median(q[sel])
+        return mean, 0.5 * (np.percentile(q[sel], 95) - np.percentile(q[sel], 5)) * illum
+    centres = np.asarray(centres)
+    upper, lower = np.asarray(upper), np.asarray(lower)
+    # below `inner` the profile is flat: use the inner rings' median there
+    flat = centres < inner
+    up0, lo0 = np.median(upper[flat]), np.median(lower[flat])
+    upper[flat], lower[flat] = up0, lo0
+    r = np.clip(rho, centres[0], centres[-1])
+    up = np.interp(r, centres, upper)
+    lo = np.interp(r, centres, lower)
+    up = np.where(rho < inner, up0, up)
+    lo = np.where(rho < inner, lo0, lo)
+    mean = 0.5 * (up + lo) * illum
+    half = np.maximum(0.5 * (up - lo), 1e-3 * (up0 - lo0)) * illum
+    return mean, half

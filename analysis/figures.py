@@ -1,49 +1,83 @@
-"""Flatness figures from a height map and its Zernike fit: PV, RMS, PVr, power, irregularity.
+"""Flatness figures from a height map: PV, RMS, PVr, power, irregularity and ISO 10110-5's C.
 
-Every figure is taken over the measured pixels of the full clear aperture with
-piston and tilt removed (and whatever other terms the caller removes).
+How the figures are taken (the text the README, ``--help`` and certificates repeat)
+---------------------------------------------------------------------------------
+Every figure is taken over the whole clear aperture with piston and tilt removed. Where
+the photo could not be measured (specks, exclusions) a 45-term Zernike fit of the
+measured pixels stands in.
+
+* **PV, irregularity (B), C** are peak-to-valley figures, and a PV is decided by a
+  handful of pixels: one noisy pixel at the rim would decide a verdict. They are
+  therefore taken over the *filtered map*: the 45-term Zernike fit plus what the
+  measured map departs from it, smoothed (Gaussian) at the method's resolution,
+  the finest detail the fringes can carry. Noise finer than that resolution cannot be
+  told from the surface, so nothing real is lost. The raw PV of the unfiltered map is
+  kept as ``pv_raw_nm``.
+* **Irregularity (B)** is the PV after piston, tilt and power are removed, astigmatism
+  included (ISO 10110-5, read as ISO 14999-4 describes, from memory).
+* **C** is the PV of the rotationally symmetric part beyond power: the filtered map's
+  mean around each circle about the centre, less its best fit by ``a + b rho^2``.
+* **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map with piston and tilt, then power
+  too, removed; RMSa is the RMS of what is left after the mean around each circle is
+  taken out (the non-rotationally-symmetric part).
+* **PVr** (Evans 2009): the PV of a fit by the 36 terms of the Fringe set, plus three
+  times the RMS of what that fit leaves over the measured pixels, with the map's noise
+  (measured from its fine-scale roughness) taken out of that RMS in quadrature.
+* **Power** is the sag of the best-fit sphere from edge to centre, ``-2 sqrt(3) a4``,
+  positive when the centre stands high; **astigmatism** the PV of Noll 5 and 6.
 
 References
 ----------
 C. J. Evans, "PVr - a robust amplitude parameter for optical surface specification",
 Opt. Eng. 48(4), 043605 (2009).
-ISO 10110-5 (surface form tolerances) and ISO 14999-4 (their interpretation): power is
-the sag of the best-fit sphere, irregularity the PV left after it is removed.
+ISO 10110-5:2015 (surface form tolerances) and ISO 14999-4:2015 (their
+interpretation), from memory: power is the sag of the best-fit sphere, irregularity the
+PV left after it is removed, C its rotationally symmetric part.
+J. C. Wyant, K. Creath, "Basic wavefront aberration theory for optical metrology",
+Applied Optics and Optical Engineering XI (1992): the Fringe Zernike ordering.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
+from functools import cached_property
 
 import numpy as np
+from scipy import ndimage
 
-from .zernike import ZernikeFit, noll_to_nm
+from .zernike import ZernikeFit, fringe_to_nm, nm_basis, noll_to_nm, zernike_basis
 
 __all__ = [
+    "FIGURE_TERMS",
     "Figures",
+    "MapFigures",
+    "PISTON_TILT",
     "compute_figures",
     "radius_of_curvature_m",
     "to_fringes",
     "to_waves",
-    "PISTON_TILT",
 ]
 
 PISTON_TILT = (1, 2, 3)
-PVR_TERMS = 36
+PVR_TERMS = 36  # Evans's PVr: the first 36 terms of the Fringe set
+FIGURE_TERMS = 45  # the fit that stands in for unmeasured pixels: Noll 1..45, n <= 8
+_SECTORS = 16
 SQRT3 = float(np.sqrt(3.0))
 SQRT6 = float(np.sqrt(6.0))
 
 
 @dataclass(frozen=True)
 class Figures:
-    """Flatness figures, all heights in nanometres.
+    """Flatness figures, all heights in nanometres (see the module docstring for how).
 
     Attributes
     ----------
-    pv_nm, rms_nm : float
-        Peak-to-valley and RMS of the map with the removed terms taken out.
+    pv_nm : float
+        PV of the filtered map with the removed terms taken out.
+    rms_nm : float
+        RMS of the filtered map with the removed terms taken out (RMSt).
     pvr_nm : float
-        Evans's robust PV: PV of the 36-term fit plus 3 x RMS of the fit residual.
+        Evans's robust PV.
     power_nm : float
         Sag of the best-fit sphere from edge to centre, ``-2 sqrt(3) a4``: positive
         when the centre stands high (convex), negative when it is low (concave).
@@ -53,20 +87,28 @@ class Figures:
         Radius of the best-fit sphere, signed like the power (None without a diameter
         or with no measurable power).
     irregularity_nm : float
-        PV of the map after piston, tilt and power are removed.
+        PV of the filtered map after piston, tilt and power are removed (ISO 10110-5 B).
     astigmatism_nm : float
         PV of the astigmatism terms (Noll 5 and 6) together, ``2 sqrt(6) sqrt(a5^2 + a6^2)``.
     astigmatism_axis_deg : float
         Direction of the high axis of the astigmatism, degrees counter-clockwise
         from the photo's x axis, in [0, 180).
     symmetric_irregularity_nm : float
-        PV of the rotationally symmetric terms beyond power (ISO 10110-5's C).
+        PV of the rotationally symmetric part beyond power (ISO 10110-5's C).
     rms_irregularity_nm : float
         RMS after piston, tilt and power are removed (ISO 10110-5's RMSi).
     rms_asymmetric_nm : float
         RMS of the non-rotationally-symmetric part (ISO 10110-5's RMSa).
     removed_terms : tuple of int
         Noll terms taken out of the map before PV and RMS.
+    pv_raw_nm : float
+        PV of the unfiltered map (measured pixels, the fit elsewhere).
+    noise_nm : float
+        The map's noise: RMS of its departures from the fit finer than the resolution.
+    uncertainty_nm : dict
+        Figure name -> expanded uncertainty U (k = 2), nm (see ``uncertainty``).
+    uncertainty_budget : dict
+        Figure name -> the standard uncertainty of each part, nm.
     """
 
     pv_nm: float
@@ -82,6 +124,10 @@ class Figures:
     rms_irregularity_nm: float
     rms_asymmetric_nm: float
     removed_terms: tuple[int, ...] = PISTON_TILT
+    pv_raw_nm: float = float("nan")
+    noise_nm: float = 0.0
+    uncertainty_nm: dict = field(default_factory=dict)
+    uncertainty_budget: dict = field(default_factory=dict)
 
 
 def to_waves(height_nm: float, wavelength_nm: float) -> float:
@@ -106,7 +152,7 @@ def radius_of_curvature_m(sag_nm: float, diameter_mm: float) -> float | None:
     return float((r_m**2 + s_m**2) / (2.0 * s_m))
 
 
-def _peak_to_valley(v: np.ndarray) -> float:
+def _ptp(v: np.ndarray) -> float:
     return float(np.max(v) - np.min(v)) if v.size else float("nan")
 
 
@@ -114,103 +160,305 @@ def _rms(v: np.ndarray) -> float:
     return float(np.sqrt(np.mean((v - np.mean(v)) ** 2))) if v.size else float("nan")
 
 
-def compute_figures(
-    height_nm: np.ndarray,
-    basis: np.ndarray,
-    fit: ZernikeFit,
-    *,
-    wavelength_nm: float,
-    diameter_mm: float | None = None,
-    removed_terms: tuple[int, ...] = PISTON_TILT,
-    disk_basis: np.ndarray | None = None,
-    measured: np.ndarray | None = None,
-) -> Figures:
-    """Figures of a surface measured at ``P`` pixels.
+def _smooth(values: np.ndarray, weight: np.ndarray, sigma_px: float,
+            den: np.ndarray | None = None) -> np.ndarray:
+    """Normalised Gaussian smoothing of ``values`` where ``weight`` is 1 (0 elsewhere)."""
+    num = ndimage.gaussian_filter(values * weight, sigma_px, mode="constant", truncate=3.0)
+    if den is None:
+        den = ndimage.gaussian_filter(weight, sigma_px, mode="constant", truncate=3.0)
+    return np.where(den > 1e-3, num / np.maximum(den, 1e-3), 0.0)
 
-    With ``disk_basis`` (and ``measured``) every figure is taken over the whole clear
-    aperture: PV and irregularity over the measured heights together with the fit at
-    the pixels that could not be measured (specks, a rim the fringes fade at); the
-    RMS figures as the fit's RMS over the disk with the residual, which the fit leaves
-    orthogonal to it, added in quadrature; PVr from the fit over the disk. Without
-    them, everything is taken over the measured pixels.
+
+def _least_squares_inverse(basis: np.ndarray) -> np.ndarray:
+    """``(B^T B)^-1 B^T``: Zernike terms over a disk are close to orthonormal, so the
+    normal equations are well conditioned (a badly masked disk falls back to the SVD)."""
+    gram = basis.T @ basis
+    if np.linalg.cond(gram) < 1e8:
+        return np.linalg.solve(gram, basis.T)
+    return np.linalg.pinv(basis)
+
+
+@dataclass(frozen=True)
+class MapFigures:
+    """A height map prepared for figures: its fits and its filtered form over the disk.
+
+    Built once per measurement by :meth:`of`; :meth:`figures` then gives the figures
+    with any set of terms removed, and the uncertainty module re-evaluates
+    :meth:`peak_figures` on perturbed maps.
+    """
+
+    disk: np.ndarray  # (M, N) bool
+    measured: np.ndarray  # (Q,) bool: measured pixels among the disk's
+    rho: np.ndarray  # (Q,) radius of each disk pixel
+    basis: np.ndarray  # (Q, J) Noll terms 1..J over the disk
+    fit_inverse: np.ndarray  # (J, P) least-squares solution over the measured pixels
+    fringe_basis: np.ndarray  # (Q, 36) the Fringe set, for PVr
+    fringe_inverse: np.ndarray  # (36, P)
+    measured_nm: np.ndarray  # (P,) the measured heights
+    noise_nm: float
+    resolution_px: float | None
+    radial_bins: np.ndarray  # (Q,) ring index of each disk pixel, for the C figure
+    sectors: np.ndarray  # (Q,) angular sector of each disk pixel
+
+    @classmethod
+    def of(cls, height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray, *,
+           resolution_px: float | None = None, n_terms: int = FIGURE_TERMS) -> MapFigures:
+        """Prepare a map.
+
+        Parameters
+        ----------
+        height_nm : (M, N) ndarray
+            Heights (NaN or anything where not ``valid``).
+        valid : (M, N) bool ndarray
+            Measured pixels.
+        xu, yu : (M, N) ndarray
+            Zernike coordinates of every map pixel (x right, y up, over the radius).
+        resolution_px : float, optional
+            The method's resolution as a length in map pixels (a Gaussian sigma):
+            detail finer than this is noise. None takes the raw map as it is.
+        n_terms : int
+            Terms of the stand-in fit (at least 45).
+        """
+        disk = np.hypot(xu, yu) <= 1.0
+        measured = np.asarray(valid, bool)[disk]
+        x, y = xu[disk], yu[disk]
+        basis = zernike_basis(max(n_terms, FIGURE_TERMS), x, y)
+        fringe = nm_basis([fringe_to_nm(j) for j in range(1, PVR_TERMS + 1)], x, y)
+        rho = np.hypot(x, y)
+        step = float(np.max(np.abs(np.diff(xu, axis=1)))) if xu.shape[1] > 1 else 0.01
+        # rings two map pixels wide; the last partial ring joins the one inside it
+        width = 2.0 * max(step, 1e-3)
+        rings = np.minimum((rho / width).astype(int), max(int(1.0 / width) - 1, 0))
+        sectors = ((np.arctan2(y, x) + np.pi) / (2 * np.pi) * _SECTORS).astype(int) % _SECTORS
+        prepared = cls(
+            disk=disk, measured=measured, rho=rho, basis=basis,
+            fit_inverse=_least_squares_inverse(basis[measured]),
+            fringe_basis=fringe, fringe_inverse=_least_squares_inverse(fringe[measured]),
+            measured_nm=np.asarray(height_nm, dtype=float)[disk][measured],
+            noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors)
+        return prepared.with_noise_measured()
+
+    def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
+        """The same map with ``delta_nm`` (over the disk's pixels) added where measured."""
+        copy = replace(self, measured_nm=self.measured_nm + delta_nm[self.measured])
+        copy.__dict__["smoothed_weight"] = self.smoothed_weight  # the same pixels
+        return copy
+
+    @cached_property
+    def coefficients_nm(self) -> np.ndarray:
+        """The stand-in fit's Noll coefficients."""
+        return self.fit_inverse @ self.measured_nm
+
+    @cached_property
+    def raw_nm(self) -> np.ndarray:
+        """Measured heights where measured, the fit elsewhere, over the disk."""
+        out = self.basis @ self.coefficients_nm
+        out[self.measured] = self.measured_nm
+        return out
+
+    def _residual_map(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        fit = self.basis @ self.coefficients_nm
+        resid = np.zeros(self.disk.shape)
+        resid[self.disk] = np.where(self.measured, self.raw_nm - fit, 0.0)
+        weight = np.zeros(self.disk.shape)
+        weight[self.disk] = self.measured
+        return fit, resid, weight
+
+    @cached_property
+    def filtered_nm(self) -> np.ndarray:
+        """The fit plus the departures from it, smoothed at the resolution."""
+        fit, resid, weight = self._residual_map()
+        if self.resolution_px and self.resolution_px > 0:
+            return fit + _smooth(resid, weight, self.resolution_px,
+                                 self.smoothed_weight)[self.disk]
+        return fit + resid[self.disk]
+
+    @cached_property
+    def smoothed_weight(self) -> np.ndarray | None:
+        """The measured pixels smoothed at the resolution (shared by perturbed copies)."""
+        if not (self.resolution_px and self.resolution_px > 0):
+            return None
+        weight = np.zeros(self.disk.shape)
+        weight[self.disk] = self.measured
+        return ndimage.gaussian_filter(weight, self.resolution_px, mode="constant",
+                                       truncate=3.0)
+
+    def with_noise_measured(self) -> MapFigures:
+        """A copy whose ``noise_nm`` is the map's fine-scale roughness (robust RMS)."""
+        _, resid, weight = self._residual_map()
+        scale = 1.5 * self.resolution_px if self.resolution_px else 2.0
+        fine = (resid - _smooth(resid, weight, scale))[self.disk]
+        rough = fine[self.measured & (self.rho <= 0.9)]
+        noise = (float(1.4826 * np.median(np.abs(rough - np.median(rough))))
+                 if rough.size > 50 else 0.0)
+        return replace(self, noise_nm=noise)
+
+    @property
+    def symmetric_terms(self) -> list[int]:
+        """The fit's rotationally symmetric Noll terms (m = 0), piston and power included."""
+        return [j for j in range(1, self.coefficients_nm.size + 1) if noll_to_nm(j)[1] == 0]
+
+    def terms(self, js) -> np.ndarray:
+        """Sum of the fitted Noll terms ``js`` over the disk."""
+        idx = [j - 1 for j in js if j <= self.coefficients_nm.size]
+        if not idx:
+            return np.zeros(self.rho.size)
+        return self.basis[:, idx] @ self.coefficients_nm[idx]
+
+    def symmetric_profile(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The mean of ``values`` around each ring one map pixel wide.
+
+        Returns the rings' means, their mean ``rho^2`` and their pixel counts (rings
+        with no pixel are left out).
+        """
+        # a thin ring of pixels samples its circle unevenly: average within angular
+        # sectors first, then the sectors with equal weight
+        n_rings = int(self.radial_bins.max()) + 1
+        cell = self.radial_bins * _SECTORS + self.sectors
+        size = n_rings * _SECTORS
+        c_n = np.bincount(cell, minlength=size).reshape(n_rings, _SECTORS)
+        c_v = np.bincount(cell, weights=values, minlength=size).reshape(n_rings, _SECTORS)
+        filled = c_n > 0
+        sector_mean = np.where(filled, c_v / np.maximum(c_n, 1), 0.0)
+        counts = c_n.sum(axis=1)
+        keep = counts > 0
+        mean = sector_mean.sum(axis=1)[keep] / filled.sum(axis=1)[keep]
+        rho2 = np.bincount(self.radial_bins, weights=self.rho**2, minlength=n_rings)[keep]
+        n = counts[keep].astype(float)
+        return mean, rho2 / n, n
+
+    def peak_figures(self, surface: np.ndarray, removed: tuple[int, ...]) -> dict[str, float]:
+        """PV, B, C, RMSt, RMSi and RMSa of a filtered ``surface`` over the disk."""
+        pt = self.terms(removed)
+        with_power = sorted(set(removed) | {4})
+        ptp_ = self.terms(with_power)
+        left = surface - pt
+        irregular = surface - ptp_
+        tilted = surface - self.terms(PISTON_TILT)
+        # the symmetric part: the fit's own m = 0 terms (exactly radial) plus the mean
+        # around each ring of what the fit leaves (small, so a ring of pixels that samples
+        # its circle unevenly hardly matters)
+        m0 = self.terms(self.symmetric_terms)
+        mean, rho2, n = self.symmetric_profile(tilted - m0)
+        ring_of = np.cumsum(np.bincount(self.radial_bins) > 0) - 1
+        symmetric_px = m0 + mean[ring_of[self.radial_bins]]
+        # C: that profile less its best a + b rho^2 (pixels weigh by their area)
+        design = np.stack([np.ones_like(self.rho), self.rho**2], axis=1)
+        c, *_ = np.linalg.lstsq(design, symmetric_px, rcond=None)
+        symmetric = symmetric_px - design @ c
+        asym = tilted - symmetric_px
+        return {
+            "pv_nm": _ptp(left),
+            "rms_nm": _rms(left),
+            "irregularity_nm": _ptp(irregular),
+            "rms_irregularity_nm": _rms(irregular),
+            "symmetric_irregularity_nm": _ptp(symmetric),
+            "rms_asymmetric_nm": _rms(asym),
+        }
+
+    def pvr(self, removed: tuple[int, ...]) -> float:
+        """Evans's PVr of the measured heights (Fringe-36 fit, noise-corrected residual)."""
+        fb = self.fringe_basis
+        coef = self.fringe_inverse @ self.measured_nm
+        resid = self.measured_nm - fb[self.measured] @ coef
+        # Fringe 1..3 are piston and tilt, 4 is power: drop what the caller removes
+        keep = [i for i in range(PVR_TERMS) if not _fringe_removed(i + 1, removed)]
+        fit_pv = _ptp(fb[:, keep] @ coef[keep])
+        resid_rms = np.sqrt(max(_rms(resid) ** 2 - self.noise_nm**2, 0.0))
+        return fit_pv + 3.0 * resid_rms
+
+    def figures(self, *, wavelength_nm: float, diameter_mm: float | None,
+                removed_terms: tuple[int, ...] = PISTON_TILT,
+                report_fit: ZernikeFit | None = None) -> Figures:
+        """Every figure with ``removed_terms`` (always at least piston and tilt) taken out."""
+        a = (np.asarray(report_fit.coefficients_nm, float) if report_fit is not None
+             else self.coefficients_nm)
+        removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
+        peaks = self.peak_figures(self.filtered_nm, removed)
+        raw = self.raw_nm
+        a4 = a[3] if a.size >= 4 else 0.0
+        power = -2.0 * SQRT3 * a4 if 4 not in removed else 0.0
+        a5 = a[4] if a.size >= 6 and 5 not in removed else 0.0
+        a6 = a[5] if a.size >= 6 and 6 not in removed else 0.0
+        # a6 cos 2t + a5 sin 2t = A cos 2(t - t0) with t0 = atan2(a5, a6) / 2
+        axis = float(np.degrees(0.5 * np.arctan2(a5, a6))) % 180.0 % 180.0
+        return Figures(
+            pv_nm=peaks["pv_nm"],
+            rms_nm=peaks["rms_nm"],
+            pvr_nm=float(self.pvr(removed)),
+            power_nm=float(power),
+            power_fringes=to_fringes(float(power), wavelength_nm),
+            radius_of_curvature_m=(radius_of_curvature_m(power, diameter_mm)
+                                   if diameter_mm else None),
+            irregularity_nm=peaks["irregularity_nm"],
+            astigmatism_nm=float(2.0 * SQRT6 * np.hypot(a5, a6)),
+            astigmatism_axis_deg=axis,
+            symmetric_irregularity_nm=peaks["symmetric_irregularity_nm"],
+            rms_irregularity_nm=peaks["rms_irregularity_nm"],
+            rms_asymmetric_nm=peaks["rms_asymmetric_nm"],
+            removed_terms=removed,
+            pv_raw_nm=_ptp(raw - self.terms(removed)),
+            noise_nm=self.noise_nm,
+        )
+
+
+def _fringe_removed(j_fringe: int, removed: tuple[int, ...]) -> bool:
+    """Is Fringe term ``j_fringe`` one of the Noll terms in ``removed``?"""
+    n, m = fringe_to_nm(j_fringe)
+    return any(noll_to_nm(j) == (n, m) for j in removed)
+
+
+def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray,
+                    fit: ZernikeFit, *, wavelength_nm: float, diameter_mm: float | None = None,
+                    removed_terms: tuple[int, ...] = PISTON_TILT,
+                    resolution_px: float | None = None,
+                    height_sigma_nm: np.ndarray | None = None,
+                    wavelength_uncertainty_nm: float = 0.0,
+                    reference_uncertainty_nm: float = 0.0, photos: int = 1) -> Figures:
+    """Figures of a height map with their expanded uncertainties (see the module docstring).
 
     Parameters
     ----------
-    height_nm : (P,) ndarray
-        Measured heights at the valid pixels (piston and tilt may still be in).
-    basis : (P, J) ndarray
-        Noll terms ``1..J`` evaluated at those pixels (normalised by the full radius).
+    height_nm : (M, N) ndarray
+        Heights in nm; only ``valid`` pixels are read.
+    valid : (M, N) bool ndarray
+        Measured pixels.
+    xu, yu : (M, N) ndarray
+        Zernike coordinates (x right, y up, divided by the aperture radius).
     fit : ZernikeFit
-        The fit of ``height_nm`` on ``basis``.
+        The reported Noll fit (power and astigmatism are read from it).
     wavelength_nm : float
         Test wavelength, for the power in fringes.
     diameter_mm : float, optional
         Physical clear aperture, for the radius of curvature.
     removed_terms : tuple of int
-        Noll terms to take out before PV and RMS (always at least piston and tilt).
-    disk_basis : (Q, J) ndarray, optional
-        The same terms at every pixel of the full aperture (measured or not).
-    measured : (Q,) bool ndarray, optional
-        Which of those ``Q`` pixels are the ``P`` measured ones, in the same order.
+        Noll terms to take out (always at least piston and tilt).
+    resolution_px : float, optional
+        The method's resolution in map pixels (see :meth:`MapFigures.of`).
+    height_sigma_nm : (M, N) ndarray, optional
+        The demodulation's noise estimate per pixel: only its shape is used, to grow
+        the noise where the fit had less to go on (the rim, beside specks).
+    wavelength_uncertainty_nm, reference_uncertainty_nm : float
+        What the operator states (see ``uncertainty``).
+    photos : int
+        How many photos were averaged into the map.
     """
-    h = np.ravel(np.asarray(height_nm, dtype=float))
-    a = np.asarray(fit.coefficients_nm, dtype=float)
-    n_terms = a.size
-    removed = tuple(sorted(set(PISTON_TILT) | {j for j in removed_terms if 1 <= j <= n_terms}))
+    from .uncertainty import expanded_uncertainty
 
-    def terms(js, on: np.ndarray = basis) -> np.ndarray:
-        idx = [j - 1 for j in js if j <= n_terms]
-        return on[:, idx] @ a[idx] if idx else np.zeros(on.shape[0])
-
-    full_fit = basis @ a
-    residual = h - full_fit
-    surface = h - terms(removed)
-    resid_rms = _rms(residual)
-
-    def rms_without(js) -> float:
-        """RMS with terms ``js`` removed, over the disk when it is known."""
-        if disk_basis is None:
-            return _rms(h - terms(js))
-        kept = [j for j in range(1, n_terms + 1) if j not in set(js)]
-        return float(np.hypot(_rms(terms(kept, disk_basis)), resid_rms))
-
-    kept_fit_terms = [j for j in range(1, min(n_terms, PVR_TERMS) + 1) if j not in removed]
-    fit_surface = terms(kept_fit_terms, basis if disk_basis is None else disk_basis)
-    pvr = _peak_to_valley(fit_surface) + 3.0 * resid_rms
-
-    a4 = a[3] if n_terms >= 4 else 0.0
-    power = -2.0 * SQRT3 * a4
-    def whole_disk(js) -> np.ndarray:
-        """Heights with terms ``js`` removed: measured where measured, else the fit."""
-        part = h - terms(js)
-        if disk_basis is None or measured is None:
-            return part
-        out = terms([j for j in range(1, n_terms + 1) if j not in set(js)], disk_basis)
-        out[measured] = part
-        return out
-
-    surface = whole_disk(removed)
-    without_power = whole_disk(sorted(set(removed) | {4}))
-    symmetric = [j for j in range(5, n_terms + 1) if noll_to_nm(j)[1] == 0]
-    a5 = a[4] if n_terms >= 6 else 0.0
-    a6 = a[5] if n_terms >= 6 else 0.0
-    # a6 cos 2t + a5 sin 2t = A cos 2(t - t0) with t0 = atan2(a5, a6) / 2
-    axis = float(np.degrees(0.5 * np.arctan2(a5, a6))) % 180.0 % 180.0  # -1e-17 % 180 == 180.0
-
-    return Figures(
-        pv_nm=_peak_to_valley(surface),
-        rms_nm=rms_without(removed),
-        pvr_nm=float(pvr),
-        power_nm=float(power),
-        power_fringes=to_fringes(float(power), wavelength_nm),
-        radius_of_curvature_m=(radius_of_curvature_m(power, diameter_mm)
-                               if diameter_mm else None),
-        irregularity_nm=_peak_to_valley(without_power),
-        astigmatism_nm=float(2.0 * SQRT6 * np.hypot(a5, a6)),
-        astigmatism_axis_deg=axis,
-        symmetric_irregularity_nm=_peak_to_valley(
-            terms(symmetric, basis if disk_basis is None else disk_basis)),
-        rms_irregularity_nm=rms_without(sorted(set(removed) | {4})),
-        rms_asymmetric_nm=rms_without([1, 2, 3, 4, *symmetric]),
-        removed_terms=removed,
-    )
+    prepared = MapFigures.of(height_nm, valid, xu, yu, resolution_px=resolution_px,
+                             n_terms=max(FIGURE_TERMS, fit.n_terms))
+    figures = prepared.figures(wavelength_nm=wavelength_nm, diameter_mm=diameter_mm,
+                               removed_terms=removed_terms, report_fit=fit)
+    scale = None
+    if height_sigma_nm is not None:
+        sig = np.asarray(height_sigma_nm, dtype=float)[prepared.disk]
+        inner = prepared.measured & (prepared.rho <= 0.8) & np.isfinite(sig)
+        if inner.sum() > 50:
+            ref = float(np.median(sig[inner])) or 1.0
+            scale = np.clip(np.nan_to_num(sig / ref, nan=1.0, posinf=5.0), 1.0, 5.0)
+    uncertainty, budget = expanded_uncertainty(
+        prepared, figures, removed=figures.removed_terms,
+        report_coefficients=np.asarray(fit.coefficients_nm, float), noise_scale=scale,
+        wavelength_nm=wavelength_nm, wavelength_uncertainty_nm=wavelength_uncertainty_nm,
+        reference_uncertainty_nm=reference_uncertainty_nm, photos=photos)
+    return replace(figures, uncertainty_nm=uncertainty, uncertainty_budget=budget)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import threading
 import time
 from collections.abc import Callable
@@ -51,6 +52,10 @@ class MeasureSettings:
         Circles left out of the measurement, added to the aperture's own.
     report_wavelength_nm : float or None
         A second wavelength to express figures in waves of (for example 546.07 or 632.8).
+    wavelength_uncertainty_nm : float
+        Standard uncertainty of the test wavelength (0: a known spectral line).
+    reference_uncertainty_nm : float
+        Expanded uncertainty (k = 2) of the reference flat's form, in every figure.
     """
 
     wavelength_nm: float = 632.8
@@ -60,6 +65,8 @@ class MeasureSettings:
     aperture: Aperture | None = None
     exclusions: tuple[Exclusion, ...] = ()
     report_wavelength_nm: float | None = None
+    wavelength_uncertainty_nm: float = 0.0
+    reference_uncertainty_nm: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -74,6 +81,7 @@ class Quality:
     masked_fraction: float  # share of the disk not measured: specks, exclusions, low
     # contrast, and the outermost rim where the fit stands in for the phase
     binning: int  # photo pixels binned into one before the Fourier transform
+    photos: int = 1  # photos averaged into the map
 
 
 @dataclass(frozen=True)
@@ -91,6 +99,9 @@ class Measurement:
         Fringe visibility (0..1) at each map pixel, NaN outside the aperture.
     zernike : ZernikeFit
         Noll coefficients of the surface in nm (piston and tilt included as fitted).
+    height_sigma_nm : (M, N) ndarray or None
+        Standard deviation of the height that the photo's noise leaves at each map
+        pixel (nm), where the demodulation estimated it.
     """
 
     photo: str
@@ -107,6 +118,7 @@ class Measurement:
     warnings: tuple[str, ...] = field(default=())
     photo_sha256: str | None = None
     timings_s: dict[str, float] = field(default_factory=dict)
+    height_sigma_nm: np.ndarray | None = None
 
 
 def _validate(settings: MeasureSettings) -> None:
@@ -117,6 +129,10 @@ def _validate(settings: MeasureSettings) -> None:
         raise SettingsError(f"number of Zernike terms {settings.n_terms} must be 15 to 231")
     if settings.diameter_mm is not None and not (settings.diameter_mm > 0):
         raise SettingsError(f"clear-aperture diameter {settings.diameter_mm:g} mm must be > 0")
+    for what, value in (("wavelength uncertainty", settings.wavelength_uncertainty_nm),
+                        ("reference flat uncertainty", settings.reference_uncertainty_nm)):
+        if not (math.isfinite(value) and 0.0 <= value <= 1000.0):
+            raise SettingsError(f"{what} {value:g} nm must be 0 to 1000 nm")
     if settings.report_wavelength_nm is not None and not (
             100.0 <= settings.report_wavelength_nm <= 20000.0):
         raise SettingsError(f"reporting wavelength {settings.report_wavelength_nm:g} nm is "
@@ -221,6 +237,7 @@ def measure(
     m = measurement_from_phase(
         phase, valid, demod.disk, aperture=aperture, geometry=demod.geometry,
         settings=settings, photo=name, modulation=demod.modulation,
+        height_sigma_nm=demod.phase_sigma * (settings.wavelength_nm / (4.0 * np.pi)),
         quality_fields=quality, spectrum=demod.spectrum, warnings=tuple(warnings),
         photo_sha256=fringe_photo.sha256,
     )
@@ -252,6 +269,22 @@ def _drop_spikes(residual: np.ndarray, valid: np.ndarray) -> np.ndarray:
     return keep
 
 
+def _resolution_px(resolution_cycles_per_aperture: float, xu: np.ndarray) -> float | None:
+    """The resolution as a Gaussian width in map pixels (None when unknown).
+
+    About the width of the demodulation window's kernel: a window flat to ``f``
+    cycles per aperture diameter over 0.7 of its radius has a kernel about
+    ``0.35 / f`` diameters wide.
+    """
+    if not resolution_cycles_per_aperture or resolution_cycles_per_aperture <= 0:
+        return None
+    step = float(np.max(np.abs(np.diff(xu, axis=1)))) if xu.shape[1] > 1 else 0.0
+    if step <= 0:
+        return None
+    px_per_diameter = 2.0 / step
+    return 0.35 * px_per_diameter / resolution_cycles_per_aperture
+
+
 def _replace(m: Measurement, **changes) -> Measurement:
     from dataclasses import replace
 
@@ -272,6 +305,7 @@ def measurement_from_phase(
     spectrum: Spectrum | None = None,
     warnings: tuple[str, ...] = (),
     photo_sha256: str | None = None,
+    height_sigma_nm: np.ndarray | None = None,
 ) -> Measurement:
     """A measurement from an unwrapped phase map (radians) on ``geometry``'s grid."""
     height = phase_to_height_nm(phase, settings.wavelength_nm, invert=settings.invert)
@@ -279,6 +313,7 @@ def measurement_from_phase(
         height, valid, disk, aperture=aperture, geometry=geometry, settings=settings,
         photo=photo, modulation=modulation, quality_fields=quality_fields,
         spectrum=spectrum, warnings=warnings, photo_sha256=photo_sha256,
+        height_sigma_nm=height_sigma_nm,
     )
 
 
@@ -296,6 +331,7 @@ def measurement_from_height(
     spectrum: Spectrum | None = None,
     warnings: tuple[str, ...] = (),
     photo_sha256: str | None = None,
+    height_sigma_nm: np.ndarray | None = None,
 ) -> Measurement:
     """Fit and figure a height map (nm) already placed on ``geometry``'s grid.
 
@@ -315,16 +351,22 @@ def measurement_from_height(
     basis = disk_basis[valid[disk]]
     h = np.asarray(height_nm, dtype=float)[valid]
     fit = fit_zernike(h, None, None, n_terms=settings.n_terms, basis=basis)
-    figures = compute_figures(h, basis, fit, wavelength_nm=settings.wavelength_nm,
-                              diameter_mm=settings.diameter_mm, disk_basis=disk_basis,
-                              measured=valid[disk])
+    qf = dict(quality_fields or {})
+    resolution_px = _resolution_px(float(qf.get("resolution_cycles_per_aperture", 0.0)),
+                                   xu)
+    figures = compute_figures(
+        height_nm, valid, xu, yu, fit, wavelength_nm=settings.wavelength_nm,
+        diameter_mm=settings.diameter_mm, resolution_px=resolution_px,
+        height_sigma_nm=height_sigma_nm,
+        wavelength_uncertainty_nm=settings.wavelength_uncertainty_nm,
+        reference_uncertainty_nm=settings.reference_uncertainty_nm,
+        photos=int(qf.get("photos", 1)))
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
     if modulation is None:
         modulation = np.where(disk, 1.0, np.nan)
     n_disk = int(disk.sum())
-    qf = dict(quality_fields or {})
     quality = Quality(
         carrier_fringes=float(qf.get("carrier_fringes", 0.0)),
         carrier_angle_deg=float(qf.get("carrier_angle_deg", 0.0)),
@@ -333,6 +375,7 @@ def measurement_from_height(
         mean_modulation=float(np.nanmean(np.where(valid, modulation, np.nan))),
         masked_fraction=float(1.0 - n_valid / n_disk) if n_disk else 1.0,
         binning=int(qf.get("binning", 1)),
+        photos=int(qf.get("photos", 1)),
     )
     warnings = tuple(warnings)
     # the outermost rim, where a soft edge dims the fringes, is left to the fit by
@@ -350,6 +393,8 @@ def measurement_from_height(
         height_nm=surface, valid=valid, modulation=np.asarray(modulation, dtype=np.float32),
         zernike=fit, figures=figures, quality=quality, spectrum=spectrum,
         warnings=warnings, photo_sha256=photo_sha256,
+        height_sigma_nm=(None if height_sigma_nm is None
+                         else np.where(disk, height_sigma_nm, np.nan).astype(np.float32)),
     )
 
 
@@ -369,9 +414,16 @@ def with_terms_removed(
     # the stored map has piston and tilt out; put them back so the fit stays the same
     h = m.height_nm[valid] + basis[:, :3] @ m.zernike.coefficients_nm[:3]
     removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
-    figures = compute_figures(h, basis, m.zernike, wavelength_nm=m.settings.wavelength_nm,
-                              diameter_mm=m.settings.diameter_mm, removed_terms=removed,
-                              disk_basis=disk_basis, measured=valid[disk])
+    full = np.full(m.height_nm.shape, np.nan)
+    full[valid] = h
+    figures = compute_figures(
+        full, valid, xu, yu, m.zernike, wavelength_nm=m.settings.wavelength_nm,
+        diameter_mm=m.settings.diameter_mm, removed_terms=removed,
+        resolution_px=_resolution_px(m.quality.resolution_cycles_per_aperture, xu),
+        height_sigma_nm=m.height_sigma_nm,
+        wavelength_uncertainty_nm=m.settings.wavelength_uncertainty_nm,
+        reference_uncertainty_nm=m.settings.reference_uncertainty_nm,
+        photos=m.quality.photos)
     idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
     out = np.full(m.height_nm.shape, np.nan)
     out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]

@@ -24,6 +24,16 @@ SIGN_CONVENTION = (
     "(right for vertical fringes): the wedge is assumed wider toward the top (left); "
     "positive = high point on the part" )
 _WAVE_FIELDS = ("pv", "rms", "pvr", "power", "irregularity", "astigmatism")
+UNCERTAINTY_BASIS = (
+    "expanded uncertainty U, k = 2 (JCGM 100:2008): the map's noise propagated by Monte "
+    "Carlo (JCGM 101:2008), the method's limits as validated on independent reference "
+    "photos, the stated wavelength and reference-flat uncertainties")
+FIGURES_METHOD = (
+    "PV, irregularity (B) and C over the filtered map (45-term Zernike fit plus the "
+    "measured departures from it smoothed at the method's resolution); C from the mean "
+    "around each circle less its best a + b rho^2; RMS over the filtered map; PVr after "
+    "Evans 2009 with the 36-term Fringe set and the map's noise taken out of its residual; "
+    "pv_raw_nm is the PV of the unfiltered map")
 
 
 def _num(value: float | None, digits: int = 4) -> float | None:
@@ -72,6 +82,8 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
         "rms_irregularity_nm": _num(f.rms_irregularity_nm, 3),
         "rms_asymmetric_nm": _num(f.rms_asymmetric_nm, 3),
         "radius_of_curvature_m": _num(f.radius_of_curvature_m, 2),
+        "pv_raw_nm": _num(f.pv_raw_nm, 3),
+        "uncertainty": {name: _num(u, 3) for name, u in f.uncertainty_nm.items()},
     }
     for name in _WAVE_FIELDS:
         rec[f"{name}_waves"] = _num(to_waves(getattr(f, f"{name}_nm"), lam), 5)
@@ -121,6 +133,18 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
         "report_wavelength_nm": m.settings.report_wavelength_nm,
         "removed_terms": list(f.removed_terms),
     }
+    rec["uncertainty_budget"] = {
+        "coverage_factor": 2,
+        "basis": UNCERTAINTY_BASIS,
+        "map_noise_nm": _num(f.noise_nm, 4),
+        "wavelength_uncertainty_nm": m.settings.wavelength_uncertainty_nm,
+        "reference_uncertainty_nm": m.settings.reference_uncertainty_nm,
+        "photos": m.quality.photos,
+        "standard_uncertainties_nm": {
+            name: {part: _num(v, 4) for part, v in parts.items()}
+            for name, parts in f.uncertainty_budget.items()},
+    }
+    rec["figures_method"] = FIGURES_METHOD
     rec["sign_convention"] = SIGN_CONVENTION
     rec["method"] = ("Fourier-transform fringe analysis (Takeda 1982) with Gerchberg edge "
                      "extension (Roddier & Roddier 1987); Zernike fit, Noll 1976")

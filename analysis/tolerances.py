@@ -41,6 +41,12 @@ clause by clause against its text.
   measurement could not give (missing, or not a number) fails its limit.
 * The margin of a limit is the limit minus the measured value, in the limit's own
   unit and in nanometres: positive is inside the tolerance.
+* Decision rules (ISO 14253-1; ILAC G8). ``simple`` (the default): a limit passes
+  when the measured value is within it. ``guarded``: a limit passes only when the
+  measured value plus its expanded uncertainty U (k = 2) is within it, fails when the
+  value minus U is beyond it, and is ``inconclusive`` in between (or when the
+  measurement gives no U for that figure). The part fails when any limit fails, is
+  inconclusive when none fails but one is inconclusive, and passes otherwise.
 
 References
 ----------
@@ -48,6 +54,10 @@ ISO 10110-5:2015, Optics and photonics - Preparation of drawings for optical ele
 and systems - Part 5: Surface form tolerances (from memory).
 ISO 14999-4:2015, Interferometric measurement of optical elements and optical systems -
 Part 4: Interpretation and evaluation of tolerances specified in ISO 10110 (from memory).
+ISO 14253-1:2017, Geometrical product specifications (GPS) - Inspection by measurement of
+workpieces and measuring equipment - Part 1: Decision rules for verifying conformity or
+nonconformity with specifications (from memory).
+ILAC-G8:09/2019, Guidelines on decision rules and statements of conformity (from memory).
 """
 
 from __future__ import annotations
@@ -59,6 +69,7 @@ from dataclasses import dataclass
 from .errors import SettingsError
 
 __all__ = [
+    "DECISION_RULES",
     "DEFAULT_SPEC_WAVELENGTH_NM",
     "Limit",
     "LimitResult",
@@ -66,11 +77,21 @@ __all__ = [
     "Tolerance",
     "ToleranceSyntaxError",
     "evaluate",
+    "judge",
     "parse_tolerance",
     "spec_section",
 ]
 
 DEFAULT_SPEC_WAVELENGTH_NM = 546.07  # mercury e line, ISO 10110-5's reference wavelength
+
+# decision rule -> how it is stated in records and on certificates
+DECISION_RULES = {
+    "simple": "simple acceptance: a limit passes when the measured value is within it "
+              "(ISO 14253-1 and ILAC G8, no guard band)",
+    "guarded": "guarded acceptance (ISO 14253-1, ILAC G8): pass when value + U is within "
+               "the limit, fail when value - U is beyond it, otherwise inconclusive; "
+               "U is the expanded uncertainty, k = 2",
+}
 
 # plain-limit name -> (record figure, label, compared by magnitude)
 _PLAIN = {
@@ -157,7 +178,12 @@ class Tolerance:
 
 @dataclass(frozen=True)
 class LimitResult:
-    """One limit judged against a record; heights in the limit's unit and in nm."""
+    """One limit judged against a record; heights in the limit's unit and in nm.
+
+    ``uncertainty_nm`` is the expanded uncertainty (k = 2) of the measured figure, NaN
+    when the record gives none; ``verdict`` is ``"pass"``, ``"fail"`` or
+    ``"inconclusive"`` (the last only under the guarded rule).
+    """
 
     limit: Limit
     limit_nm: float
@@ -166,16 +192,22 @@ class LimitResult:
     margin: float
     margin_nm: float
     verdict: str
+    uncertainty_nm: float = math.nan
 
 
 @dataclass(frozen=True)
 class SpecResult:
-    """A tolerance judged against a record: ``verdict`` is ``"pass"`` only if every limit passes."""
+    """A tolerance judged against a record under a decision rule.
+
+    ``verdict`` is ``"pass"`` only if every limit passes, ``"fail"`` if any fails, and
+    ``"inconclusive"`` otherwise.
+    """
 
     tolerance: Tolerance
     results: tuple[LimitResult, ...]
     test_wavelength_nm: float
     verdict: str
+    decision: str = "simple"
 
 
 class _Scanner:
@@ -415,7 +447,38 @@ def _measured_nm(record: Mapping, figure: str) -> float:
         return math.nan
 
 
-def evaluate(spec: Tolerance, record: Mapping) -> SpecResult:
+def _uncertainty_nm(record: Mapping, figure: str) -> float:
+    section = record.get("uncertainty")
+    if not isinstance(section, Mapping):
+        return math.nan
+    value = _measured_nm(section, figure)
+    return value if value >= 0 else math.nan
+
+
+def judge(measured_nm: float, limit_nm: float, uncertainty_nm: float, decision: str) -> str:
+    """One limit's verdict under a decision rule (see the module docstring).
+
+    Examples
+    --------
+    >>> judge(50.0, 54.6, 3.0, "simple"), judge(50.0, 54.6, 3.0, "guarded")
+    ('pass', 'pass')
+    >>> judge(53.0, 54.6, 3.0, "guarded"), judge(58.0, 54.6, 3.0, "guarded")
+    ('inconclusive', 'fail')
+    """
+    if not (math.isfinite(measured_nm) and math.isfinite(limit_nm)):
+        return "fail"
+    if decision == "simple":
+        return "pass" if measured_nm <= limit_nm else "fail"
+    if decision != "guarded":
+        raise SettingsError(f"unknown decision rule {decision!r}: use simple or guarded")
+    if not math.isfinite(uncertainty_nm):
+        return "inconclusive"  # without U neither conformity nor its absence is proven
+    if measured_nm - uncertainty_nm > limit_nm:
+        return "fail"
+    return "pass" if measured_nm + uncertainty_nm <= limit_nm else "inconclusive"
+
+
+def evaluate(spec: Tolerance, record: Mapping, *, decision: str = "simple") -> SpecResult:
     """Judge a measurement record (the ``measure --json`` document) against a tolerance.
 
     Parameters
@@ -423,13 +486,22 @@ def evaluate(spec: Tolerance, record: Mapping) -> SpecResult:
     spec : Tolerance
         From :func:`parse_tolerance`.
     record : mapping
-        Needs ``wavelength_nm`` and the figures the limits name (``power_nm`` ...).
+        Needs ``wavelength_nm`` and the figures the limits name (``power_nm`` ...); the
+        guarded rule also reads their expanded uncertainties from ``uncertainty``.
+    decision : {"simple", "guarded"}
+        The decision rule (ISO 14253-1; see the module docstring).
 
     Returns
     -------
     SpecResult
-        Every limit with its measured value and margin, and the overall verdict.
+        Every limit with its measured value, uncertainty and margin, and the verdict.
+
+    References
+    ----------
+    ISO 14253-1:2017; ILAC-G8:09/2019 (both from memory).
     """
+    if decision not in DECISION_RULES:
+        raise SettingsError(f"unknown decision rule {decision!r}: use simple or guarded")
     test_wl = float(record.get("wavelength_nm") or math.nan)
     results = []
     for lim in spec.limits:
@@ -438,7 +510,7 @@ def evaluate(spec: Tolerance, record: Mapping) -> SpecResult:
         if lim.absolute:
             measured_nm = abs(measured_nm)
         limit_nm = lim.value * per_unit
-        ok = math.isfinite(measured_nm) and math.isfinite(limit_nm) and measured_nm <= limit_nm
+        u_nm = _uncertainty_nm(record, lim.figure)
         results.append(LimitResult(
             limit=lim,
             limit_nm=limit_nm,
@@ -446,11 +518,14 @@ def evaluate(spec: Tolerance, record: Mapping) -> SpecResult:
             measured_nm=measured_nm,
             margin=lim.value - measured_nm / per_unit,
             margin_nm=limit_nm - measured_nm,
-            verdict="pass" if ok else "fail",
+            verdict=judge(measured_nm, limit_nm, u_nm, decision),
+            uncertainty_nm=u_nm,
         ))
-    verdict = "pass" if all(r.verdict == "pass" for r in results) else "fail"
+    verdicts = {r.verdict for r in results}
+    verdict = ("fail" if "fail" in verdicts
+               else "inconclusive" if "inconclusive" in verdicts else "pass")
     return SpecResult(tolerance=spec, results=tuple(results), test_wavelength_nm=test_wl,
-                      verdict=verdict)
+                      verdict=verdict, decision=decision)
 
 
 def _json_number(x: float) -> float | None:
@@ -463,6 +538,8 @@ def spec_section(result: SpecResult) -> dict:
         "tolerance": result.tolerance.text,
         "notation": "ISO 10110-5:2015 as read by Flatsight",
         "spec_wavelength_nm": result.tolerance.spec_wavelength_nm,
+        "decision_rule": result.decision,
+        "decision_rule_text": DECISION_RULES[result.decision],
         "verdict": result.verdict,
         "limits": [
             {
@@ -481,6 +558,9 @@ def spec_section(result: SpecResult) -> dict:
                 "measured_nm": _json_number(r.measured_nm),
                 "margin": _json_number(r.margin),
                 "margin_nm": _json_number(r.margin_nm),
+                "uncertainty_nm": _json_number(r.uncertainty_nm),
+                "uncertainty": _json_number(r.uncertainty_nm / (r.limit_nm / r.limit.value))
+                if r.limit.value and math.isfinite(r.limit_nm) and r.limit_nm else None,
                 "verdict": r.verdict,
             }
             for r in result.results

@@ -10,6 +10,9 @@ References
 R. J. Noll, "Zernike polynomials and atmospheric turbulence", JOSA 66(3), 207 (1976).
 L. N. Thibos et al., "Standards for reporting the optical aberrations of eyes",
 J. Refract. Surg. 18(5), S652 (2002); ANSI Z80.28 and ISO 24157:2008 (OSA/ANSI index).
+J. C. Wyant, K. Creath, "Basic wavefront aberration theory for optical metrology",
+Applied Optics and Optical Engineering XI, ch. 1 (1992): the Fringe (University of
+Arizona) ordering, whose first 36 terms Evans's PVr fits (ordering from memory).
 """
 
 from __future__ import annotations
@@ -22,6 +25,8 @@ import numpy as np
 __all__ = [
     "ZernikeFit",
     "fit_zernike",
+    "fringe_to_nm",
+    "nm_basis",
     "noll_to_nm",
     "noll_to_osa",
     "osa_to_noll",
@@ -55,6 +60,33 @@ def noll_to_nm(j: int) -> tuple[int, int]:
     if m != 0 and j % 2 == 1:
         m = -m
     return n, m
+
+
+def fringe_to_nm(j: int) -> tuple[int, int]:
+    """Radial order and signed azimuthal frequency of Fringe (University of Arizona) term ``j``.
+
+    The Fringe set groups terms by ``(n + |m|) / 2``; within a group ``|m|`` falls from
+    the group number to 0, cosine before sine. Terms 1 to 36 are every term with
+    ``(n + |m|) / 2 <= 5``; term 37 is the 12th-order spherical (Wyant & Creath 1992,
+    from memory).
+
+    Examples
+    --------
+    >>> [fringe_to_nm(j) for j in (4, 9, 16, 25, 36, 37)]
+    [(2, 0), (4, 0), (6, 0), (8, 0), (10, 0), (12, 0)]
+    """
+    if j < 1:
+        raise ValueError(f"Fringe index starts at 1, got {j}")
+    if j == 37:
+        return 12, 0
+    k = 0
+    for d in range(0, 6):
+        for mm in range(d, -1, -1):
+            for sign in ((1, -1) if mm else (1,)):
+                k += 1
+                if k == j:
+                    return 2 * d - mm, sign * mm
+    raise ValueError(f"Fringe index {j} is beyond the 37 terms of the set")
 
 
 def nm_to_noll(n: int, m: int) -> int:
@@ -133,12 +165,19 @@ def zernike_basis(n_terms: int, x: np.ndarray, y: np.ndarray) -> np.ndarray:
     x, y : (P,) ndarray
         Coordinates divided by the aperture radius (``y`` toward the photo's top).
     """
+    return nm_basis([noll_to_nm(j) for j in range(1, n_terms + 1)], x, y)
+
+
+def nm_basis(orders: list[tuple[int, int]], x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Noll-normalised terms given by ``(n, m)`` pairs, as a ``(P, len(orders))`` array.
+
+    ``m > 0`` is a cosine term, ``m < 0`` a sine term (as :func:`noll_to_nm` gives them).
+    """
     x = np.ravel(np.asarray(x, dtype=float))
     y = np.ravel(np.asarray(y, dtype=float))
-    out = np.empty((x.size, n_terms))
-    if n_terms == 0:
+    out = np.empty((x.size, len(orders)))
+    if not orders:
         return out
-    orders = [noll_to_nm(j) for j in range(1, n_terms + 1)]
     n_max = max(n for n, _ in orders)
     rho2 = x * x + y * y
     rho = np.sqrt(rho2)

@@ -1,0 +1,1 @@
+"""Independent reference set: synthetic fringe photos of known surfaces and their truth figures."""
