@@ -42,8 +42,10 @@ def make_record(*, spec="3/1(0.25)", a4=-20.0, a6=8.0, a7=6.0, wavelength_nm=632
     x, y = np.meshgrid(g, g)
     inside = x**2 + y**2 <= 1
     basis = zernike_basis(36, x[inside], y[inside])
-    h = basis @ a
-    f = compute_figures(h, basis, ZernikeFit(a, 0.0, h.size), wavelength_nm=wavelength_nm)
+    h = np.full(x.shape, np.nan)
+    h[inside] = basis @ a
+    f = compute_figures(h, inside, x, y, ZernikeFit(a, 0.0, int(inside.sum())),
+                        wavelength_nm=wavelength_nm)
     rec = {
         "photo": "BW-FL-0412.png", "photo_sha256": "3f" * 32, "wavelength_nm": wavelength_nm,
         "aperture": {"center_x_px": 640.0, "center_y_px": 480.0, "radius_px": 400.0},

@@ -1,40 +1,60 @@
-"""Tests of the flatness figures: PV, RMS, PVr, power, irregularity (analysis/figures.py)."""
+"""Tests of the flatness figures and their uncertainties (analysis/figures.py, uncertainty.py).
+
+Every expected value comes from outside the module under test: closed forms of single
+Zernike terms (Noll, JOSA 66, 207, 1976), the sag formula, and the independent reference
+truth in ``tests/refset`` (direct quadrature, written without the project's code).
+"""
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 import pytest
 from flatsight.analysis.figures import (
+    MapFigures,
     compute_figures,
     radius_of_curvature_m,
     to_fringes,
     to_waves,
 )
-from flatsight.analysis.zernike import fit_zernike, zernike_basis
+from flatsight.analysis.zernike import fit_zernike
+
+from tests.refset.surface import RefSurface, truth, zernike
+
+SQ3, SQ5, SQ6 = math.sqrt(3.0), math.sqrt(5.0), math.sqrt(6.0)
 
 
-def disk(n: int = 201):
-    g = np.linspace(-1, 1, n)
-    x, y = np.meshgrid(g, g)
-    keep = np.hypot(x, y) <= 1.0
-    return x[keep], y[keep]
+def grid(n: int = 241):
+    """A square map over the unit disk's square: x right, y up (Zernike coordinates)."""
+    t = np.linspace(-1.0, 1.0, n)
+    xu, yu = np.meshgrid(t, -t)
+    return xu, yu
 
 
-def figures_of(h, x, y, *, n_terms=36, **kw):
-    basis = zernike_basis(n_terms, x, y)
-    fit = fit_zernike(h, x, y, n_terms=n_terms, basis=basis)
-    return compute_figures(h, basis, fit, **kw), basis, fit
+def figures_of(coeffs: dict[int, float], n: int = 241, *, n_terms: int = 36, **kw):
+    """Figures of a surface made of Noll terms, evaluated by the reference set's own
+    Zernike code (tests/refset/surface.py, checked there against aotools)."""
+    xu, yu = grid(n)
+    disk = np.hypot(xu, yu) <= 1.0
+    h = np.zeros(xu.shape)
+    for j, c in coeffs.items():
+        h += c * zernike(j, xu, yu)
+    fit = fit_zernike(h[disk], xu[disk], yu[disk], n_terms=n_terms)
+    kw.setdefault("wavelength_nm", 632.8)
+    return compute_figures(h, disk, xu, yu, fit, **kw)
 
 
 # --- units -------------------------------------------------------------------------------
 
 
 def test_one_fringe_is_half_a_wavelength():
-    # common practice (references.md): one fringe = lambda/2 of height in double pass
+    # common practice: one fringe = lambda/2 of height in double pass (He-Ne 632.8, sodium
+    # 589.3, helium 587.56, mercury e 546.07 nm)
     for lam, fringe_nm in ((632.8, 316.40), (589.3, 294.65), (587.56, 293.78), (546.07, 273.035)):
         assert to_fringes(fringe_nm, lam) == pytest.approx(1.0, abs=1e-5)
         assert to_waves(fringe_nm, lam) == pytest.approx(0.5, abs=1e-5)
-    # flatness grades at 632.8 nm (references.md): lambda/4, /10, /20 PV
+    # common practice: flatness grades lambda/4, /10, /20 PV at 632.8 nm
     assert to_waves(158.2, 632.8) == pytest.approx(0.25)
     assert to_waves(63.28, 632.8) == pytest.approx(0.1)
     assert to_fringes(31.64, 632.8) == pytest.approx(0.1)
@@ -45,147 +65,183 @@ def test_one_fringe_is_half_a_wavelength():
 
 @pytest.mark.parametrize("a4", [-50.0, 30.0])
 def test_power_is_edge_to_centre_sag_with_the_documented_sign(a4):
-    # references.md: sag from Noll's a4 = 2 sqrt 3 |a4|; figures.py documents power positive
-    # when the centre stands high (convex), which is a4 < 0 since Z4 = sqrt 3 (2 rho^2 - 1)
-    x, y = disk()
-    h = a4 * zernike_basis(4, x, y)[:, 3]
-    f, _, _ = figures_of(h, x, y, wavelength_nm=632.8)
-    assert abs(f.power_nm) == pytest.approx(2 * np.sqrt(3) * abs(a4), rel=1e-9)
-    # directly: the height at the centre minus the height at the rim, with the power
-    # term written out (Noll 1976: Z4 = sqrt 3 (2 rho^2 - 1))
-    centre, rim = (a4 * np.sqrt(3) * (2 * rho**2 - 1) for rho in (0.0, 1.0))
-    assert f.power_nm == pytest.approx(centre - rim, rel=1e-9)
+    f = figures_of({4: a4})
+    # closed form (Noll 1976): Z4 = sqrt 3 (2 rho^2 - 1), so centre minus rim is -2 sqrt 3 a4
+    centre, rim = (a4 * SQ3 * (2 * rho**2 - 1) for rho in (0.0, 1.0))
+    assert f.power_nm == pytest.approx(centre - rim, rel=1e-6)
     assert (f.power_nm > 0) == (a4 < 0)
     assert f.power_fringes == pytest.approx(f.power_nm / 316.4, rel=1e-9)
+    assert f.irregularity_nm == pytest.approx(0.0, abs=0.01)  # power alone is not irregular
 
 
 def test_radius_of_curvature_check_values():
-    # references.md (computed): D = 100 mm, one fringe of sag: R = 3950.7 m at 632.8 nm and
-    # 4578.2 m at 546.07 nm; R = (r^2 + s^2) / (2 s) (sag formula, common practice)
+    # computed from the sag formula R = (r^2 + s^2) / (2 s) (common practice): D = 100 mm,
+    # one fringe of sag gives 3950.7 m at 632.8 nm and 4578.2 m at 546.07 nm
     assert radius_of_curvature_m(632.8 / 2, 100.0) == pytest.approx(3950.7, abs=0.05)
     assert radius_of_curvature_m(546.07 / 2, 100.0) == pytest.approx(4578.2, abs=0.05)
-    # the same from the closed form written out here, and its approximation D^2 / (4 N lambda)
     for s_nm, d_mm in ((100.0, 25.0), (-800.0, 150.0), (5000.0, 10.0)):
         r, s = d_mm * 1e-3 / 2, s_nm * 1e-9
         assert radius_of_curvature_m(s_nm, d_mm) == pytest.approx((r * r + s * s) / (2 * s))
         assert radius_of_curvature_m(s_nm, d_mm) == pytest.approx(
-            (d_mm * 1e-3) ** 2 / (8 * s), rel=1e-6)
+            (d_mm * 1e-3) ** 2 / (8 * s), rel=1e-6)  # the D^2 / (8 s) approximation
     assert radius_of_curvature_m(0.0, 100.0) is None
     assert radius_of_curvature_m(float("nan"), 100.0) is None
 
 
 def test_radius_in_the_figures_follows_the_power():
-    x, y = disk(101)
-    h = -40.0 * zernike_basis(4, x, y)[:, 3]  # convex: centre high
-    f, _, _ = figures_of(h, x, y, wavelength_nm=632.8, diameter_mm=100.0)
+    f = figures_of({4: -40.0}, 121, diameter_mm=100.0)  # convex: centre high
     assert f.radius_of_curvature_m == pytest.approx(
         radius_of_curvature_m(f.power_nm, 100.0), rel=1e-12)
     assert f.radius_of_curvature_m > 0
-    f2, _, _ = figures_of(h, x, y, wavelength_nm=632.8)
-    assert f2.radius_of_curvature_m is None  # no diameter, no radius
+    assert figures_of({4: -40.0}, 121).radius_of_curvature_m is None  # no diameter
 
 
-# --- PV, RMS, PVr, irregularity against direct computations ------------------------------
+# --- single terms against their closed forms ----------------------------------------------
 
 
-@pytest.fixture(scope="module")
-def rough_surface():
-    """Low-order terms, a term beyond the 36-term fit, a ripple and noise."""
-    rng = np.random.default_rng(5)
-    x, y = disk()
-    coef = np.zeros(60)
-    coef[1:3] = [200.0, -150.0]  # tilt, to be removed
-    coef[3:15] = rng.normal(0, 15.0, 12)
-    coef[55] = 4.0  # Noll 56: outside the 36-term fit, left in the residual
-    h = zernike_basis(60, x, y) @ coef + 2.0 * np.cos(30 * np.hypot(x, y))
-    h += rng.normal(0, 0.8, h.size)
-    return x, y, h
+@pytest.mark.parametrize("j, pv_per_nm", [
+    (5, 2 * SQ6),  # astigmatism: sqrt 6 rho^2 sin 2t spans +-sqrt 6
+    (7, 4 * math.sqrt(2)),  # coma: sqrt 8 (3 rho^3 - 2 rho) sin t spans +-sqrt 8
+    (9, 4 * math.sqrt(2)),  # trefoil: sqrt 8 rho^3 sin 3t
+    (11, 1.5 * SQ5),  # spherical: sqrt 5 (6 rho^4 - 6 rho^2 + 1) from -sqrt5/2 to sqrt 5
+])
+def test_pv_rms_and_irregularity_of_single_terms(j, pv_per_nm):
+    # closed forms (Noll 1976; PVs computed from the polynomials as commented): a term's
+    # coefficient is its RMS; none of these holds power, so B = PV
+    a = 10.0
+    f = figures_of({j: a, 2: 300.0, 3: -200.0})  # with tilt, which PV and RMS leave out
+    assert f.pv_nm == pytest.approx(pv_per_nm * a, rel=0.01)
+    assert f.irregularity_nm == pytest.approx(pv_per_nm * a, rel=0.01)
+    assert f.rms_nm == pytest.approx(a, rel=0.01)
+    assert f.rms_irregularity_nm == pytest.approx(a, rel=0.01)
 
 
-def test_pv_and_rms_after_piston_and_tilt(rough_surface):
-    x, y, h = rough_surface
-    f, basis, fit = figures_of(h, x, y, wavelength_nm=632.8)
-    # direct: take out the plane of the 36-term fit, then PV and RMS of what is left
-    expected, *_ = np.linalg.lstsq(basis, h, rcond=None)
-    surface = h - basis[:, :3] @ expected[:3]
-    assert f.pv_nm == pytest.approx(np.ptp(surface), rel=1e-9)
-    assert f.rms_nm == pytest.approx(np.std(surface), rel=1e-9)
-    assert f.removed_terms == (1, 2, 3)
-
-
-def test_pvr_is_evans(rough_surface):
-    # Evans 2009: PVr = PV of the 36-term Zernike fit (piston and tilt out) + 3 x RMS of
-    # the fit residual; reference: numpy lstsq on the basis, written out here
-    x, y, h = rough_surface
-    f, basis, _ = figures_of(h, x, y, wavelength_nm=632.8)
-    c, *_ = np.linalg.lstsq(basis, h, rcond=None)
-    fitted = basis[:, 3:] @ c[3:]
-    residual = h - basis @ c
-    assert np.std(residual) > 1.0  # the residual is not trivial here
-    assert f.pvr_nm == pytest.approx(np.ptp(fitted) + 3 * np.std(residual), rel=1e-9)
-
-
-def test_irregularity_is_pv_after_power(rough_surface):
-    # ISO 14999-4 (from memory): irregularity = PV after the best-fit sphere is removed
-    x, y, h = rough_surface
-    f, basis, _ = figures_of(h, x, y, wavelength_nm=632.8)
-    c, *_ = np.linalg.lstsq(basis, h, rcond=None)
-    without_power = h - basis[:, :4] @ c[:4]
-    assert f.irregularity_nm == pytest.approx(np.ptp(without_power), rel=1e-9)
-    assert f.rms_irregularity_nm == pytest.approx(np.std(without_power), rel=1e-9)
-
-
-def test_pure_power_has_no_irregularity():
-    x, y = disk()
-    h = 60.0 * zernike_basis(4, x, y)[:, 3] + 7.0 * x - 3.0
-    f, _, _ = figures_of(h, x, y, wavelength_nm=632.8)
-    assert f.irregularity_nm < 1e-9
-    assert f.pv_nm == pytest.approx(2 * np.sqrt(3) * 60.0, rel=1e-3)  # closed form
-    assert f.rms_nm == pytest.approx(60.0, rel=1e-2)  # orthonormal terms (Noll 1976)
-
-
-def test_rms_of_a_zernike_surface_is_the_root_sum_of_squares():
-    # Noll 1976: orthonormal terms, so RMS = sqrt(sum of squared coefficients, j >= 2)
-    # on a fine sampling of the disk (sampling error well under 1 %)
-    x, y = disk(301)
-    coef = np.zeros(15)
-    coef[3:15] = [12.0, -5.0, 8.0, 3.0, -4.0, 2.0, 1.5, 6.0, -2.0, 1.0, 0.5, -1.0]
-    f, _, _ = figures_of(zernike_basis(15, x, y) @ coef, x, y, wavelength_nm=632.8)
-    assert f.rms_nm == pytest.approx(np.sqrt(np.sum(coef[3:] ** 2)), rel=5e-3)
+def test_symmetric_irregularity_takes_only_the_rotationally_symmetric_part():
+    # C of spherical aberration is its PV, 1.5 sqrt 5 a (closed form); astigmatism, coma and
+    # power add nothing to C; RMSa is the RMS of the non-symmetric terms (Noll: their
+    # coefficients in quadrature)
+    f = figures_of({11: 6.0, 5: 20.0, 8: -9.0, 4: 40.0})
+    assert f.symmetric_irregularity_nm == pytest.approx(1.5 * SQ5 * 6.0, rel=0.02)
+    assert f.rms_asymmetric_nm == pytest.approx(math.hypot(20.0, 9.0), rel=0.01)
+    g = figures_of({5: 20.0, 7: 9.0})
+    assert g.symmetric_irregularity_nm == pytest.approx(0.0, abs=0.1)
 
 
 @pytest.mark.parametrize("a5, a6, axis", [(0.0, 10.0, 0.0), (10.0, 0.0, 45.0),
-                                           (0.0, -10.0, 90.0), (-10.0, 0.0, 135.0)])
+                                          (0.0, -10.0, 90.0), (-10.0, 0.0, 135.0)])
 def test_astigmatism_pv_and_axis(a5, a6, axis):
-    # closed form (references.md): PV of astigmatism = 2 sqrt 6 x its RMS; the high axis
-    # found directly as the direction of the highest rim point
-    x, y = disk(301)
-    B = zernike_basis(6, x, y)
-    h = a5 * B[:, 4] + a6 * B[:, 5]
-    f, _, _ = figures_of(h, x, y, n_terms=15, wavelength_nm=632.8)
-    assert f.astigmatism_nm == pytest.approx(2 * np.sqrt(6) * np.hypot(a5, a6), rel=1e-6)
-    high = np.degrees(np.arctan2(y, x)[np.argmax(h)]) % 180.0
+    # closed form: a6 sqrt 6 rho^2 cos 2t + a5 sqrt 6 rho^2 sin 2t is highest along
+    # t0 = atan2(a5, a6) / 2 and spans 2 sqrt 6 sqrt(a5^2 + a6^2)
+    f = figures_of({5: a5, 6: a6})
+    assert f.astigmatism_nm == pytest.approx(2 * SQ6 * 10.0, rel=1e-6)
     assert f.astigmatism_axis_deg == pytest.approx(axis, abs=1e-6)
-    assert min(abs(high - axis), 180 - abs(high - axis)) < 2.0
 
 
-def test_more_terms_removed():
-    x, y = disk(151)
-    B = zernike_basis(15, x, y)
-    h = B[:, 3] * 40.0 + B[:, 5] * 20.0 + B[:, 10] * 5.0
-    f, basis, fit = figures_of(h, x, y, n_terms=15, wavelength_nm=632.8, removed_terms=(4, 5, 6))
-    rest = 5.0 * B[:, 10]  # only the spherical term is left
-    assert f.pv_nm == pytest.approx(np.ptp(rest), rel=1e-6)
-    assert f.removed_terms == (1, 2, 3, 4, 5, 6)
-    assert f.symmetric_irregularity_nm == pytest.approx(1.5 * np.sqrt(5) * 5.0, rel=1e-3)
+# --- PVr against the independent reference truth -------------------------------------------
+
+
+@pytest.mark.parametrize("coeffs", [
+    {4: 20.0, 6: -8.0, 11: 3.0},  # inside both 36-term sets
+    {4: 10.0, 35: 5.0},  # Noll 35 (n 7, m -7): in Noll's first 36, not in the Fringe 36
+    {5: 12.0, 56: 4.0},  # Noll 56 (n 10, m 0): in the Fringe 36 (its term 36), not Noll's
+])
+def test_pvr_is_evans_with_the_fringe_set(coeffs):
+    # Evans, Opt. Eng. 48(4), 043605 (2009): PV of a 36-term fit + 3 x RMS of the residual;
+    # the term set is the Fringe 36 (Wyant & Creath 1992, from memory). The truth is the
+    # reference set's own quadrature (tests/refset/surface.py), sharing no project code.
+    expected = truth(RefSurface(dict(coeffs)), 632.8)["pvr_nm"]
+    f = figures_of(coeffs, 301)
+    assert f.pvr_nm == pytest.approx(expected, rel=0.01, abs=0.1)
+
+
+def test_pvr_differs_from_a_noll_36_fit_where_the_sets_differ():
+    # a term in Noll's 36 but outside the Fringe 36 is residual for PVr (3 x its RMS)
+    t = truth(RefSurface({35: 5.0}), 632.8)
+    assert t["pvr_nm"] == pytest.approx(15.0, rel=0.01)  # 3 x RMS, RMS = coefficient
+    assert t["pvr_noll36_nm"] > 20.0  # PV of Z35 itself (sqrt 16 rho^7 sin 7t spans +-4 x 5)
+    # a 301-pixel disk samples rho^7 sin 7t coarsely at the rim, which leaks ~0.05 nm into
+    # each fitted term; the fitted PV of that leak is under 1 nm, far from the 40 nm of Z35
+    assert figures_of({35: 5.0}, 301).pvr_nm == pytest.approx(15.0, abs=1.0)
+
+
+# --- robust figures: one bad pixel cannot decide a verdict ----------------------------------
+
+
+def test_a_spike_moves_the_raw_pv_but_not_the_robust_figures():
+    xu, yu = grid(241)
+    disk = np.hypot(xu, yu) <= 1.0
+    h = 10.0 * zernike(6, xu, yu) + 5.0 * zernike(4, xu, yu)
+    clean_fit = fit_zernike(h[disk], xu[disk], yu[disk], n_terms=36)
+    clean = compute_figures(h, disk, xu, yu, clean_fit, wavelength_nm=632.8, resolution_px=4.0)
+    spiked = h.copy()
+    spiked[120, 236] += 40.0  # one rim pixel 40 nm off
+    fit = fit_zernike(spiked[disk], xu[disk], yu[disk], n_terms=36)
+    f = compute_figures(spiked, disk, xu, yu, fit, wavelength_nm=632.8, resolution_px=4.0)
+    assert f.pv_raw_nm > clean.pv_raw_nm + 30.0
+    assert f.pv_nm == pytest.approx(clean.pv_nm, abs=1.0)
+    assert f.irregularity_nm == pytest.approx(clean.irregularity_nm, abs=1.0)
+    # PVr: 2 sqrt 6 x 10 nm of astigmatism (closed form) and a tiny residual
+    assert f.pvr_nm == pytest.approx(2 * SQ6 * 10.0, abs=1.5)
 
 
 def test_inputs_are_not_mutated():
-    x, y = disk(61)
-    h = zernike_basis(10, x, y) @ np.linspace(1, 10, 10)
-    basis = zernike_basis(15, x, y)
-    fit = fit_zernike(h, x, y, n_terms=15, basis=basis)
-    copies = (h.copy(), basis.copy(), fit.coefficients_nm.copy())
-    compute_figures(h, basis, fit, wavelength_nm=546.07, diameter_mm=50.0)
-    for before, after in zip(copies, (h, basis, fit.coefficients_nm), strict=True):
-        np.testing.assert_array_equal(before, after)
+    xu, yu = grid(121)
+    disk = np.hypot(xu, yu) <= 1.0
+    h = 7.0 * zernike(5, xu, yu)
+    before = (h.copy(), disk.copy(), xu.copy())
+    fit = fit_zernike(h[disk], xu[disk], yu[disk], n_terms=36)
+    compute_figures(h, disk, xu, yu, fit, wavelength_nm=632.8, resolution_px=3.0)
+    for a, b in zip(before, (h, disk, xu), strict=True):
+        assert np.array_equal(a, b)
+
+
+def test_more_terms_removed():
+    f = MapFigures.of(*_map({4: 30.0, 5: 10.0, 11: 4.0})).figures(
+        wavelength_nm=632.8, diameter_mm=None, removed_terms=(4, 5))
+    # what is left is spherical alone: PV 1.5 sqrt 5 a11 (closed form)
+    assert f.pv_nm == pytest.approx(1.5 * SQ5 * 4.0, rel=0.02)
+    assert f.power_nm == 0.0 and f.astigmatism_nm == pytest.approx(0.0)
+
+
+def _map(coeffs, n=201):
+    xu, yu = grid(n)
+    disk = np.hypot(xu, yu) <= 1.0
+    h = sum(c * zernike(j, xu, yu) for j, c in coeffs.items())
+    return h, disk, xu, yu
+
+
+# --- uncertainty ------------------------------------------------------------------------------
+
+
+def test_every_figure_carries_a_positive_expanded_uncertainty():
+    f = figures_of({4: 20.0, 6: 8.0})
+    for name in ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm",
+                 "symmetric_irregularity_nm", "rms_irregularity_nm", "rms_asymmetric_nm",
+                 "astigmatism_nm"):
+        assert f.uncertainty_nm[name] > 0
+        assert set(f.uncertainty_budget[name]) == {"noise_nm", "method_nm", "wavelength_nm",
+                                                   "reference_nm"}
+
+
+def test_stated_uncertainties_enter_in_quadrature_with_k_2():
+    # GUM (JCGM 100:2008) 5.1 and 6.3: standard uncertainties add in quadrature, U = k u
+    # with k = 2. A reference flat stated at U = 10 nm contributes 5 nm standard.
+    base = figures_of({4: 40.0})
+    ref = figures_of({4: 40.0}, reference_uncertainty_nm=10.0)
+    for name in ("pv_nm", "power_nm"):
+        u0 = base.uncertainty_nm[name] / 2
+        assert ref.uncertainty_nm[name] / 2 == pytest.approx(math.hypot(u0, 5.0), rel=1e-9)
+    # the wavelength scales every height: u(power) gains |power| u(lambda) / lambda
+    wl = figures_of({4: 40.0}, wavelength_uncertainty_nm=6.328)
+    u_lam = abs(base.power_nm) * 0.01
+    assert wl.uncertainty_nm["power_nm"] / 2 == pytest.approx(
+        math.hypot(base.uncertainty_nm["power_nm"] / 2, u_lam), rel=1e-9)
+
+
+def test_averaging_shrinks_the_photo_to_photo_parts():
+    # GUM 4.2.3: the standard uncertainty of a mean of N independent values is u / sqrt N
+    one = figures_of({4: 40.0, 5: 10.0})
+    four = figures_of({4: 40.0, 5: 10.0}, photos=4)
+    for name in ("pv_nm", "irregularity_nm", "power_nm"):
+        assert four.uncertainty_nm[name] == pytest.approx(one.uncertainty_nm[name] / 2,
+                                                          rel=1e-9)
