@@ -13,6 +13,7 @@ import sys
 
 from ..analysis.version import flatsight_version
 from .options import EXIT_CODES
+from .safe_text import shown
 
 # (module, one-line summary) in the order a shop uses them
 COMMANDS = [
@@ -40,7 +41,8 @@ class OneLineParser(argparse.ArgumentParser):
     """An argument parser whose usage errors are one line (exit status 2)."""
 
     def error(self, message: str):  # noqa: D401 - argparse's hook
-        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+        # the message may quote what was typed, control characters and all
+        self.exit(2, f"{self.prog}: error: {shown(message)} (see {self.prog} --help)\n")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -102,9 +104,9 @@ def main(argv: list[str] | None = None) -> int:
         from flatsight.analysis.errors import FlatsightError
 
         if isinstance(exc, FlatsightError):
-            print(f"flatsight: error: {exc}", file=sys.stderr)
+            print(f"flatsight: error: {shown(exc)}", file=sys.stderr)
             return 2
-        print(f"flatsight: internal error: {type(exc).__name__}: {exc} "
+        print(f"flatsight: internal error: {type(exc).__name__}: {shown(exc)} "
               "(set FLATSIGHT_DEBUG=1 for details)", file=sys.stderr)
         return 4
 

@@ -9,6 +9,7 @@ from pathlib import Path
 from .multi_options import add_multi_options
 from .options import EXIT_CODES, circle_type, expand_photos, wavelength_type
 from .record_options import add_record_options
+from .safe_text import shown
 
 HELP = "measure fringe photos: PV, RMS, PVr, power, irregularity"
 DESCRIPTION = """\
@@ -141,13 +142,13 @@ def run(args: argparse.Namespace) -> int:
         else:
             args, settings = photo_args(None)
     except (SettingsError, argparse.ArgumentTypeError, ValueError) as exc:
-        print(f"flatsight measure: error: {exc}", file=err)
+        print(f"flatsight measure: error: {shown(exc)}", file=err)
         return 2
 
     photos, problems = expand_photos(args.photos)
     status = 0
     for problem in problems:
-        print(f"flatsight measure: error: {problem}", file=err)
+        print(f"flatsight measure: error: {shown(problem)}", file=err)
         status = 2
     if args.save_map and len(photos) > 1 and "{name}" not in args.save_map:
         print("flatsight measure: error: with several photos, put {name} in --save-map "
@@ -179,15 +180,15 @@ def run(args: argparse.Namespace) -> int:
         if isinstance(exc, UnanalysablePhotoError):
             # the library names the photo in some messages; say it once
             where = "" if photo in str(exc) else f" {photo}"
-            print(f"flatsight measure: cannot analyse{where}: {exc}", file=err)
+            print(f"flatsight measure: cannot analyse{shown(where)}: {shown(exc)}", file=err)
             return 3
-        print(f"flatsight measure: error: {exc}", file=err)
+        print(f"flatsight measure: error: {shown(exc)}", file=err)
         return 2
 
     try:
         check_multi_options(args)  # a bad reference map fails before any photo
     except (UnreadablePhotoError, SettingsError) as exc:
-        print(f"flatsight measure: error: {exc}", file=err)
+        print(f"flatsight measure: error: {shown(exc)}", file=err)
         return 2
 
     progress = reporter.progress(len(photos), stream=err)

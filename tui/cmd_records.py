@@ -18,6 +18,7 @@ from datetime import datetime
 from pathlib import Path
 
 from ..analysis.errors import FlatsightError, SettingsError
+from .safe_text import csv_row, literal, shown
 
 __all__ = ["add_parser", "run", "run_history", "run_report", "run_trend", "trend_lines"]
 
@@ -88,7 +89,7 @@ def _log_path(args: argparse.Namespace) -> Path:
 
 
 def _fail(command: str, exc: FlatsightError) -> int:
-    print(f"flatsight {command}: error: {exc}", file=sys.stderr)
+    print(f"flatsight {command}: error: {shown(exc)}", file=sys.stderr)
     return 2
 
 
@@ -99,15 +100,16 @@ def _csv_row(rec: dict) -> dict:
     spec = rec.get("spec") or {}
     row = {k: rec.get(k) for k in CSV_FIELDS}
     row["tolerance"] = spec.get("tolerance")
-    return row
+    return csv_row(row)
 
 
-def _cell(value, digits: int = 1) -> str:
+def _cell(value, digits: int = 1):
+    """A table cell: a number to ``digits`` places, or stored text shown literally."""
     if value is None:
         return "—"
     if isinstance(value, float):
         return f"{value:.{digits}f}" if math.isfinite(value) else "—"
-    return str(value)
+    return literal(value)
 
 
 def run_history(args: argparse.Namespace) -> int:
@@ -152,14 +154,15 @@ def run_history(args: argparse.Namespace) -> int:
     for rec in rows:
         verdict = rec.get("verdict")
         style = {"pass": "bold green", "fail": "bold red"}.get(verdict, "dim")
-        cells = [str(rec["record_id"]), str(rec.get("logged_utc", ""))[:16].replace("T", " "),
+        cells = [str(rec["record_id"]),
+                 literal(str(rec.get("logged_utc", ""))[:16].replace("T", " ")),
                  _cell(rec.get("part"))]
         if people:
             cells += [_cell(rec.get("operator")), _cell(rec.get("station"))]
         cells += [_cell(rec.get("pv_nm")), _cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
-                  _cell(rec.get("irregularity_nm")), f"[{style}]{verdict or '—'}[/]"]
+                  _cell(rec.get("irregularity_nm")), literal(verdict or "—", style)]
         table.add_row(*cells)
-    console.print(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)",
+    console.print(literal(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)"),
                   style="bold", overflow="fold")
     console.print(table)
     return 0
@@ -277,8 +280,8 @@ def run_trend(args: argparse.Namespace) -> int:
     limits, limit_note = _limits_for(rows[-1], args.figure)
     width = min(console.width if console.is_terminal else shutil.get_terminal_size().columns,
                 120)
-    console.print(f"{args.figure} over time: {len(points)} records"
-                  + (f", part {args.part}" if args.part else ""), style="bold")
+    console.print(literal(f"{args.figure} over time: {len(points)} records"
+                          + (f", part {args.part}" if args.part else "")), style="bold")
     for line in trend_lines(points, width=max(40, width), height=args.height,
                             limits_nm=limits):
         label, bar, body = line.partition("│")
@@ -294,7 +297,7 @@ def run_trend(args: argparse.Namespace) -> int:
     passed = sum(r["verdict"] == "pass" for r in judged)
     rate = (f"pass rate {passed}/{len(judged)} ({100.0 * passed / len(judged):.1f} %)"
             if judged else "pass rate: no record had a tolerance")
-    console.print(f"o pass  x fail  * no tolerance  --- {limit_note}")
+    console.print(literal(f"o pass  x fail  * no tolerance  --- {limit_note}"))
     console.print(rate, style="bold")
     return 0
 
@@ -324,5 +327,6 @@ def run_report(args: argparse.Namespace) -> int:
     except OSError as exc:
         return _fail("report", SettingsError(f"cannot write {out}: {exc.strerror or exc}"))
     verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
-    print(f"wrote {out} (record {args.record_id}, {rec.get('part') or 'no part'}, {verdict})")
+    print(shown(f"wrote {out} (record {args.record_id}, {rec.get('part') or 'no part'}, "
+                f"{verdict})"))
     return 0

@@ -8,6 +8,7 @@ import sys
 from pathlib import Path
 
 from .options import EXIT_CODES, circle_type, wavelength_type
+from .safe_text import shown
 
 HELP = "measure a phase-shifted sequence of frames (no tilt fringes needed)"
 DESCRIPTION = """\
@@ -220,10 +221,10 @@ def run(args: argparse.Namespace) -> int:
                 ) from None
             record["height_map_path"] = str(Path(args.save_map).resolve())
     except (UnreadablePhotoError, SettingsError) as exc:
-        print(f"flatsight stack: error: {exc}", file=err)
+        print(f"flatsight stack: error: {shown(exc)}", file=err)
         return 2
     except UnanalysablePhotoError as exc:
-        print(f"flatsight stack: cannot analyse the sequence: {exc}", file=err)
+        print(f"flatsight stack: cannot analyse the sequence: {shown(exc)}", file=err)
         return 3
 
     if args.json:
@@ -235,17 +236,19 @@ def run(args: argparse.Namespace) -> int:
 
 def _print_table(record: dict) -> None:
     from rich.console import Console
+    from rich.text import Text
 
-    from .report_text import figures_table, zernike_table
+    from .report_text import figures_table, warning_text, zernike_table
 
     c = Console(highlight=False)
     ap = record["aperture"]
     step = record["step_found_deg"]
-    c.print(
-        f"[bold]{len(record['frames'])} frames[/] from {record['frames'][0]}   "
+    c.print(Text.assemble(
+        (f"{len(record['frames'])} frames", "bold"),
+        f" from {shown(record['frames'][0])}   "
         f"{record['wavelength_nm']:g} nm   aperture r={ap['radius_px']:.1f} px at "
         f"({ap['center_x_px']:.1f}, {ap['center_y_px']:.1f})"
-    )
+    ))
     c.print(
         f"algorithm: {record['algorithm']}   step found: "
         f"{'-' if step is None else f'{step:.2f} deg'}   visibility "
@@ -256,4 +259,4 @@ def _print_table(record: dict) -> None:
     c.print()
     c.print(zernike_table(record))
     for w in record.get("warnings", []):
-        c.print(f"[yellow]warning:[/] {w}")
+        c.print(warning_text(w))

@@ -18,6 +18,7 @@ from pathlib import Path
 
 from .options import circle_type, wavelength_type
 from .record_options import add_record_options
+from .safe_text import shown
 
 __all__ = ["FolderWatcher", "add_parser", "measure_photo", "run"]
 
@@ -205,7 +206,7 @@ def _line(record: dict, path: Path) -> str:
     verdict = (record.get("spec") or {}).get("verdict")
     word = {"pass": "PASS", "fail": "FAIL"}.get(verdict, "—")
     rid = record.get("record_id")
-    return (f"{_stamp()}  {record.get('part') or path.stem:<16} PV {nm('pv_nm')} nm  "
+    return (f"{_stamp()}  {shown(record.get('part') or path.stem):<16} PV {nm('pv_nm')} nm  "
             f"PVr {nm('pvr_nm')} nm  power {nm('power_nm')} nm  {word:<4}"
             + (f"  #{rid}" if rid is not None else ""))
 
@@ -221,11 +222,12 @@ def _handle(path: Path, args: argparse.Namespace, counts: Counter) -> None:
         record, _ = finish_record(per_photo, record)
     except FlatsightError as exc:
         counts["error"] += 1
-        print(f"{_stamp()}  {path.name}: error: {exc}", flush=True)
+        print(f"{_stamp()}  {shown(path.name)}: error: {shown(exc)}", flush=True)
         return
     except Exception as exc:  # noqa: BLE001 - one bad photo must not stop the station's watch
         counts["error"] += 1
-        print(f"{_stamp()}  {path.name}: internal error: {type(exc).__name__}: {exc}",
+        print(f"{_stamp()}  {shown(path.name)}: internal error: {type(exc).__name__}: "
+              f"{shown(exc)}",
               flush=True)
         return
     verdict = (record.get("spec") or {}).get("verdict")
@@ -268,11 +270,11 @@ def run(args: argparse.Namespace) -> int:
                 raise SettingsError(f"{name} must be zero or more seconds")
         watcher = FolderWatcher(folder, settle_s=args.settle, include_existing=args.existing)
     except (SettingsError, argparse.ArgumentTypeError, OSError) as exc:
-        print(f"flatsight watch: error: {exc}", file=sys.stderr)
+        print(f"flatsight watch: error: {shown(exc)}", file=sys.stderr)
         return 2
 
     log_path = log_path_from_args(args)
-    print(f"watching {folder} (logging to {log_path or 'nothing: --no-log'}); "
+    print(f"watching {shown(folder)} (logging to {shown(log_path or 'nothing: --no-log')}); "
           "ctrl+c to stop", flush=True)
     counts: Counter = Counter()
     start = time.monotonic()
