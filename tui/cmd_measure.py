@@ -108,7 +108,7 @@ def run(args: argparse.Namespace) -> int:
     from flatsight.analysis.record import measurement_to_record, save_height_map
 
     from .multi_options import check_multi_options, combine_with_sections
-    from .record_options import apply_preset, finish_record, tolerance_from_args
+    from .record_options import apply_preset, judge_and_log, tolerance_from_args
     from .report_text import Reporter
 
     err = sys.stderr
@@ -159,8 +159,11 @@ def run(args: argparse.Namespace) -> int:
     reporter = Reporter(mode=mode, detail=args.detail or len(photos) == 1 or args.average,
                         ordering=args.ordering)
 
+    log_failed = False  # after the log refused a record, the rest are shown unlogged
+
     def report(item, photo: str, opts: argparse.Namespace) -> int:
         """Record, save, judge and print one result; returns its exit status."""
+        nonlocal log_failed
         m = item.measurement
         record = measurement_to_record(m, ordering=args.ordering)
         record.update(item.sections)
@@ -172,7 +175,16 @@ def run(args: argparse.Namespace) -> int:
                 raise SettingsError(f"cannot write the height map {target}: "
                                     f"{exc.strerror or exc}") from None
             record["height_map_path"] = str(Path(target).resolve())
-        record, verdict_status = finish_record(opts, record)
+        if log_failed:
+            opts = argparse.Namespace(**{**vars(opts), "no_log": True})
+        record, verdict_status, log_error = judge_and_log(opts, record)
+        if log_error is not None:
+            log_failed = True
+            progress.pause()
+            print(f"flatsight measure: cannot write the log: {shown(log_error)}; results "
+                  "from here on are shown but not logged (free the log or give another "
+                  "--log PATH, or --no-log)", file=err)
+            verdict_status = 2
         reporter.emit(record, m)
         return verdict_status
 

@@ -7,7 +7,9 @@
     tolerance_from_args(args)                  # before measuring: a bad --spec fails fast
     record, status = finish_record(args, rec)  # per photo: spec section, record_id, log
 
-A malformed tolerance, preset or log raises :class:`SettingsError` (exit 2).
+A malformed tolerance or preset raises :class:`SettingsError` (exit 2); a log that cannot
+be written raises :class:`InspectionLogError`, and :func:`judge_and_log` turns that into
+the judged record, unlogged, with the reason, so the result is still shown.
 """
 
 from __future__ import annotations
@@ -18,7 +20,7 @@ import math
 import socket
 from pathlib import Path
 
-from ..analysis.errors import SettingsError
+from ..analysis.errors import InspectionLogError
 from ..analysis.inspection_log import default_log_path, record_measurement, utc_now
 from ..analysis.tolerances import Tolerance, evaluate, parse_tolerance, spec_section
 
@@ -28,6 +30,7 @@ __all__ = [
     "add_record_options",
     "apply_preset",
     "finish_record",
+    "judge_and_log",
     "log_path_from_args",
     "tolerance_from_args",
 ]
@@ -172,6 +175,21 @@ def finish_record(args: argparse.Namespace, record: dict) -> tuple[dict, int]:
                 path, out, part=out["part"], operator=out["operator"], station=out["station"],
                 logged_utc=out["logged_utc"])
         except OSError as exc:
-            raise SettingsError(f"cannot write the inspection log {path}: {exc}; "
-                                "give another --log PATH or --no-log") from None
+            raise InspectionLogError(f"{path}: {exc.strerror or exc}") from None
     return out, status
+
+
+def judge_and_log(args: argparse.Namespace, record: dict
+                  ) -> tuple[dict, int, InspectionLogError | None]:
+    """:func:`finish_record`, but a log that cannot be written does not lose the result.
+
+    Returns the record, its status, and None; or, when the log refused it, the record
+    judged without logging (no ``record_id``) and the log's error, for the caller to say.
+    """
+    try:
+        out, status = finish_record(args, record)
+    except InspectionLogError as exc:
+        out, status = finish_record(argparse.Namespace(**{**vars(args), "no_log": True}),
+                                    record)
+        return out, status, exc
+    return out, status, None

@@ -290,3 +290,80 @@ def test_console_command(photo_set, tmp_path):
     assert len(records) == 1 and records[0]["wavelength_nm"] == 632.8
     assert_one_line_error(done.stderr, str(empty))
     assert not (tmp_path / "data").exists()  # --no-log: nothing written to the data folder
+
+
+# --- a log that cannot be written: every result still shown, one line, exit 2 --------------
+
+
+def three_photos(tmp_path, photo_set):
+    names = ["BW-FL-0412.png", "BW-FL-0413.png", "BW-FL-0588.png"]
+    for name in names:
+        (tmp_path / name).write_bytes(photo_set.good_png.read_bytes())
+    return [tmp_path / name for name in names]
+
+
+@pytest.mark.parametrize("mode", ["--json", "table"])
+def test_a_folder_as_the_log_still_shows_every_result(mode, quick_measure, photo_set, tmp_path,
+                                                     capsys):
+    photos = three_photos(tmp_path, photo_set)
+    flags = [mode] if mode != "table" else []
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--log", tmp_path, *flags)
+    assert status == 2
+    line = assert_one_line_error(err, "cannot write the log", "is a folder")
+    assert "internal error" not in line
+    if mode == "--json":
+        records = json_lines(out)
+        assert [Path(r["photo"]).name for r in records] == [p.name for p in photos]
+        assert all("record_id" not in r for r in records)
+    else:
+        for p in photos:
+            assert p.name in out
+
+
+def test_a_full_disk_mid_batch_still_shows_every_result(quick_measure, photo_set, tmp_path,
+                                                       capsys, monkeypatch):
+    import sqlite3
+
+    from flatsight.analysis import inspection_log
+
+    photos = three_photos(tmp_path, photo_set)
+    log = tmp_path / "log.sqlite"
+    real_connect, connections = sqlite3.connect, []
+
+    def second_write_finds_the_disk_full(*args, **kwargs):
+        # 'PRAGMA max_page_count' makes SQLite answer SQLITE_FULL, as on a full disk
+        # (SQLite documentation, from memory); from the second record on the file may not grow
+        con = real_connect(*args, **kwargs)
+        connections.append(con)
+        if len(connections) > 1:
+            pages = con.execute("PRAGMA page_count").fetchone()[0]
+            con.execute(f"PRAGMA max_page_count = {pages}")
+        return con
+
+    monkeypatch.setattr(sqlite3, "connect", second_write_finds_the_disk_full)
+    long_part = "BW-FL-" + "0" * 20000  # a record bigger than any free room in the pages
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--log", log, "--json",
+                               "--part", long_part)
+    monkeypatch.undo()
+    assert status == 2
+    line = assert_one_line_error(err, "cannot write the log", "the disk is full")
+    assert "not a readable" not in line
+    records = json_lines(out)
+    assert len(records) == 3
+    assert [("record_id" in r) for r in records] == [True, False, False]
+    assert [r["record_id"] for r in inspection_log.query(log)] == [records[0]["record_id"]]
+
+
+def test_a_log_the_user_cannot_write_still_shows_the_result(photo_set, shared_folder,
+                                                           run_as_reader):
+    # a new log in a folder the user may not write (a 0555 folder, a read-only mount)
+    photo = shared_folder / "BW-FL-0412.png"
+    photo.write_bytes(photo_set.good_png.read_bytes())
+    code = "import sys; from flatsight.tui.cli import main; sys.exit(main(sys.argv[1:]))"
+    done = run_as_reader(shared_folder, code, "measure", str(photo), *W, "--json",
+                         "--log", str(shared_folder / "log.sqlite"))
+    assert done.returncode == 2, done.stderr
+    assert_one_line_error(done.stderr, "cannot write the log")
+    records = json_lines(done.stdout)
+    assert len(records) == 1 and "record_id" not in records[0]
+    assert not (shared_folder / "log.sqlite").exists()

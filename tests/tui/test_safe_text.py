@@ -21,7 +21,6 @@ import re
 import unicodedata
 
 import pytest
-from flatsight.analysis.pipeline import MeasureSettings, measure
 from flatsight.analysis.record import measurement_to_record
 from flatsight.tui import cmd_watch, record_options
 from flatsight.tui.cli import main
@@ -88,23 +87,6 @@ def test_csv_cells_follow_the_owasp_defence_for_text_only(value, cell):
 # --- the command line ---------------------------------------------------------------------
 
 
-@pytest.fixture(scope="module")
-def measured(photo_set):
-    """One real measurement, reused under other names so each test need not measure."""
-    return measure(str(photo_set.good_png), MeasureSettings(wavelength_nm=632.8))
-
-
-@pytest.fixture
-def fake_measure(measured, monkeypatch):
-    """``measure`` answering with the module's measurement, renamed after the photo asked for."""
-    import flatsight.analysis.pipeline as pipeline
-
-    def quick(photo, settings, **_):
-        return dataclasses.replace(measured, photo=str(photo))
-
-    monkeypatch.setattr(pipeline, "measure", quick)
-
-
 def run_cli(capsys, *argv):
     status = main([str(a) for a in argv])
     captured = capsys.readouterr()
@@ -118,7 +100,7 @@ def hostile_photo(tmp_path, photo_set):
 
 
 @pytest.mark.parametrize("mode", ["table", "detail"])
-def test_measure_tables_show_names_and_parts_literally(mode, fake_measure, photo_set, tmp_path,
+def test_measure_tables_show_names_and_parts_literally(mode, quick_measure, photo_set, tmp_path,
                                                       capsys):
     photo = hostile_photo(tmp_path, photo_set)
     extra = ["--detail"] if mode == "detail" else []
@@ -134,7 +116,7 @@ def test_measure_tables_show_names_and_parts_literally(mode, fake_measure, photo
         assert "\\x1b]0;x\\x07\\x9b6n" in flat
 
 
-def test_measure_csv_escapes_and_defends_text_cells(fake_measure, photo_set, tmp_path, capsys):
+def test_measure_csv_escapes_and_defends_text_cells(quick_measure, photo_set, tmp_path, capsys):
     photo = hostile_photo(tmp_path, photo_set)
     status, out, err = run_cli(capsys, "measure", photo, "-w", "632.8", "--csv", "--no-log",
                                "--part", "=HYPERLINK(\"http://x\",\"BW\r\n-FL\")",
@@ -222,7 +204,7 @@ def argparse_watch(folder):
     return p.parse_args(["watch", str(folder), "-w", "632.8", "--no-log"])
 
 
-def test_the_json_output_was_safe_already(fake_measure, photo_set, tmp_path, capsys):
+def test_the_json_output_was_safe_already(quick_measure, photo_set, tmp_path, capsys):
     photo = hostile_photo(tmp_path, photo_set)
     status, out, _ = run_cli(capsys, "measure", photo, "-w", "632.8", "--json", "--no-log",
                              "--part", HOSTILE_PART)
