@@ -7,7 +7,7 @@ import json
 import sys
 from pathlib import Path
 
-from .options import EXIT_CODES, wavelength_type
+from .options import EXIT_CODES, angle_type, diameter_type, terms_type, wavelength_type
 from .safe_text import shown
 
 HELP = "absolute three-flat test: each flat's own shape from the pair photos"
@@ -66,7 +66,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--angle",
-        type=float,
+        type=angle_type,
         metavar="DEG",
         default=None,
         help="how far A was turned for --rotated, counter-clockwise as seen in the photo",
@@ -97,14 +97,14 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--terms",
-        type=int,
+        type=terms_type,
         metavar="N",
         default=36,
         help="Zernike terms to solve (Noll, whole radial orders; default 36)",
     )
     p.add_argument(
         "--diameter",
-        type=float,
+        type=diameter_type,
         metavar="MM",
         default=None,
         help="physical clear-aperture diameter, for the radius of curvature",

@@ -7,7 +7,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from .options import EXIT_CODES, expand_photos, wavelength_type
+from .options import EXIT_CODES, diameter_type, expand_photos, wavelength_type
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -74,7 +74,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--diameter",
-        type=float,
+        type=diameter_type,
         metavar="MM",
         default=None,
         help="physical clear-aperture diameter, for the radius of curvature",

@@ -7,7 +7,16 @@ import sys
 from pathlib import Path
 
 from .multi_options import add_multi_options
-from .options import EXIT_CODES, circle_type, expand_photos, wavelength_type
+from .options import (
+    EXIT_CODES,
+    MapNames,
+    check_map_path,
+    circle_type,
+    diameter_type,
+    expand_photos,
+    terms_type,
+    wavelength_type,
+)
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -54,11 +63,11 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
                         "automatically")
     p.add_argument("--exclude", type=circle_type, metavar="X,Y,R", action="append",
                    default=[], help="leave a circle out (a chip, a central hole); repeatable")
-    p.add_argument("--diameter", type=float, metavar="MM", default=None,
+    p.add_argument("--diameter", type=diameter_type, metavar="MM", default=None,
                    help="physical clear-aperture diameter, for the radius of curvature")
     p.add_argument("--invert", action="store_true",
                    help="flip the sign of the surface (see 'Sign' above)")
-    p.add_argument("--terms", type=int, metavar="N", default=None,
+    p.add_argument("--terms", type=terms_type, metavar="N", default=None,
                    help="Zernike terms to fit (Noll, default 36, at least 15)")
     p.add_argument("--ordering", choices=("noll", "osa"), default="noll",
                    help="Zernike ordering in the output: noll (from j=1, default) or osa "
@@ -90,12 +99,6 @@ def _settings(args: argparse.Namespace):
         exclusions=tuple(Exclusion(*c) for c in args.exclude),
         report_wavelength_nm=args.report_wavelength,
     )
-
-
-def _map_path(template: str, photo: str, n_photos: int) -> str:
-    if "{name}" in template:
-        return template.replace("{name}", Path(photo).stem)
-    return template
 
 
 def run(args: argparse.Namespace) -> int:
@@ -154,6 +157,14 @@ def run(args: argparse.Namespace) -> int:
         print("flatsight measure: error: with several photos, put {name} in --save-map "
               "(e.g. maps/{name}.npy)", file=err)
         return 2
+    map_names = None
+    if args.save_map:
+        try:
+            check_map_path(args.save_map)  # a bad suffix fails before any photo is measured
+        except SettingsError as exc:
+            print(f"flatsight measure: error: {shown(exc)}", file=err)
+            return 2
+        map_names = MapNames(args.save_map)
 
     mode = "json" if args.json else "csv" if args.csv else "table"
     reporter = Reporter(mode=mode, detail=args.detail or len(photos) == 1 or args.average,
@@ -167,8 +178,8 @@ def run(args: argparse.Namespace) -> int:
         m = item.measurement
         record = measurement_to_record(m, ordering=args.ordering)
         record.update(item.sections)
-        if args.save_map:
-            target = _map_path(args.save_map, photo, len(photos))
+        if map_names is not None:
+            target = map_names.target(photo)
             try:
                 save_height_map(m, target)
             except OSError as exc:

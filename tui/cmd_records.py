@@ -18,6 +18,8 @@ from datetime import datetime
 from pathlib import Path
 
 from ..analysis.errors import FlatsightError, SettingsError
+from .options import count_type, whole_number_type
+from .record_options import log_path_type
 from .safe_text import csv_row, literal, shown
 
 __all__ = ["add_parser", "run", "run_history", "run_report", "run_trend", "trend_lines"]
@@ -29,8 +31,13 @@ CSV_FIELDS = ("record_id", "logged_utc", "part", "operator", "station", "photo",
               "tolerance", "verdict")
 
 
+# a record id SQLite can hold; plot rows a terminal can show
+record_id_type = whole_number_type("record id", 1, 2**63 - 1)
+height_type = whole_number_type("--height", 4, 500)
+
+
 def _log_option(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--log", metavar="PATH", default=None,
+    p.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
                    help="inspection log (default: inspections.sqlite in the user data dir)")
 
 
@@ -45,7 +52,8 @@ def add_parser(subparsers) -> None:
     h.add_argument("--part", metavar="ID", help="only this part")
     h.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
     h.add_argument("--verdict", choices=("pass", "fail"), help="only this verdict")
-    h.add_argument("--limit", metavar="N", type=int, default=None, help="at most N records")
+    h.add_argument("--limit", metavar="N", type=count_type, default=None,
+                   help="at most N records")
     fmt = h.add_mutually_exclusive_group()
     fmt.add_argument("--json", action="store_true", help="JSON Lines, one record a line")
     fmt.add_argument("--csv", action="store_true", help="CSV with one row a record")
@@ -62,7 +70,8 @@ def add_parser(subparsers) -> None:
     t.add_argument("--part", metavar="ID", help="only this part")
     t.add_argument("--figure", default="pvr_nm", choices=TREND_FIGURES,
                    help="figure to plot (default pvr_nm)")
-    t.add_argument("--height", type=int, default=12, help="plot rows (default 12)")
+    t.add_argument("--height", type=height_type, default=12,
+                   help="plot rows (4 to 500, default 12)")
     t.set_defaults(records_command="trend", run=run_trend)
 
     r = subparsers.add_parser(
@@ -70,7 +79,8 @@ def add_parser(subparsers) -> None:
         description="Write the certificate of a logged inspection: FILE.html is one "
                     "self-contained page that prints on A4 or Letter; FILE.png is the "
                     "surface map alone.")
-    r.add_argument("record_id", type=int, metavar="RECORD_ID", help="see 'flatsight history'")
+    r.add_argument("record_id", type=record_id_type, metavar="RECORD_ID",
+                   help="see 'flatsight history'")
     _log_option(r)
     r.add_argument("--output", "-o", metavar="FILE", required=True, help="FILE.html or FILE.png")
     r.set_defaults(records_command="report", run=run_report)
@@ -261,8 +271,6 @@ def run_trend(args: argparse.Namespace) -> int:
     """``flatsight trend``: one figure over time, its tolerance line, the pass rate."""
     from ..analysis.inspection_log import query
 
-    if args.height < 4:
-        return _fail("trend", SettingsError("--height must be at least 4 rows"))
     try:
         rows = query(_log_path(args), part=args.part, since=args.since)
     except FlatsightError as exc:

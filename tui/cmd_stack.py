@@ -7,7 +7,14 @@ import json
 import sys
 from pathlib import Path
 
-from .options import EXIT_CODES, circle_type, wavelength_type
+from .options import (
+    EXIT_CODES,
+    check_map_path,
+    circle_type,
+    diameter_type,
+    terms_type,
+    wavelength_type,
+)
 from .safe_text import shown
 
 HELP = "measure a phase-shifted sequence of frames (no tilt fringes needed)"
@@ -110,7 +117,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--diameter",
-        type=float,
+        type=diameter_type,
         metavar="MM",
         default=None,
         help="physical clear-aperture diameter, for the radius of curvature",
@@ -120,7 +127,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--terms",
-        type=int,
+        type=terms_type,
         metavar="N",
         default=36,
         help="Zernike terms to fit (Noll, default 36, at least 15)",
@@ -182,6 +189,8 @@ def run(args: argparse.Namespace) -> int:
 
     err = sys.stderr
     try:
+        if args.save_map:
+            check_map_path(args.save_map)  # a bad suffix fails before the frames are read
         paths = _frames(args.frames)
         if len(paths) < 3:
             raise SettingsError(

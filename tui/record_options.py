@@ -16,13 +16,13 @@ from __future__ import annotations
 
 import argparse
 import getpass
-import math
 import socket
 from pathlib import Path
 
 from ..analysis.errors import InspectionLogError
 from ..analysis.inspection_log import default_log_path, record_measurement, utc_now
 from ..analysis.tolerances import Tolerance, evaluate, parse_tolerance, spec_section
+from .options import number_type
 
 __all__ = [
     "PRESET_TO_OPTION",
@@ -31,6 +31,7 @@ __all__ = [
     "apply_preset",
     "finish_record",
     "judge_and_log",
+    "log_path_type",
     "log_path_from_args",
     "tolerance_from_args",
 ]
@@ -59,23 +60,25 @@ SPEC_HELP = (
 )
 
 
-def _positive_float(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
-    if not math.isfinite(value) or value <= 0:
-        raise argparse.ArgumentTypeError(f"{text!r} must be a positive number")
-    return value
+# the range a preset's spec_wavelength_nm may take (analysis/presets.py)
+spec_wavelength_type = number_type("--spec-wavelength (nm)", 100.0, 20000.0)
+
+
+def log_path_type(text: str) -> str:
+    """``--log PATH``: a path, never empty (an empty one would quietly mean the default)."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("needs a file path, not an empty one")
+    return text
 
 
 def add_record_options(parser: argparse.ArgumentParser) -> None:
     """Add the tolerance, log, people and preset options to a command's parser."""
     group = parser.add_argument_group("tolerance and inspection log")
     group.add_argument("--spec", metavar="TEXT", default=None, help=SPEC_HELP)
-    group.add_argument("--spec-wavelength", metavar="NM", type=_positive_float, default=None,
+    group.add_argument("--spec-wavelength", metavar="NM", type=spec_wavelength_type,
+                       default=None,
                        help="wavelength the drawing states its fringes in (default 546.07)")
-    group.add_argument("--log", metavar="PATH", default=None,
+    group.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
                        help=f"inspection log (SQLite; default {default_log_path()})")
     group.add_argument("--no-log", action="store_true", help="do not record this measurement")
     group.add_argument("--part", metavar="ID", default=None, help="part serial, e.g. BW-FL-0412")

@@ -367,3 +367,91 @@ def test_a_log_the_user_cannot_write_still_shows_the_result(photo_set, shared_fo
     records = json_lines(done.stdout)
     assert len(records) == 1 and "record_id" not in records[0]
     assert not (shared_folder / "log.sqlite").exists()
+
+
+# --- every option checked before a photo is measured; nothing logged that was not shown ----
+
+
+@pytest.fixture
+def measure_calls(monkeypatch):
+    """Photos handed to the analysis (which must not be reached with a bad option)."""
+    import flatsight.analysis.pipeline as pipeline
+
+    calls = []
+    monkeypatch.setattr(pipeline, "measure", lambda photo, *a, **k: calls.append(photo))
+    return calls
+
+
+@pytest.mark.parametrize("option, words", [
+    (["--diameter", "inf"], ["diameter", "out of range"]),
+    (["--diameter", "1e300"], ["diameter", "out of range"]),
+    (["--diameter", "nan"], ["diameter", "out of range"]),
+    (["--aperture", "100,100,1e308"], ["1e308"]),
+    (["--aperture", "nan,240,100"], ["nan"]),
+    (["--exclude", "100,100,inf"], ["inf"]),
+    (["--terms", "9" * 400], ["Zernike terms", "out of range"]),
+    (["--spec", "3/" + "9" * 400 + "(1)"], ["too large"]),
+    (["--spec", "pv<=" + "1" * 400 + "nm"], ["too large"]),
+    (["--spec", "3/²(1)"], ["at character 3", "expected a number"]),
+    (["--spec-wavelength", "1e300", "--spec", "3/1(1)"], ["spec-wavelength", "out of range"]),
+    (["--save-map", "maps/{name}.png"], ["height map", ".npy"]),
+    (["--log", ""], ["--log", "file path"]),
+])
+def test_a_bad_option_is_a_usage_error_before_any_photo(option, words, photo_set, tmp_path,
+                                                        capsys, measure_calls, monkeypatch):
+    monkeypatch.chdir(tmp_path)  # a default log would go here... were one written
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "data"))
+    log = [] if "--log" in option else ["--log", tmp_path / "log.sqlite"]
+    status, out, err = run_cli(capsys, "measure", photo_set.good_png, photo_set.good_tif16,
+                               *W, *log, *option)
+    assert status == 2 and out == ""
+    line = assert_one_line_error(err, *words)
+    assert "could not convert" not in line and "internal error" not in line
+    assert measure_calls == []
+    assert not (tmp_path / "log.sqlite").exists() and not (tmp_path / "data").exists()
+
+
+def test_an_aperture_larger_than_the_photo_is_a_usage_error(photo_set, capsys, tmp_path):
+    log = tmp_path / "log.sqlite"
+    status, out, err = run_cli(capsys, "measure", photo_set.good_png, *W, "--aperture",
+                               "320,240,5000", "--log", log)
+    assert status == 2 and out == ""
+    assert_one_line_error(err, "5000", "does not fit", "640x480")
+    assert not log.exists()
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["report", "1180591620717411303424", "-o", "x.html"], ["record id", "out of range"]),
+    (["history", "--limit", "1" * 30], ["count", "out of range"]),
+    (["trend", "--height", "99999999999"], ["--height", "out of range"]),
+    (["absolute", "--ab", "a.png", "--ac", "b.png", "--bc", "c.png", "--rotated", "d.png",
+      "--angle", "nan", "-w", "hene"], ["angle", "out of range"]),
+    (["stack", "a.png", "b.png", "c.png", "-w", "hene", "--diameter", "inf"], ["diameter"]),
+    (["stack", "a.png", "b.png", "c.png", "-w", "hene", "--save-map", "m.jpg"],
+     ["height map", ".npy"]),
+])
+def test_other_commands_refuse_bad_numbers_with_one_line(argv, words, capsys, tmp_path,
+                                                         monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    status, out, err = run_cli(capsys, *argv)
+    assert status == 2 and out == ""
+    assert_one_line_error(err, *words)
+
+
+def test_save_map_never_overwrites_a_map_of_the_same_batch(quick_measure, photo_set, tmp_path,
+                                                           capsys):
+    # a/BW-1.png and b/BW-1.png, and part.png with part.tif: one stem, two photos
+    photos = [tmp_path / "a" / "BW-1.png", tmp_path / "b" / "BW-1.png",
+              tmp_path / "part.png", tmp_path / "part.tif"]
+    for p in photos:
+        p.parent.mkdir(exist_ok=True)
+        p.write_bytes(b"stand-in: the analysis is replaced in this test")
+    maps = tmp_path / "maps"
+    maps.mkdir()
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--json", "--no-log",
+                               "--save-map", maps / "{name}.npy")
+    assert status == 0, err
+    paths = [r["height_map_path"] for r in json_lines(out)]
+    assert [Path(p).name for p in paths] == ["BW-1.npy", "BW-1-2.npy", "part.npy",
+                                             "part-2.npy"]
+    assert sorted(p.name for p in maps.iterdir()) == sorted(Path(p).name for p in paths)
