@@ -429,6 +429,9 @@ def test_an_aperture_larger_than_the_photo_is_a_usage_error(photo_set, capsys, t
     (["stack", "a.png", "b.png", "c.png", "-w", "hene", "--diameter", "inf"], ["diameter"]),
     (["stack", "a.png", "b.png", "c.png", "-w", "hene", "--save-map", "m.jpg"],
      ["height map", ".npy"]),
+    (["watch", ".", "-w", "hene", "--interval", "inf"], ["seconds", "out of range"]),
+    (["watch", ".", "-w", "hene", "--save-map", "maps/{name}.bmp", "--timeout", "5",
+      "--no-log"], ["height map", ".npy"]),
 ])
 def test_other_commands_refuse_bad_numbers_with_one_line(argv, words, capsys, tmp_path,
                                                          monkeypatch):

@@ -188,10 +188,10 @@ def test_watch_lines_are_escaped(tmp_path, capsys):
     bad = tmp_path / "BW\x1b[2J\u202e.png"
     bad.write_bytes(b"not a photo")
     args = argparse_watch(tmp_path)
-    counts = cmd_watch.Counter()
-    cmd_watch._handle(bad, args, counts)
+    tally = cmd_watch.Tally()
+    cmd_watch._handle(bad, args, tally)
     line = capsys.readouterr().out
-    assert counts["error"] == 1 and raw_controls(line) == []
+    assert tally.counts["error"] == 1 and raw_controls(line) == []
     assert "BW\\x1b[2J\\u202e.png: error:" in line
     record = {"part": HOSTILE_PART, "pv_nm": 1.0, "pvr_nm": 1.0, "power_nm": 1.0}
     shown_line = cmd_watch._line(record, bad)
