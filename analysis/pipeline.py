@@ -200,7 +200,7 @@ def measure(
     lap("load")
 
     report("aperture", 0.0)
-    warnings: list[str] = []
+    warnings: list[str] = list(fringe_photo.notes)  # how the file was read
     if settings.aperture is not None:
         aperture = settings.aperture
         H, W = image.shape

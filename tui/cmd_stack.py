@@ -205,9 +205,10 @@ def run(args: argparse.Namespace) -> int:
             diameter_mm=args.diameter,
             aperture=Aperture(*args.aperture) if args.aperture else None,
         )
-        frames = []
+        frames, notes = [], []
         for path in paths:
             photo = load_photo(path)
+            notes += [f"{path}: {note}" for note in photo.notes]
             if frames and photo.pixels.shape != frames[0].shape:
                 raise SettingsError(
                     f"{path}: {photo.pixels.shape[1]}x{photo.pixels.shape[0]} px, but "
@@ -219,6 +220,7 @@ def run(args: argparse.Namespace) -> int:
             frames, settings, step_deg=args.step, algorithm=args.algorithm, names=tuple(paths)
         )
         record = stack_record(result, paths)
+        record["warnings"] = notes + record["warnings"]
         if args.save_map:
             from flatsight.analysis.record import save_height_map
 

@@ -458,3 +458,14 @@ def test_save_map_never_overwrites_a_map_of_the_same_batch(quick_measure, photo_
     assert [Path(p).name for p in paths] == ["BW-1.npy", "BW-1-2.npy", "part.npy",
                                              "part-2.npy"]
     assert sorted(p.name for p in maps.iterdir()) == sorted(Path(p).name for p in paths)
+
+
+def test_a_multi_page_tiff_is_measured_from_its_first_page_and_says_so(photo_set, tmp_path,
+                                                                      capsys):
+    first = Image.open(photo_set.good_png)
+    path = tmp_path / "BW-FL-0412-pages.tif"
+    first.save(path, save_all=True, append_images=[first.rotate(90)])
+    status, out, err = run_cli(capsys, "measure", path, *W, "--json", "--no-log")
+    assert status == 0, err
+    warnings = json_lines(out)[0]["warnings"]
+    assert any("2 frames" in w and "only the first frame" in w for w in warnings), warnings
