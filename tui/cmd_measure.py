@@ -231,6 +231,11 @@ def run(args: argparse.Namespace) -> int:
             except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
                 progress.pause()
                 status = max(status, one_line(exc, photo))
+    except KeyboardInterrupt:
+        # ctrl+c: the table shows what was finished (and logged), as --json and --csv do
+        progress.stop()
+        reporter.finish()
+        raise
     finally:
         progress.stop()
     if args.average and collected:
