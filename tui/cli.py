@@ -7,9 +7,12 @@ Kept light on purpose: each subcommand's module imports its heavy libraries insi
 from __future__ import annotations
 
 import argparse
+import contextlib
 import importlib
 import os
+import signal
 import sys
+import threading
 
 from ..analysis.version import flatsight_version
 from .options import EXIT_CODES
@@ -76,6 +79,29 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+@contextlib.contextmanager
+def stopped_cleanly():
+    """While inside, SIGTERM and SIGHUP end the command as an exit (status 128 + signal)
+    that runs every clean-up on the way out, so a file being written is removed, not
+    left behind as a temporary file. The previous handlers come back on leaving."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def stop(signum, frame):
+        raise SystemExit(128 + signum)
+
+    previous = {}
+    for name in ("SIGTERM", "SIGHUP"):
+        if hasattr(signal, name):
+            previous[name] = signal.signal(getattr(signal, name), stop)
+    try:
+        yield
+    finally:
+        for name, handler in previous.items():
+            signal.signal(getattr(signal, name), handler)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``flatsight`` console command; returns the exit status."""
     parser = build_parser()
@@ -86,8 +112,11 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "command", None):
         parser.print_help()
         return 2
+    # the station (Textual) looks after its own terminal and signals
+    cleanly = stopped_cleanly() if args.command != "inspect" else contextlib.nullcontext()
     try:
-        return int(args.run(args))
+        with cleanly:
+            return int(args.run(args))
     except KeyboardInterrupt:
         print("flatsight: interrupted", file=sys.stderr)
         return 130
