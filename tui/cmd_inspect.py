@@ -191,7 +191,8 @@ def run(args: argparse.Namespace) -> int:
     out_dir = Path(args.out) if args.out else None
     if out_dir is not None and out_dir.exists() and not out_dir.is_dir():
         print(
-            f"flatsight inspect: error: --out {out_dir} is a file; give a folder", file=sys.stderr
+            f"flatsight inspect: error: --out {shown(out_dir)} is a file; give a folder",
+            file=sys.stderr,
         )
         return 2
 

@@ -358,19 +358,26 @@ def test_a_full_disk_mid_batch_still_shows_every_result(quick_measure, photo_set
     assert [r["record_id"] for r in inspection_log.query(log)] == [records[0]["record_id"]]
 
 
-def test_a_log_the_user_cannot_write_still_shows_the_result(photo_set, shared_folder,
+@pytest.mark.parametrize("existing", [False, True])
+def test_a_log_the_user_cannot_write_still_shows_the_result(existing, photo_set, shared_folder,
                                                            run_as_reader):
-    # a new log in a folder the user may not write (a 0555 folder, a read-only mount)
+    # a new log in a folder the user may not write (a 0555 folder, a read-only mount),
+    # or a log the user may only read (a 0444 file)
+    log = shared_folder / "log.sqlite"
+    if existing:
+        inspection_log.record_measurement(log, {"photo": "BW-FL-0400.png", "pv_nm": 40.0})
+    before = log.read_bytes() if existing else None
     photo = shared_folder / "BW-FL-0412.png"
     photo.write_bytes(photo_set.good_png.read_bytes())
     code = "import sys; from flatsight.tui.cli import main; sys.exit(main(sys.argv[1:]))"
     done = run_as_reader(shared_folder, code, "measure", str(photo), *W, "--json",
-                         "--log", str(shared_folder / "log.sqlite"))
+                         "--log", str(log))
     assert done.returncode == 2, done.stderr
-    assert_one_line_error(done.stderr, "cannot write the log")
+    line = assert_one_line_error(done.stderr, "cannot write the log")
+    assert "not a readable" not in line
     records = json_lines(done.stdout)
     assert len(records) == 1 and "record_id" not in records[0]
-    assert not (shared_folder / "log.sqlite").exists()
+    assert (log.read_bytes() if existing else log.exists()) == (before if existing else False)
 
 
 # --- every option checked before a photo is measured; nothing logged that was not shown ----
