@@ -21,3 +21,8 @@ class SettingsError(FlatsightError):
 
 class MeasurementCancelled(FlatsightError):
     """The caller's cancel event was set while the analysis was running."""
+
+
+class InspectionLogError(SettingsError):
+    """The inspection log cannot be read or written: missing, another program's database,
+    from a newer Flatsight, read-only, or on a full disk. The measurement itself is fine."""

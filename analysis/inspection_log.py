@@ -1,8 +1,11 @@
 """The inspection log: every measurement's record in one SQLite file that many processes share.
 
 The file is a plain SQLite database in WAL mode (readers never wait for a writer), with
-its schema version in ``PRAGMA user_version`` and migrations applied in order when an
-older log is opened. Each record is written in one ``BEGIN IMMEDIATE`` transaction, so
+its schema version in ``PRAGMA user_version`` and migrations applied in order when a
+writer opens an older log. Readers open it read-only and change nothing, so a user
+without write access can read a log; a database that is not a Flatsight log is refused
+untouched. Problems are :class:`InspectionLogError` (a full disk is said to be one, never
+taken for a damaged log). Each record is written in one ``BEGIN IMMEDIATE`` transaction, so
 a process killed mid-write leaves either the whole record or none of it. Writers that
 find the database locked wait (``busy_timeout``) and retry, so several operators and a
 watched folder logging at once lose nothing.
@@ -20,9 +23,10 @@ import sqlite3
 import time
 from collections.abc import Callable, Mapping
 from datetime import UTC, datetime
+from functools import partial
 from pathlib import Path
 
-from .errors import SettingsError
+from .errors import InspectionLogError, SettingsError
 
 __all__ = [
     "FIGURE_COLUMNS",
@@ -130,42 +134,189 @@ def _with_retry(action: Callable[[], object]) -> object:
         delay = min(delay * 2, 0.5)
 
 
-def _connect(log_path: Path, *, create: bool) -> sqlite3.Connection:
-    if not create and not log_path.exists():
-        raise SettingsError(
-            f"no inspection log at {log_path}: measure something first, or give --log PATH")
-    if create:
+def _problem(exc: sqlite3.Error) -> str:
+    """What went wrong, in words an operator can act on (SQLite's result codes)."""
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    text = str(exc)
+    if name.startswith("SQLITE_FULL") or "disk is full" in text:
+        return "the disk is full"
+    if name.startswith("SQLITE_READONLY") or "readonly" in text:
+        return "it is read-only (the file, its folder or the disk)"
+    if name.startswith("SQLITE_CANTOPEN") or "unable to open" in text:
+        return "it cannot be opened or created there (no write access to the folder?)"
+    if name.startswith(("SQLITE_PERM", "SQLITE_AUTH")):
+        return "permission denied"
+    if _is_busy(exc):
+        return "another program kept it locked too long"
+    return text
+
+
+def _not_a_database(exc: sqlite3.Error) -> bool:
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    text = str(exc)
+    return (name.startswith(("SQLITE_NOTADB", "SQLITE_CORRUPT"))
+            or "not a database" in text or "malformed" in text)
+
+
+def _not_readable(log_path: Path, exc: sqlite3.Error) -> InspectionLogError:
+    return InspectionLogError(
+        f"{log_path} is not a readable Flatsight inspection log ({exc}): "
+        "give another --log PATH")
+
+
+def _write_error(log_path: Path, exc: sqlite3.Error) -> InspectionLogError:
+    if _not_a_database(exc):
+        return _not_readable(log_path, exc)
+    return InspectionLogError(f"{log_path}: {_problem(exc)}")
+
+
+def _schema_version(con: sqlite3.Connection, log_path: Path) -> int:
+    """The log's schema version (0: an empty database, where a log may be made).
+
+    Only reads: a database that is not a Flatsight log, or one from a newer Flatsight, is
+    refused before anything in it is changed.
+    """
+    version = con.execute("PRAGMA user_version").fetchone()[0]
+    tables = {row[0] for row in con.execute(
+        "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%'")}
+    if version == 0 and not tables:
+        return 0
+    columns = {row[1] for row in con.execute("PRAGMA table_info(inspections)")}
+    if version < 1 or not {"record_id", "logged_utc", "record_json"} <= columns:
+        raise InspectionLogError(
+            f"{log_path} is an SQLite database of another program, not a Flatsight "
+            "inspection log; it was left as it was: give another --log PATH")
+    if version > SCHEMA_VERSION:
+        raise InspectionLogError(
+            f"{log_path} was written by a newer Flatsight (log schema {version}, this one "
+            f"knows {SCHEMA_VERSION}): upgrade Flatsight or give another --log PATH")
+    return version
+
+
+def _connect_for_writing(log_path: Path) -> sqlite3.Connection:
+    """A connection that may write, the log made or brought up to date first.
+
+    Raises InspectionLogError for anything that stops the log being written; another
+    program's database is refused before its journal mode or tables are touched.
+    """
+    if log_path.is_dir():
+        raise InspectionLogError(f"{log_path} is a folder: give the log a file name, e.g. "
+                                 f"{log_path / 'inspections.sqlite'}")
+    try:
         log_path.parent.mkdir(parents=True, exist_ok=True)
-    # isolation_level=None: transactions are ours (BEGIN IMMEDIATE ... COMMIT)
-    con = sqlite3.connect(str(log_path), timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None)
+    except OSError as exc:
+        raise InspectionLogError(
+            f"{log_path}: cannot make its folder ({exc.strerror or exc})") from None
+    try:
+        # isolation_level=None: transactions are ours (BEGIN IMMEDIATE ... COMMIT)
+        con = sqlite3.connect(str(log_path), timeout=BUSY_TIMEOUT_MS / 1000,
+                              isolation_level=None)
+    except sqlite3.Error as exc:
+        raise _write_error(log_path, exc) from None
     try:
         con.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        _with_retry(lambda: _schema_version(con, log_path))
         _with_retry(lambda: con.execute("PRAGMA journal_mode = WAL").fetchone())
         # FULL: a committed record survives a power cut, not only a killed process
         con.execute("PRAGMA synchronous = FULL")
         _with_retry(lambda: _migrate(con, log_path))
-    except sqlite3.DatabaseError as exc:
+    except sqlite3.Error as exc:
         con.close()
-        if isinstance(exc, sqlite3.OperationalError) and _is_busy(exc):
-            raise
-        raise SettingsError(
-            f"{log_path} is not a readable Flatsight inspection log ({exc}): "
-            "give another --log PATH") from None
+        raise _write_error(log_path, exc) from None
     except BaseException:
         con.close()
         raise
     return con
 
 
+def _connect_for_reading(log_path: Path) -> tuple[sqlite3.Connection, int, bool]:
+    """A read-only connection, the log's schema version, and whether it was opened immutable.
+
+    Reading needs no write access and changes nothing: no journal mode, no migration. A
+    log in WAL mode whose folder the reader cannot write (so SQLite cannot make its
+    shared-memory file) is opened immutable when no write-ahead file is waiting; the
+    caller then checks that the file did not change while it read.
+    """
+    if not log_path.exists():
+        raise InspectionLogError(
+            f"no inspection log at {log_path}: measure something first, or give --log PATH")
+    if log_path.is_dir():
+        raise InspectionLogError(f"{log_path} is a folder, not an inspection log: give "
+                                 "the log file with --log PATH")
+    uri = log_path.resolve().as_uri() + "?mode=ro"
+    immutable = False
+    while True:
+        try:
+            con = sqlite3.connect(uri + ("&immutable=1" if immutable else ""), uri=True,
+                                  timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None)
+        except sqlite3.Error as exc:
+            raise _read_error(log_path, exc) from None
+        try:
+            con.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+            version = _with_retry(partial(_schema_version, con, log_path))
+            return con, int(version), immutable
+        except sqlite3.Error as exc:
+            con.close()
+            wal = Path(f"{log_path}-wal")
+            waiting = wal.exists() and wal.stat().st_size > 0
+            if (not immutable and not waiting
+                    and (getattr(exc, "sqlite_errorname", "") or "").startswith(
+                        ("SQLITE_READONLY", "SQLITE_CANTOPEN"))):
+                immutable = True
+                continue
+            raise _read_error(log_path, exc) from None
+        except BaseException:
+            con.close()
+            raise
+
+
+def _read_error(log_path: Path, exc: sqlite3.Error) -> InspectionLogError:
+    if _not_a_database(exc):
+        return _not_readable(log_path, exc)
+    return InspectionLogError(f"cannot read the log {log_path}: {_problem(exc)}")
+
+
+def _signature(path: Path) -> tuple[int, int]:
+    st = path.stat()
+    return st.st_size, st.st_mtime_ns
+
+
+def _read(log_path: Path, fetch: Callable[[sqlite3.Connection, str], list]) -> list:
+    """``fetch(con, table)`` on a read-only connection; ``table`` is what to select from.
+
+    A log of schema version 1 is read as it is (its verdict and tolerance from each
+    record's JSON), not migrated; an empty database holds no records.
+    """
+    for _ in range(5):
+        con, version, immutable = _connect_for_reading(log_path)
+        before = _signature(log_path) if immutable else None
+        try:
+            con.row_factory = sqlite3.Row
+            table = _TABLES.get(version, "inspections")
+            rows = [] if version == 0 else _with_retry(partial(fetch, con, table))
+        except sqlite3.Error as exc:
+            raise _read_error(log_path, exc) from None
+        finally:
+            con.close()
+        if before is None or _signature(log_path) == before:
+            return rows
+    raise InspectionLogError(f"cannot read the log {log_path}: it kept changing while it "
+                             "was read without write access to its folder; try again")
+
+
+# what a reader selects from, by schema version (the latest: the table itself); version 1
+# had no verdict columns
+_TABLES = {
+    1: "(SELECT *, json_extract(record_json, '$.spec.tolerance') AS spec_text, "
+       "json_extract(record_json, '$.spec.verdict') AS verdict FROM inspections)",
+}
+
+
 def _migrate(con: sqlite3.Connection, log_path: Path) -> None:
     """Bring the schema up to :data:`SCHEMA_VERSION`, all in one transaction."""
     version = con.execute("PRAGMA user_version").fetchone()[0]
-    if version == SCHEMA_VERSION:
+    if version >= SCHEMA_VERSION:  # a newer log was refused by _schema_version
         return
-    if version > SCHEMA_VERSION:
-        raise SettingsError(
-            f"{log_path} was written by a newer Flatsight (log schema {version}, this one "
-            f"knows {SCHEMA_VERSION}): upgrade Flatsight or give another --log PATH")
     con.execute("BEGIN IMMEDIATE")
     try:
         # another process may have migrated while we waited for the lock
@@ -253,7 +404,7 @@ def record_measurement(
     }
     sql = (f"INSERT INTO inspections ({', '.join(row)}) "
            f"VALUES ({', '.join('?' for _ in row)})")
-    con = _connect(path, create=True)
+    con = _connect_for_writing(path)
     try:
         def write() -> int:
             con.execute("BEGIN IMMEDIATE")
@@ -267,6 +418,8 @@ def record_measurement(
             return int(cur.lastrowid)
 
         return int(_with_retry(write))
+    except sqlite3.Error as exc:  # a full disk, a read-only file: the record is not logged
+        raise _write_error(path, exc) from None
     finally:
         con.close()
 
@@ -326,20 +479,16 @@ def query(
     if verdict is not None:
         where.append("verdict = ?")
         params.append(verdict)
-    sql = "SELECT * FROM inspections"
+    sql = "SELECT * FROM {table}"
     if where:
         sql += " WHERE " + " AND ".join(where)
     sql += " ORDER BY logged_utc DESC, record_id DESC"
     if limit is not None:
         sql += " LIMIT ?"
         params.append(int(limit))
-    con = _connect(Path(log_path), create=False)
-    try:
-        con.row_factory = sqlite3.Row
-        rows = _with_retry(lambda: con.execute(sql, params).fetchall())
-        return [_row_to_dict(r) for r in rows]
-    finally:
-        con.close()
+    rows = _read(Path(log_path),
+                 lambda con, table: con.execute(sql.format(table=table), params).fetchall())
+    return [_row_to_dict(r) for r in rows]
 
 
 def get(log_path: str | Path, record_id: int) -> dict:
@@ -350,13 +499,12 @@ def get(log_path: str | Path, record_id: int) -> dict:
     SettingsError
         When the log has no such record.
     """
-    con = _connect(Path(log_path), create=False)
-    try:
-        con.row_factory = sqlite3.Row
-        row = _with_retry(lambda: con.execute(
-            "SELECT * FROM inspections WHERE record_id = ?", (int(record_id),)).fetchone())
-    finally:
-        con.close()
+    if not 0 <= record_id < 2**63:
+        raise SettingsError(f"no record {record_id}: record ids are whole numbers from 1; "
+                            "see 'flatsight history' for the ids")
+    rows = _read(Path(log_path), lambda con, table: con.execute(
+        f"SELECT * FROM {table} WHERE record_id = ?", (int(record_id),)).fetchall())
+    row = rows[0] if rows else None
     if row is None:
         raise SettingsError(
             f"no record {record_id} in {log_path}: see 'flatsight history' for the ids")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import io
 import os
+import stat
 import struct
 import warnings
 import zlib
@@ -61,6 +62,10 @@ class FringePhoto:
         Hex SHA-256 of the file's bytes, exactly the bytes that were decoded.
     saturated_fraction : float
         Share of pixels at the top code value (any colour channel), for a warning.
+    notes : tuple of str
+        What the operator should know about how the file was read, for the record's
+        warnings: only the first frame of a multi-page TIFF or animated PNG was used,
+        transparency was ignored, or the image reader passed over a fault.
     """
 
     pixels: np.ndarray
@@ -69,6 +74,7 @@ class FringePhoto:
     bit_depth: int
     sha256: str | None
     saturated_fraction: float
+    notes: tuple[str, ...] = ()
 
     @property
     def name(self) -> str:
@@ -89,9 +95,16 @@ def photos_in(folder: str | os.PathLike) -> list[Path]:
 def load_photo(path: str | os.PathLike) -> FringePhoto:
     """Read a PNG, JPEG or TIFF fringe photo.
 
-    The file is read once; its SHA-256 is taken from the same bytes that are decoded.
-    Pillow's decompression-bomb guard stays on (``Image.MAX_IMAGE_PIXELS`` as set), its
-    warning counts as an error here, and truncated files are refused, never padded.
+    Only a regular file is read (a named pipe or a device is refused without waiting
+    on it), and only after its header shows a supported image of a size within the
+    guard below, so a large file that is no photo is never read whole. The file is
+    read once; its SHA-256 is taken from the same bytes that are decoded. Pillow's
+    decompression-bomb guard stays on (``Image.MAX_IMAGE_PIXELS`` as set), its warning
+    counts as an error here, and truncated files are refused, never padded.
+
+    A multi-page TIFF or an animated PNG is measured from its first frame, and a
+    transparent image from its colour channels alone; each says so in ``notes``, as
+    does any other warning of the image reader (which never reaches stderr).
 
     Parameters
     ----------
@@ -110,26 +123,26 @@ def load_photo(path: str | os.PathLike) -> FringePhoto:
         damaged, too many pixels, or too small to hold fringes.
     """
     name = os.fspath(path)
-    data = _read_bytes(name)
-    digest = hashlib.sha256(data).hexdigest()
     try:
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(record=True) as caught:
             # A photo between MAX_IMAGE_PIXELS and twice that only warns in Pillow; refuse
-            # it. The filter is restored on leaving (before Python 3.14 it is shared by all
-            # threads meanwhile, which at worst turns another load's bomb warning into
-            # the same refusal).
+            # it. Any other warning of the reader becomes a note instead of a line on
+            # stderr naming a library file. The filters are restored on leaving (before
+            # Python 3.14 they are shared by all threads meanwhile, which at worst turns
+            # another load's bomb warning into the same refusal, or keeps another
+            # thread's warning off stderr).
+            warnings.simplefilter("always")
             warnings.simplefilter("error", Image.DecompressionBombWarning)
+            data = _read_bytes(name)
+            digest = hashlib.sha256(data).hexdigest()
             with Image.open(io.BytesIO(data)) as image:
-                # MPO is the JPEG some cameras write with a second, smaller picture inside
-                fmt = {"MPO": "JPEG"}.get(image.format, image.format or "unknown")
-                if fmt not in SUPPORTED_FORMATS:
-                    raise UnreadablePhotoError(
-                        f"{name}: this is a {fmt} image; Flatsight reads {_SUPPORTED_TEXT} "
-                        "only: save the photo in one of those (16-bit PNG or TIFF keeps the "
-                        "most detail)")
+                fmt = _supported_format(image, name)
                 image.load()  # full decode now, so a cut-short file fails here
+                notes = _frame_notes(image, fmt) + _alpha_notes(image)
                 ImageOps.exif_transpose(image, in_place=True)
                 counts, bit_depth, top = _counts(image, name)
+        notes += tuple(f"the image reader passed over a fault in the file: "
+                       f"{' '.join(str(w.message).split())}" for w in caught)
     except UnreadablePhotoError:
         raise
     except (Image.DecompressionBombError, Image.DecompressionBombWarning) as exc:
@@ -146,7 +159,30 @@ def load_photo(path: str | os.PathLike) -> FringePhoto:
         raise UnreadablePhotoError(
             f"{name}: the image data is cut short or damaged ({reason}); "
             "copy the photo from the camera again") from exc
-    return _photo(counts, bit_depth, top, path=name, fmt=fmt, sha256=digest)
+    return _photo(counts, bit_depth, top, path=name, fmt=fmt, sha256=digest, notes=notes)
+
+
+def _frame_notes(image: Image.Image, fmt: str) -> tuple[str, ...]:
+    """A note when the file holds more frames than the one measured."""
+    frames = getattr(image, "n_frames", 1)
+    if frames <= 1 or image.format == "MPO":  # MPO: the camera's own preview inside
+        return ()
+    kind = "an animated PNG" if fmt == "PNG" else f"a {fmt} of {frames} pages"
+    return (f"the file is {kind} ({frames} frames); only the first frame was measured "
+            "(save each frame as its own file: flatsight stack measures a phase-shifted "
+            "sequence)",)
+
+
+def _alpha_notes(image: Image.Image) -> tuple[str, ...]:
+    """A note when the image is transparent anywhere: only its colour was measured."""
+    if "A" in image.getbands():  # 8-bit alpha: 255 is opaque
+        transparent = int(np.asarray(image.getchannel("A")).min(initial=255)) < 255
+    else:
+        transparent = "transparency" in image.info
+    if not transparent:
+        return ()
+    return ("the photo is partly transparent; its transparency was ignored and the "
+            "luminance of its colour channels measured",)
 
 
 def photo_from_array(image: np.ndarray) -> FringePhoto:
@@ -196,30 +232,83 @@ def photo_from_array(image: np.ndarray) -> FringePhoto:
     return _photo(arr, bit_depth, top, path=None, fmt="array", sha256=None)
 
 
+def _nonblocking(path: str, flags: int) -> int:
+    # opening a named pipe for reading would wait for a writer: never wait
+    return os.open(path, flags | getattr(os, "O_NONBLOCK", 0))
+
+
 def _read_bytes(name: str) -> bytes:
+    """The file's bytes, once it is known to be a regular file holding a supported image."""
     where = Path(name)
+    if where.is_dir():
+        raise UnreadablePhotoError(
+            f"{name}: is a folder, not a photo; give a {_SUPPORTED_TEXT} file inside it")
     try:
-        if where.is_dir():
-            raise UnreadablePhotoError(
-                f"{name}: is a folder, not a photo; give a {_SUPPORTED_TEXT} file inside it")
-        with open(where, "rb") as fh:
-            data = fh.read()
-    except FileNotFoundError as exc:
-        raise UnreadablePhotoError(f"{name}: no such file; check the path and name") from exc
-    except PermissionError as exc:
-        raise UnreadablePhotoError(
-            f"{name}: permission denied; ask for read access or copy the photo somewhere "
-            "you can read") from exc
-    except IsADirectoryError as exc:
-        raise UnreadablePhotoError(
-            f"{name}: is a folder, not a photo; give a {_SUPPORTED_TEXT} file inside it") from exc
+        fh = open(where, "rb", opener=_nonblocking)  # noqa: SIM115 - closed below
+        size_and_mode = os.fstat(fh.fileno())
     except OSError as exc:
-        raise UnreadablePhotoError(
-            f"{name}: could not be read ({exc.strerror or exc}); check the disk and the path"
-        ) from exc
+        raise _os_problem(name, exc) from exc
+    with fh:
+        if not stat.S_ISREG(size_and_mode.st_mode):
+            raise UnreadablePhotoError(
+                f"{name}: not a regular file (a named pipe, a device or a socket); "
+                f"give a {_SUPPORTED_TEXT} photo file")
+        if size_and_mode.st_size:
+            _check_header(fh, name, size_and_mode.st_size)  # Pillow's errors: the caller's
+        try:
+            fh.seek(0)
+            data = fh.read()
+        except OSError as exc:
+            raise _os_problem(name, exc) from exc
     if not data:
         raise UnreadablePhotoError(f"{name}: the file is empty (0 bytes); copy the photo again")
     return data
+
+
+def _os_problem(name: str, exc: OSError) -> UnreadablePhotoError:
+    """One line for a file the system would not open or read."""
+    if isinstance(exc, FileNotFoundError):
+        return UnreadablePhotoError(f"{name}: no such file; check the path and name")
+    if isinstance(exc, PermissionError):
+        return UnreadablePhotoError(
+            f"{name}: permission denied; ask for read access or copy the photo somewhere "
+            "you can read")
+    if isinstance(exc, IsADirectoryError):
+        return UnreadablePhotoError(
+            f"{name}: is a folder, not a photo; give a {_SUPPORTED_TEXT} file inside it")
+    return UnreadablePhotoError(
+        f"{name}: could not be read ({exc.strerror or exc}); check the disk and the path")
+
+
+def _supported_format(image: Image.Image, name: str) -> str:
+    """The image's format name, or a one-line refusal naming the formats Flatsight reads."""
+    # MPO is the JPEG some cameras write with a second, smaller picture inside
+    fmt = {"MPO": "JPEG"}.get(image.format, image.format or "unknown")
+    if fmt not in SUPPORTED_FORMATS:
+        raise UnreadablePhotoError(
+            f"{name}: this is a {fmt} image; Flatsight reads {_SUPPORTED_TEXT} only: save "
+            "the photo in one of those (16-bit PNG or TIFF keeps the most detail)")
+    return fmt
+
+
+def _check_header(fh, name: str, size: int) -> None:
+    """Refuse, from its header alone, a file that is no supported image or that is far
+    larger than its image can need, before it is read whole.
+
+    Pillow's own errors (not an image, the decompression-bomb guard) are left to the
+    caller, which turns them into one line.
+    """
+    with Image.open(fh) as probe:  # reads the header, not the pixels
+        _supported_format(probe, name)
+        width, height = probe.size
+        frames = min(getattr(probe, "n_frames", 1), 10_000)
+    # 16 bytes a pixel (16-bit RGBA twice over) per frame, and room for metadata and
+    # previews: a genuine photo is far smaller
+    room = 16 * width * height * max(frames, 1) + 64 * 2**20
+    if size > room:
+        raise UnreadablePhotoError(
+            f"{name}: the file is {size / 2**20:.0f} MiB, far more than a {width} x "
+            f"{height} px image needs; it is damaged or not a photo: export it again")
 
 
 def _counts(image: Image.Image, name: str) -> tuple[np.ndarray, int, int]:
@@ -248,7 +337,7 @@ def _counts(image: Image.Image, name: str) -> tuple[np.ndarray, int, int]:
 
 
 def _photo(counts: np.ndarray, bit_depth: int, top: float, *, path: str | None, fmt: str,
-           sha256: str | None) -> FringePhoto:
+           sha256: str | None, notes: tuple[str, ...] = ()) -> FringePhoto:
     name = path if path is not None else "the image array"
     rows, cols = counts.shape[:2]
     if min(rows, cols) < MIN_PHOTO_PX:
@@ -275,4 +364,5 @@ def _photo(counts: np.ndarray, bit_depth: int, top: float, *, path: str | None, 
         bit_depth=bit_depth,
         sha256=sha256,
         saturated_fraction=float(np.count_nonzero(saturated)) / saturated.size,
+        notes=notes,
     )

@@ -127,8 +127,9 @@ def _validate(settings: MeasureSettings) -> None:
             f"wavelength {settings.wavelength_nm:g} nm is out of range (100 to 20000 nm)")
     if not (15 <= settings.n_terms <= 231):
         raise SettingsError(f"number of Zernike terms {settings.n_terms} must be 15 to 231")
-    if settings.diameter_mm is not None and not (settings.diameter_mm > 0):
-        raise SettingsError(f"clear-aperture diameter {settings.diameter_mm:g} mm must be > 0")
+    if settings.diameter_mm is not None and not (0.0 < settings.diameter_mm <= 10000.0):
+        raise SettingsError(f"clear-aperture diameter {settings.diameter_mm:g} mm is out of "
+                            "range (more than 0, at most 10000 mm)")
     for what, value in (("wavelength uncertainty", settings.wavelength_uncertainty_nm),
                         ("reference flat uncertainty", settings.reference_uncertainty_nm)):
         if not (math.isfinite(value) and 0.0 <= value <= 1000.0):
@@ -199,16 +200,17 @@ def measure(
     lap("load")
 
     report("aperture", 0.0)
-    warnings: list[str] = []
+    warnings: list[str] = list(fringe_photo.notes)  # how the file was read
     if settings.aperture is not None:
         aperture = settings.aperture
         H, W = image.shape
+        # the operator's own numbers: a mistake in them is a usage error, said at once
         if not (0 <= aperture.center_x_px < W and 0 <= aperture.center_y_px < H
-                and aperture.radius_px >= 16):
+                and 16 <= aperture.radius_px <= max(W, H) / 2):
             raise SettingsError(
                 f"aperture {aperture.center_x_px:g},{aperture.center_y_px:g},"
                 f"{aperture.radius_px:g} does not fit the {W}x{H} photo (centre inside, "
-                "radius at least 16 px)")
+                f"radius from 16 px to {max(W, H) / 2:g} px, half the photo's longer side)")
     else:
         aperture = find_aperture(image, photo_name=name)
     if settings.exclusions:

@@ -15,8 +15,11 @@ from .figures import to_fringes, to_waves
 from .pipeline import Measurement
 from .version import flatsight_version
 
-__all__ = ["RECORD_SCHEMA", "SIGN_CONVENTION", "measurement_to_record", "save_height_map",
-           "flat_fields"]
+__all__ = ["MAP_SUFFIXES", "RECORD_SCHEMA", "SIGN_CONVENTION", "measurement_to_record",
+           "save_height_map", "flat_fields"]
+
+#: File suffixes a height map can be saved as (NumPy array, 32-bit float TIFF).
+MAP_SUFFIXES = (".npy", ".tif", ".tiff")
 
 RECORD_SCHEMA = "flatsight.measurement/1"
 SIGN_CONVENTION = (

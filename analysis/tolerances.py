@@ -111,6 +111,12 @@ _UNITS = [("fringes", "fr"), ("fringe", "fr"), ("fr", "fr"), ("waves", "w"), ("w
           ("w", "w"), ("λ", "w"), ("nm", "nm"), ("um", "um"), ("µm", "um"), ("μm", "um")]
 
 
+def _is_digit(ch: str) -> bool:
+    """An ASCII digit: ``str.isdigit`` also takes superscripts such as '²', which no
+    number in a tolerance may hold."""
+    return len(ch) == 1 and "0" <= ch <= "9"
+
+
 class ToleranceSyntaxError(SettingsError):
     """A tolerance that cannot be read; ``position`` is the 0-based offending character."""
 
@@ -248,12 +254,12 @@ class _Scanner:
         digits = seen_point = 0
         while not self.at_end():
             ch = self.text[self.pos]
-            if ch.isdigit():
+            if _is_digit(ch):
                 digits += 1
             elif ch == "." and not seen_point:
                 seen_point = 1
             elif (ch == "," and not seen_point and digits and self.pos + 1 < len(self.text)
-                  and self.text[self.pos + 1].isdigit()):
+                  and _is_digit(self.text[self.pos + 1])):
                 seen_point = 1  # decimal comma, as ISO drawings write it
             else:
                 break
@@ -262,7 +268,10 @@ class _Scanner:
             if self.peek() == "-":
                 raise self.error("a limit cannot be negative")
             raise self.error(f"expected a number, {self.found()}", start)
-        return float(self.text[start:self.pos].replace(",", "."))
+        value = float(self.text[start:self.pos].replace(",", "."))
+        if not value < 1e9:  # also catches a number too long for a float (inf)
+            raise self.error("the number is too large for a limit", start)
+        return value
 
     def unit(self, *, required: bool) -> str | None:
         number_end = self.pos
@@ -301,7 +310,7 @@ def _iso_value(sc: _Scanner, name: str, label: str, figure: str, wl: float,
     if sc.peek() == "-":
         sc.pos += 1
         sc.skip_ws()
-        if sc.peek()[:1].isdigit():
+        if _is_digit(sc.peek()[:1]):
             raise sc.error("a limit cannot be negative", sc.pos - 1)
         return None
     value = sc.number()
@@ -419,7 +428,7 @@ def parse_tolerance(text: str, *, spec_wavelength_nm: float | None = None) -> To
         ch = sc.peek()
         if ch == "3":
             limits += _iso_item(sc, iso_wl)
-        elif ch.isdigit():
+        elif _is_digit(ch):
             raise sc.error("an ISO 10110-5 surface-form tolerance starts with '3/' "
                            "(code 3 is surface form)")
         elif sc.starts_rms() and sc.peek(4)[3:].lower() in _RMS and (

@@ -6,7 +6,12 @@ they come from ``analysis/synthetic.py``, the same generator the accuracy table 
 
 from __future__ import annotations
 
+import os
+import shutil
 import struct
+import subprocess
+import sys
+import tempfile
 import zlib
 from dataclasses import dataclass
 from pathlib import Path
@@ -124,3 +129,76 @@ def photo_set(tmp_path_factory) -> PhotoSet:
     write_photo(np.where(disk, 1.0, 0.02), put("white-disk.png"))
     return PhotoSet(folder=root, good_png=good_png, good_tif16=good_tif, good_jpg=good_jpg,
                     good=good, good16=good16, bad=bad, empty_folder=empty)
+
+
+def _run_as_reader(folder, code, *args):
+    """Run ``code`` as someone who may read but not write ``folder``.
+
+    As root (whom file modes do not stop) the code runs as the unprivileged user
+    'nobody', the folder and log staying root's; otherwise the folder and its files
+    lose their write permission for the test.
+    """
+    if os.geteuid() != 0:
+        for p in folder.iterdir():
+            p.chmod(0o444)
+        folder.chmod(0o555)
+        try:
+            return subprocess.run([sys.executable, "-c", code, *args], capture_output=True,
+                                  text=True, timeout=120)
+        finally:
+            folder.chmod(0o755)
+    import pwd
+
+    folder.chmod(0o755)
+    for p in folder.iterdir():
+        p.chmod(0o644)
+    nobody = pwd.getpwnam("nobody")
+    if shutil.which("setpriv") is None:
+        pytest.skip("running as root without setpriv: cannot become another user")
+    as_nobody = ["setpriv", f"--reuid={nobody.pw_uid}", f"--regid={nobody.pw_gid}",
+                 "--clear-groups", sys.executable, "-c"]
+    probe = subprocess.run([*as_nobody, "import flatsight"], capture_output=True, text=True,
+                           timeout=120, cwd="/")
+    if probe.returncode != 0:
+        pytest.skip(f"user 'nobody' cannot run this Python: {probe.stderr.strip()[-200:]}")
+    return subprocess.run([*as_nobody, code, *args], capture_output=True, text=True,
+                          timeout=120, cwd="/")
+
+
+@pytest.fixture
+def shared_folder():
+    """A folder outside pytest's private temporary tree, so another user can reach it."""
+    folder = Path(tempfile.mkdtemp(prefix="flatsight-log-"))
+    folder.chmod(0o755)
+    yield folder
+    folder.chmod(0o755)
+    shutil.rmtree(folder, ignore_errors=True)
+
+
+@pytest.fixture
+def run_as_reader():
+    """:func:`_run_as_reader`: run Python code as a user who cannot write a folder."""
+    return _run_as_reader
+
+
+@pytest.fixture(scope="session")
+def measured(photo_set):
+    """One real measurement of the good PNG, for tests about what is done with a result."""
+    from flatsight.analysis.pipeline import MeasureSettings, measure
+
+    return measure(str(photo_set.good_png), MeasureSettings(wavelength_nm=632.8))
+
+
+@pytest.fixture
+def quick_measure(measured, monkeypatch):
+    """``measure`` answering at once with :func:`measured`, named after the photo asked for,
+    so command-line tests about output and logging need not run the analysis each time.
+    """
+    import dataclasses
+
+    import flatsight.analysis.pipeline as pipeline
+
+    def quick(photo, settings, **_):
+        return dataclasses.replace(measured, photo=str(photo))
+
+    monkeypatch.setattr(pipeline, "measure", quick)

@@ -11,6 +11,7 @@ from textual.binding import Binding
 from textual.screen import Screen
 
 from .config import StationSettings
+from .safe_text import shown
 from .screens.bench import BenchScreen
 from .station_backend import StationBackend, default_backend
 from .station_state import QueueEntry
@@ -117,6 +118,12 @@ class FlatsightStation(App):
             chosen_preset=self.preset,
             presets_file=self.presets_file,
         )
+
+    def notify(self, message: str, *, title: str = "", severity="information",
+               timeout: float | None = None, markup: bool = True) -> None:
+        """Every notification, shown literally: messages name photos, parts and folders."""
+        super().notify(shown(message), title=shown(title), severity=severity, timeout=timeout,
+                       markup=False)
 
     @property
     def bench(self) -> BenchScreen:

@@ -7,12 +7,16 @@ Kept light on purpose: each subcommand's module imports its heavy libraries insi
 from __future__ import annotations
 
 import argparse
+import contextlib
 import importlib
 import os
+import signal
 import sys
+import threading
 
 from ..analysis.version import flatsight_version
 from .options import EXIT_CODES
+from .safe_text import shown
 
 # (module, one-line summary) in the order a shop uses them
 COMMANDS = [
@@ -40,7 +44,8 @@ class OneLineParser(argparse.ArgumentParser):
     """An argument parser whose usage errors are one line (exit status 2)."""
 
     def error(self, message: str):  # noqa: D401 - argparse's hook
-        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+        # the message may quote what was typed, control characters and all
+        self.exit(2, f"{self.prog}: error: {shown(message)} (see {self.prog} --help)\n")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -74,6 +79,29 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+@contextlib.contextmanager
+def stopped_cleanly():
+    """While inside, SIGTERM and SIGHUP end the command as an exit (status 128 + signal)
+    that runs every clean-up on the way out, so a file being written is removed, not
+    left behind as a temporary file. The previous handlers come back on leaving."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def stop(signum, frame):
+        raise SystemExit(128 + signum)
+
+    previous = {}
+    for name in ("SIGTERM", "SIGHUP"):
+        if hasattr(signal, name):
+            previous[name] = signal.signal(getattr(signal, name), stop)
+    try:
+        yield
+    finally:
+        for name, handler in previous.items():
+            signal.signal(getattr(signal, name), handler)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``flatsight`` console command; returns the exit status."""
     parser = build_parser()
@@ -84,8 +112,11 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "command", None):
         parser.print_help()
         return 2
+    # the station (Textual) looks after its own terminal and signals
+    cleanly = stopped_cleanly() if args.command != "inspect" else contextlib.nullcontext()
     try:
-        return int(args.run(args))
+        with cleanly:
+            return int(args.run(args))
     except KeyboardInterrupt:
         print("flatsight: interrupted", file=sys.stderr)
         return 130
@@ -102,9 +133,9 @@ def main(argv: list[str] | None = None) -> int:
         from flatsight.analysis.errors import FlatsightError
 
         if isinstance(exc, FlatsightError):
-            print(f"flatsight: error: {exc}", file=sys.stderr)
+            print(f"flatsight: error: {shown(exc)}", file=sys.stderr)
             return 2
-        print(f"flatsight: internal error: {type(exc).__name__}: {exc} "
+        print(f"flatsight: internal error: {type(exc).__name__}: {shown(exc)} "
               "(set FLATSIGHT_DEBUG=1 for details)", file=sys.stderr)
         return 4
 

@@ -7,7 +7,8 @@ import json
 import sys
 from pathlib import Path
 
-from .options import EXIT_CODES, wavelength_type
+from .options import EXIT_CODES, angle_type, diameter_type, terms_type, wavelength_type
+from .safe_text import shown
 
 HELP = "absolute three-flat test: each flat's own shape from the pair photos"
 DESCRIPTION = """\
@@ -65,7 +66,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--angle",
-        type=float,
+        type=angle_type,
         metavar="DEG",
         default=None,
         help="how far A was turned for --rotated, counter-clockwise as seen in the photo",
@@ -96,14 +97,14 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--terms",
-        type=int,
+        type=terms_type,
         metavar="N",
         default=36,
         help="Zernike terms to solve (Noll, whole radial orders; default 36)",
     )
     p.add_argument(
         "--diameter",
-        type=float,
+        type=diameter_type,
         metavar="MM",
         default=None,
         help="physical clear-aperture diameter, for the radius of curvature",
@@ -201,11 +202,11 @@ def run(args: argparse.Namespace) -> int:
                 rec["height_map_path"] = str(target.resolve())
             doc["flats"][name] = rec
     except (UnreadablePhotoError, SettingsError) as exc:
-        print(f"flatsight absolute: error: {exc}", file=err)
+        print(f"flatsight absolute: error: {shown(exc)}", file=err)
         return 2
     except UnanalysablePhotoError as exc:
         where = f" {current}" if current else ""
-        print(f"flatsight absolute: cannot analyse{where}: {exc}", file=err)
+        print(f"flatsight absolute: cannot analyse{shown(where)}: {shown(exc)}", file=err)
         return 3
 
     if args.json:
@@ -218,12 +219,16 @@ def run(args: argparse.Namespace) -> int:
 def _print_table(doc: dict) -> None:
     from rich.console import Console
     from rich.table import Table
+    from rich.text import Text
+
+    from .report_text import warning_text
 
     c = Console(highlight=False)
-    c.print(
-        f"[bold]three-flat test[/]  {doc['wavelength_nm']:g} nm   photos: "
-        + ", ".join(f"{k} {v}" for k, v in doc["photos"].items())
-    )
+    c.print(Text.assemble(
+        ("three-flat test", "bold"),
+        f"  {doc['wavelength_nm']:g} nm   photos: "
+        + ", ".join(f"{k} {shown(v)}" for k, v in doc["photos"].items())
+    ))
     t = Table(header_style="bold", show_edge=False)
     for col, just in [
         ("flat", "left"),
@@ -247,7 +252,7 @@ def _print_table(doc: dict) -> None:
     c.print(t)
     c.print(f"closure of the three photos: {doc['closure_rms_nm']:.2f} nm RMS")
     for w in doc["warnings"]:
-        c.print(f"[yellow]warning:[/] {w}")
+        c.print(warning_text(w))
     for name, r in doc["flats"].items():
         if r.get("height_map_path"):
-            c.print(f"map of {name}: {r['height_map_path']}")
+            c.print(Text(f"map of {name}: {shown(r['height_map_path'])}"))

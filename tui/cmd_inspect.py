@@ -7,8 +7,9 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from .options import EXIT_CODES, expand_photos, wavelength_type
+from .options import EXIT_CODES, diameter_type, expand_photos, wavelength_type
 from .record_options import add_record_options
+from .safe_text import shown
 
 HELP = "open the inspection station (a keyboard-driven terminal app)"
 DESCRIPTION = """\
@@ -73,7 +74,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--diameter",
-        type=float,
+        type=diameter_type,
         metavar="MM",
         default=None,
         help="physical clear-aperture diameter, for the radius of curvature",
@@ -155,7 +156,7 @@ def run(args: argparse.Namespace) -> int:
 
     photos, problems = expand(args.photos)
     for problem in problems:
-        print(f"flatsight inspect: {problem}", file=sys.stderr)
+        print(f"flatsight inspect: {shown(problem)}", file=sys.stderr)
     if args.photos and not photos:
         return 2
     config_path = Path(args.config) if args.config else default_config_path()
@@ -163,7 +164,7 @@ def run(args: argparse.Namespace) -> int:
     try:
         settings = settings_from_args(args, remembered)
     except SettingsError as exc:
-        print(f"flatsight inspect: error: {exc}", file=sys.stderr)
+        print(f"flatsight inspect: error: {shown(exc)}", file=sys.stderr)
         return 2
     from .record_options import apply_preset, log_path_from_args, tolerance_from_args
     from .station_log import OPTION_KEYS, StationRecorder
@@ -185,12 +186,13 @@ def run(args: argparse.Namespace) -> int:
         recorder = StationRecorder(log_path_from_args(args),
                                    {k: getattr(args, k) for k in OPTION_KEYS})
     except SettingsError as exc:
-        print(f"flatsight inspect: error: {exc}", file=sys.stderr)
+        print(f"flatsight inspect: error: {shown(exc)}", file=sys.stderr)
         return 2
     out_dir = Path(args.out) if args.out else None
     if out_dir is not None and out_dir.exists() and not out_dir.is_dir():
         print(
-            f"flatsight inspect: error: --out {out_dir} is a file; give a folder", file=sys.stderr
+            f"flatsight inspect: error: --out {shown(out_dir)} is a file; give a folder",
+            file=sys.stderr,
         )
         return 2
 

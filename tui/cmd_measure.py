@@ -7,8 +7,18 @@ import sys
 from pathlib import Path
 
 from .multi_options import add_multi_options
-from .options import EXIT_CODES, circle_type, expand_photos, wavelength_type
+from .options import (
+    EXIT_CODES,
+    MapNames,
+    check_map_path,
+    circle_type,
+    diameter_type,
+    expand_photos,
+    terms_type,
+    wavelength_type,
+)
 from .record_options import add_record_options
+from .safe_text import shown
 
 HELP = "measure fringe photos: PV, RMS, PVr, power, irregularity"
 DESCRIPTION = """\
@@ -53,11 +63,11 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
                         "automatically")
     p.add_argument("--exclude", type=circle_type, metavar="X,Y,R", action="append",
                    default=[], help="leave a circle out (a chip, a central hole); repeatable")
-    p.add_argument("--diameter", type=float, metavar="MM", default=None,
+    p.add_argument("--diameter", type=diameter_type, metavar="MM", default=None,
                    help="physical clear-aperture diameter, for the radius of curvature")
     p.add_argument("--invert", action="store_true",
                    help="flip the sign of the surface (see 'Sign' above)")
-    p.add_argument("--terms", type=int, metavar="N", default=None,
+    p.add_argument("--terms", type=terms_type, metavar="N", default=None,
                    help="Zernike terms to fit (Noll, default 36, at least 15)")
     p.add_argument("--ordering", choices=("noll", "osa"), default="noll",
                    help="Zernike ordering in the output: noll (from j=1, default) or osa "
@@ -91,12 +101,6 @@ def _settings(args: argparse.Namespace):
     )
 
 
-def _map_path(template: str, photo: str, n_photos: int) -> str:
-    if "{name}" in template:
-        return template.replace("{name}", Path(photo).stem)
-    return template
-
-
 def run(args: argparse.Namespace) -> int:
     from flatsight.analysis.errors import (
         SettingsError,
@@ -107,7 +111,7 @@ def run(args: argparse.Namespace) -> int:
     from flatsight.analysis.record import measurement_to_record, save_height_map
 
     from .multi_options import check_multi_options, combine_with_sections
-    from .record_options import apply_preset, finish_record, tolerance_from_args
+    from .record_options import apply_preset, judge_and_log, tolerance_from_args
     from .report_text import Reporter
 
     err = sys.stderr
@@ -141,37 +145,57 @@ def run(args: argparse.Namespace) -> int:
         else:
             args, settings = photo_args(None)
     except (SettingsError, argparse.ArgumentTypeError, ValueError) as exc:
-        print(f"flatsight measure: error: {exc}", file=err)
+        print(f"flatsight measure: error: {shown(exc)}", file=err)
         return 2
 
     photos, problems = expand_photos(args.photos)
     status = 0
     for problem in problems:
-        print(f"flatsight measure: error: {problem}", file=err)
+        print(f"flatsight measure: error: {shown(problem)}", file=err)
         status = 2
     if args.save_map and len(photos) > 1 and "{name}" not in args.save_map:
         print("flatsight measure: error: with several photos, put {name} in --save-map "
               "(e.g. maps/{name}.npy)", file=err)
         return 2
+    map_names = None
+    if args.save_map:
+        try:
+            check_map_path(args.save_map)  # a bad suffix fails before any photo is measured
+        except SettingsError as exc:
+            print(f"flatsight measure: error: {shown(exc)}", file=err)
+            return 2
+        map_names = MapNames(args.save_map)
 
     mode = "json" if args.json else "csv" if args.csv else "table"
     reporter = Reporter(mode=mode, detail=args.detail or len(photos) == 1 or args.average,
                         ordering=args.ordering)
 
+    log_failed = False  # after the log refused a record, the rest are shown unlogged
+
     def report(item, photo: str, opts: argparse.Namespace) -> int:
         """Record, save, judge and print one result; returns its exit status."""
+        nonlocal log_failed
         m = item.measurement
         record = measurement_to_record(m, ordering=args.ordering)
         record.update(item.sections)
-        if args.save_map:
-            target = _map_path(args.save_map, photo, len(photos))
+        if map_names is not None:
+            target = map_names.target(photo)
             try:
                 save_height_map(m, target)
             except OSError as exc:
                 raise SettingsError(f"cannot write the height map {target}: "
                                     f"{exc.strerror or exc}") from None
             record["height_map_path"] = str(Path(target).resolve())
-        record, verdict_status = finish_record(opts, record)
+        if log_failed:
+            opts = argparse.Namespace(**{**vars(opts), "no_log": True})
+        record, verdict_status, log_error = judge_and_log(opts, record)
+        if log_error is not None:
+            log_failed = True
+            progress.pause()
+            print(f"flatsight measure: cannot write the log: {shown(log_error)}; results "
+                  "from here on are shown but not logged (free the log or give another "
+                  "--log PATH, or --no-log)", file=err)
+            verdict_status = 2
         reporter.emit(record, m)
         return verdict_status
 
@@ -179,15 +203,15 @@ def run(args: argparse.Namespace) -> int:
         if isinstance(exc, UnanalysablePhotoError):
             # the library names the photo in some messages; say it once
             where = "" if photo in str(exc) else f" {photo}"
-            print(f"flatsight measure: cannot analyse{where}: {exc}", file=err)
+            print(f"flatsight measure: cannot analyse{shown(where)}: {shown(exc)}", file=err)
             return 3
-        print(f"flatsight measure: error: {exc}", file=err)
+        print(f"flatsight measure: error: {shown(exc)}", file=err)
         return 2
 
     try:
         check_multi_options(args)  # a bad reference map fails before any photo
     except (UnreadablePhotoError, SettingsError) as exc:
-        print(f"flatsight measure: error: {exc}", file=err)
+        print(f"flatsight measure: error: {shown(exc)}", file=err)
         return 2
 
     progress = reporter.progress(len(photos), stream=err)
@@ -207,6 +231,11 @@ def run(args: argparse.Namespace) -> int:
             except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
                 progress.pause()
                 status = max(status, one_line(exc, photo))
+    except KeyboardInterrupt:
+        # ctrl+c: the table shows what was finished (and logged), as --json and --csv do
+        progress.stop()
+        reporter.finish()
+        raise
     finally:
         progress.stop()
     if args.average and collected:

@@ -18,6 +18,9 @@ from datetime import datetime
 from pathlib import Path
 
 from ..analysis.errors import FlatsightError, SettingsError
+from .options import count_type, whole_number_type
+from .record_options import log_path_type
+from .safe_text import csv_row, literal, shown
 
 __all__ = ["add_parser", "run", "run_history", "run_report", "run_trend", "trend_lines"]
 
@@ -28,8 +31,13 @@ CSV_FIELDS = ("record_id", "logged_utc", "part", "operator", "station", "photo",
               "tolerance", "verdict")
 
 
+# a record id SQLite can hold; plot rows a terminal can show
+record_id_type = whole_number_type("record id", 1, 2**63 - 1)
+height_type = whole_number_type("--height", 4, 500)
+
+
 def _log_option(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--log", metavar="PATH", default=None,
+    p.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
                    help="inspection log (default: inspections.sqlite in the user data dir)")
 
 
@@ -44,7 +52,8 @@ def add_parser(subparsers) -> None:
     h.add_argument("--part", metavar="ID", help="only this part")
     h.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
     h.add_argument("--verdict", choices=("pass", "fail"), help="only this verdict")
-    h.add_argument("--limit", metavar="N", type=int, default=None, help="at most N records")
+    h.add_argument("--limit", metavar="N", type=count_type, default=None,
+                   help="at most N records")
     fmt = h.add_mutually_exclusive_group()
     fmt.add_argument("--json", action="store_true", help="JSON Lines, one record a line")
     fmt.add_argument("--csv", action="store_true", help="CSV with one row a record")
@@ -61,7 +70,8 @@ def add_parser(subparsers) -> None:
     t.add_argument("--part", metavar="ID", help="only this part")
     t.add_argument("--figure", default="pvr_nm", choices=TREND_FIGURES,
                    help="figure to plot (default pvr_nm)")
-    t.add_argument("--height", type=int, default=12, help="plot rows (default 12)")
+    t.add_argument("--height", type=height_type, default=12,
+                   help="plot rows (4 to 500, default 12)")
     t.set_defaults(records_command="trend", run=run_trend)
 
     r = subparsers.add_parser(
@@ -69,7 +79,8 @@ def add_parser(subparsers) -> None:
         description="Write the certificate of a logged inspection: FILE.html is one "
                     "self-contained page that prints on A4 or Letter; FILE.png is the "
                     "surface map alone.")
-    r.add_argument("record_id", type=int, metavar="RECORD_ID", help="see 'flatsight history'")
+    r.add_argument("record_id", type=record_id_type, metavar="RECORD_ID",
+                   help="see 'flatsight history'")
     _log_option(r)
     r.add_argument("--output", "-o", metavar="FILE", required=True, help="FILE.html or FILE.png")
     r.set_defaults(records_command="report", run=run_report)
@@ -88,7 +99,7 @@ def _log_path(args: argparse.Namespace) -> Path:
 
 
 def _fail(command: str, exc: FlatsightError) -> int:
-    print(f"flatsight {command}: error: {exc}", file=sys.stderr)
+    print(f"flatsight {command}: error: {shown(exc)}", file=sys.stderr)
     return 2
 
 
@@ -99,15 +110,16 @@ def _csv_row(rec: dict) -> dict:
     spec = rec.get("spec") or {}
     row = {k: rec.get(k) for k in CSV_FIELDS}
     row["tolerance"] = spec.get("tolerance")
-    return row
+    return csv_row(row)
 
 
-def _cell(value, digits: int = 1) -> str:
+def _cell(value, digits: int = 1):
+    """A table cell: a number to ``digits`` places, or stored text shown literally."""
     if value is None:
         return "—"
     if isinstance(value, float):
         return f"{value:.{digits}f}" if math.isfinite(value) else "—"
-    return str(value)
+    return literal(value)
 
 
 def run_history(args: argparse.Namespace) -> int:
@@ -152,14 +164,15 @@ def run_history(args: argparse.Namespace) -> int:
     for rec in rows:
         verdict = rec.get("verdict")
         style = {"pass": "bold green", "fail": "bold red"}.get(verdict, "dim")
-        cells = [str(rec["record_id"]), str(rec.get("logged_utc", ""))[:16].replace("T", " "),
+        cells = [str(rec["record_id"]),
+                 literal(str(rec.get("logged_utc", ""))[:16].replace("T", " ")),
                  _cell(rec.get("part"))]
         if people:
             cells += [_cell(rec.get("operator")), _cell(rec.get("station"))]
         cells += [_cell(rec.get("pv_nm")), _cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
-                  _cell(rec.get("irregularity_nm")), f"[{style}]{verdict or '—'}[/]"]
+                  _cell(rec.get("irregularity_nm")), literal(verdict or "—", style)]
         table.add_row(*cells)
-    console.print(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)",
+    console.print(literal(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)"),
                   style="bold", overflow="fold")
     console.print(table)
     return 0
@@ -258,8 +271,6 @@ def run_trend(args: argparse.Namespace) -> int:
     """``flatsight trend``: one figure over time, its tolerance line, the pass rate."""
     from ..analysis.inspection_log import query
 
-    if args.height < 4:
-        return _fail("trend", SettingsError("--height must be at least 4 rows"))
     try:
         rows = query(_log_path(args), part=args.part, since=args.since)
     except FlatsightError as exc:
@@ -277,8 +288,8 @@ def run_trend(args: argparse.Namespace) -> int:
     limits, limit_note = _limits_for(rows[-1], args.figure)
     width = min(console.width if console.is_terminal else shutil.get_terminal_size().columns,
                 120)
-    console.print(f"{args.figure} over time: {len(points)} records"
-                  + (f", part {args.part}" if args.part else ""), style="bold")
+    console.print(literal(f"{args.figure} over time: {len(points)} records"
+                          + (f", part {args.part}" if args.part else "")), style="bold")
     for line in trend_lines(points, width=max(40, width), height=args.height,
                             limits_nm=limits):
         label, bar, body = line.partition("│")
@@ -294,7 +305,7 @@ def run_trend(args: argparse.Namespace) -> int:
     passed = sum(r["verdict"] == "pass" for r in judged)
     rate = (f"pass rate {passed}/{len(judged)} ({100.0 * passed / len(judged):.1f} %)"
             if judged else "pass rate: no record had a tolerance")
-    console.print(f"o pass  x fail  * no tolerance  --- {limit_note}")
+    console.print(literal(f"o pass  x fail  * no tolerance  --- {limit_note}"))
     console.print(rate, style="bold")
     return 0
 
@@ -324,5 +335,6 @@ def run_report(args: argparse.Namespace) -> int:
     except OSError as exc:
         return _fail("report", SettingsError(f"cannot write {out}: {exc.strerror or exc}"))
     verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
-    print(f"wrote {out} (record {args.record_id}, {rec.get('part') or 'no part'}, {verdict})")
+    print(shown(f"wrote {out} (record {args.record_id}, {rec.get('part') or 'no part'}, "
+                f"{verdict})"))
     return 0

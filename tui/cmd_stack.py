@@ -7,7 +7,15 @@ import json
 import sys
 from pathlib import Path
 
-from .options import EXIT_CODES, circle_type, wavelength_type
+from .options import (
+    EXIT_CODES,
+    check_map_path,
+    circle_type,
+    diameter_type,
+    terms_type,
+    wavelength_type,
+)
+from .safe_text import shown
 
 HELP = "measure a phase-shifted sequence of frames (no tilt fringes needed)"
 DESCRIPTION = """\
@@ -109,7 +117,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--diameter",
-        type=float,
+        type=diameter_type,
         metavar="MM",
         default=None,
         help="physical clear-aperture diameter, for the radius of curvature",
@@ -119,7 +127,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--terms",
-        type=int,
+        type=terms_type,
         metavar="N",
         default=36,
         help="Zernike terms to fit (Noll, default 36, at least 15)",
@@ -181,6 +189,8 @@ def run(args: argparse.Namespace) -> int:
 
     err = sys.stderr
     try:
+        if args.save_map:
+            check_map_path(args.save_map)  # a bad suffix fails before the frames are read
         paths = _frames(args.frames)
         if len(paths) < 3:
             raise SettingsError(
@@ -195,9 +205,10 @@ def run(args: argparse.Namespace) -> int:
             diameter_mm=args.diameter,
             aperture=Aperture(*args.aperture) if args.aperture else None,
         )
-        frames = []
+        frames, notes = [], []
         for path in paths:
             photo = load_photo(path)
+            notes += [f"{path}: {note}" for note in photo.notes]
             if frames and photo.pixels.shape != frames[0].shape:
                 raise SettingsError(
                     f"{path}: {photo.pixels.shape[1]}x{photo.pixels.shape[0]} px, but "
@@ -209,6 +220,7 @@ def run(args: argparse.Namespace) -> int:
             frames, settings, step_deg=args.step, algorithm=args.algorithm, names=tuple(paths)
         )
         record = stack_record(result, paths)
+        record["warnings"] = notes + record["warnings"]
         if args.save_map:
             from flatsight.analysis.record import save_height_map
 
@@ -220,10 +232,10 @@ def run(args: argparse.Namespace) -> int:
                 ) from None
             record["height_map_path"] = str(Path(args.save_map).resolve())
     except (UnreadablePhotoError, SettingsError) as exc:
-        print(f"flatsight stack: error: {exc}", file=err)
+        print(f"flatsight stack: error: {shown(exc)}", file=err)
         return 2
     except UnanalysablePhotoError as exc:
-        print(f"flatsight stack: cannot analyse the sequence: {exc}", file=err)
+        print(f"flatsight stack: cannot analyse the sequence: {shown(exc)}", file=err)
         return 3
 
     if args.json:
@@ -235,17 +247,19 @@ def run(args: argparse.Namespace) -> int:
 
 def _print_table(record: dict) -> None:
     from rich.console import Console
+    from rich.text import Text
 
-    from .report_text import figures_table, zernike_table
+    from .report_text import figures_table, warning_text, zernike_table
 
     c = Console(highlight=False)
     ap = record["aperture"]
     step = record["step_found_deg"]
-    c.print(
-        f"[bold]{len(record['frames'])} frames[/] from {record['frames'][0]}   "
+    c.print(Text.assemble(
+        (f"{len(record['frames'])} frames", "bold"),
+        f" from {shown(record['frames'][0])}   "
         f"{record['wavelength_nm']:g} nm   aperture r={ap['radius_px']:.1f} px at "
         f"({ap['center_x_px']:.1f}, {ap['center_y_px']:.1f})"
-    )
+    ))
     c.print(
         f"algorithm: {record['algorithm']}   step found: "
         f"{'-' if step is None else f'{step:.2f} deg'}   visibility "
@@ -256,4 +270,4 @@ def _print_table(record: dict) -> None:
     c.print()
     c.print(zernike_table(record))
     for w in record.get("warnings", []):
-        c.print(f"[yellow]warning:[/] {w}")
+        c.print(warning_text(w))

@@ -2,22 +2,36 @@
 
 A photo is taken only once it is complete: its size and modification time have not
 changed for ``--settle`` seconds and it decodes. Polling (standard library only) works
-the same on local disks and network shares. One line per photo, bad files included;
-ctrl+c stops with a summary line and exit status 0.
+the same on local disks and network shares. One line per photo, and one error line per
+bad file (a damaged or oversized image, a link loop, a named pipe, an empty file; a file
+that keeps failing while it is still being written counts once); the watch goes on, and
+waits for the folder when it disappears. ctrl+c stops with a summary line and exit
+status 130.
 """
 
 from __future__ import annotations
 
 import argparse
 import os
+import stat
 import sys
 import time
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
-from .options import circle_type, wavelength_type
+from .options import (
+    MapNames,
+    check_map_path,
+    circle_type,
+    count_type,
+    diameter_type,
+    seconds_type,
+    terms_type,
+    wavelength_type,
+)
 from .record_options import add_record_options
+from .safe_text import shown
 
 __all__ = ["FolderWatcher", "add_parser", "measure_photo", "run"]
 
@@ -25,10 +39,12 @@ DESCRIPTION = """\
 Watch FOLDER and measure each new photo (PNG, JPEG, TIFF) once the camera has finished
 writing it; log it to the inspection log and print one line with its verdict. The part
 is the photo's file name without its suffix (BW-FL-0412.png is part BW-FL-0412) unless
---part is given. Bad files get a one-line error and the watch goes on.
+--part is given. Bad files get a one-line error and the watch goes on; if the folder
+disappears, the watch says so and waits for it to come back.
 
-Stop with ctrl+c, or with --max-files / --timeout: a summary line and exit status 0,
-whatever the verdicts (they are in the lines and the log); 2 for bad options.
+Stop with ctrl+c (exit status 130), or with --max-files / --timeout: a summary line and
+exit status 0, whatever the verdicts (they are in the lines and the log); 2 for bad
+options, or when a result could not be written to the log (it is still shown).
 Photos already in the folder are left alone unless --existing is given; a photo that
 is rewritten later is measured again."""
 
@@ -42,9 +58,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     w.add_argument("-w", "--wavelength", type=wavelength_type, default=None, metavar="NM",
                    help="test wavelength in nm or hene, sodium, helium-d, mercury-e "
                         "(required unless the preset gives it)")
-    w.add_argument("--diameter", type=float, metavar="MM", default=None,
+    w.add_argument("--diameter", type=diameter_type, metavar="MM", default=None,
                    help="clear-aperture diameter, for the radius of curvature")
-    w.add_argument("--terms", type=int, metavar="N", default=None,
+    w.add_argument("--terms", type=terms_type, metavar="N", default=None,
                    help="Zernike terms to fit (Noll, default 36)")
     w.add_argument("--invert", action="store_true", help="flip the sign of the surface")
     w.add_argument("--aperture", type=circle_type, metavar="X,Y,R",
@@ -58,25 +74,33 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     add_record_options(w)
     w.add_argument("--existing", action="store_true",
                    help="also measure the photos already in the folder")
-    w.add_argument("--interval", type=float, default=0.5, metavar="S",
+    w.add_argument("--interval", type=seconds_type, default=0.5, metavar="S",
                    help="seconds between looks at the folder (default 0.5)")
-    w.add_argument("--settle", type=float, default=1.0, metavar="S",
+    w.add_argument("--settle", type=seconds_type, default=1.0, metavar="S",
                    help="a photo must keep its size and time this long (default 1.0)")
-    w.add_argument("--max-files", type=int, default=None, metavar="N",
+    w.add_argument("--max-files", type=count_type, default=None, metavar="N",
                    help="stop after N photos (for scripts and tests)")
-    w.add_argument("--timeout", type=float, default=None, metavar="S",
+    w.add_argument("--timeout", type=seconds_type, default=None, metavar="S",
                    help="stop after S seconds")
     w.set_defaults(run=run)
     return w
 
 
 def _decodes(path: Path) -> bool:
-    from PIL import Image, UnidentifiedImageError
+    """Whether the file is ready to hand to the measurement: it decodes, or it is an image
+    too large to take, which no amount of waiting will change."""
+    import warnings
+
+    from PIL import Image
 
     try:
-        with Image.open(path) as img:
-            img.load()
-    except (OSError, UnidentifiedImageError, ValueError, SyntaxError):
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", Image.DecompressionBombWarning)
+            with Image.open(path) as img:
+                img.load()
+    except (Image.DecompressionBombError, Image.DecompressionBombWarning):
+        return True  # the measurement refuses it in one line
+    except Exception:  # noqa: BLE001 - cut short, not yet an image, unreadable: wait
         return False
     return True
 
@@ -116,8 +140,24 @@ class FolderWatcher:
         self._is_photo = is_photo_path
         self._pending: dict[Path, _Seen] = {}
         self._done: dict[Path, tuple[int, int]] = {}
+        self._problems: list[tuple[Path, str]] = []
+        self._reported: dict[Path, str] = {}  # the problem each bad file was reported with
+        #: why the folder cannot be looked at (gone, no access); None while it can
+        self.missing: str | None = None
         if not include_existing:
             self._done = dict(self._scan())
+            self._problems.clear()  # files already there are left alone, bad ones too
+
+    def take_problems(self) -> list[tuple[Path, str]]:
+        """Files found since the last call that can never be measured, each said once:
+        a link loop, a link to nothing, a named pipe or device with a photo's name."""
+        problems, self._problems = self._problems, []
+        return problems
+
+    def _problem(self, path: Path, message: str) -> None:
+        if self._reported.get(path) != message:
+            self._reported[path] = message
+            self._problems.append((path, message))
 
     def _scan(self) -> list[tuple[Path, tuple[int, int]]]:
         found = []
@@ -126,20 +166,41 @@ class FolderWatcher:
                 # cameras and copy tools write hidden or temporary names first
                 if entry.name.startswith(".") or not self._is_photo(entry.name):
                     continue
+                path = Path(entry.path)
                 try:
-                    st = entry.stat()
+                    st = entry.stat()  # through a link, to what the measurement would read
                 except FileNotFoundError:
-                    continue  # renamed or removed between listing and stat
-                if entry.is_file():
-                    found.append((Path(entry.path), (st.st_size, st.st_mtime_ns)))
+                    if entry.is_symlink():
+                        self._problem(path, "a link to nothing; left alone")
+                    continue  # else renamed or removed between listing and stat
+                except OSError as exc:  # a link loop, a file the system cannot look at
+                    self._problem(path, f"cannot be looked at ({exc.strerror or exc}); "
+                                        "left alone")
+                    continue
+                if stat.S_ISREG(st.st_mode):
+                    self._reported.pop(path, None)
+                    found.append((path, (st.st_size, st.st_mtime_ns)))
+                elif not stat.S_ISDIR(st.st_mode):
+                    self._problem(path, "not a regular file (a named pipe or a device); "
+                                        "left alone")
         return found
 
     def poll(self) -> list[Path]:
-        """The photos that became ready since the last call, oldest name first."""
+        """The photos that became ready since the last call, oldest name first.
+
+        A folder that cannot be looked at (removed, unmounted, no access) gives no
+        photos and sets :attr:`missing` to the reason until it can be again.
+        """
         now = self._clock()
         ready = []
         present = set()
-        for path, sig in self._scan():
+        try:
+            scanned = self._scan()
+        except OSError as exc:
+            self.missing = exc.strerror or str(exc)
+            return []
+        self.missing = None
+        for path, sig in scanned:
             present.add(path)
             if self._done.get(path) == sig:
                 continue
@@ -148,8 +209,8 @@ class FolderWatcher:
                 self._pending[path] = _Seen(sig, now)
                 continue
             stable_for = now - seen.stable_since
-            if sig[0] == 0 or stable_for < self.settle_s:
-                continue
+            if stable_for < self.settle_s or (sig[0] == 0 and stable_for < self.give_up_s):
+                continue  # an empty file may be a camera about to write: it gets longer
             if _decodes(path) or stable_for >= self.give_up_s:
                 ready.append(path)
                 self._done[path] = sig
@@ -179,7 +240,9 @@ def measure_photo(path: Path, args: argparse.Namespace) -> dict:
     record = measurement_to_record(m)
     template = getattr(args, "save_map", None)
     if template:
-        target = Path(template.replace("{name}", path.stem))
+        # one MapNames for the whole watch, so two photos of one stem get two maps
+        names = getattr(args, "map_names", None) or MapNames(template)
+        target = Path(names.target(path))
         try:
             save_height_map(m, target)
         except OSError as exc:
@@ -205,43 +268,83 @@ def _line(record: dict, path: Path) -> str:
     verdict = (record.get("spec") or {}).get("verdict")
     word = {"pass": "PASS", "fail": "FAIL"}.get(verdict, "—")
     rid = record.get("record_id")
-    return (f"{_stamp()}  {record.get('part') or path.stem:<16} PV {nm('pv_nm')} nm  "
+    return (f"{_stamp()}  {shown(record.get('part') or path.stem):<16} PV {nm('pv_nm')} nm  "
             f"PVr {nm('pvr_nm')} nm  power {nm('power_nm')} nm  {word:<4}"
             + (f"  #{rid}" if rid is not None else ""))
 
 
-def _handle(path: Path, args: argparse.Namespace, counts: Counter) -> None:
+@dataclass
+class Tally:
+    """What the watch has seen: outcomes per file, and what could not be logged.
+
+    A file counts once: one that fails again (a writer that stalls more than once) is
+    not reported or counted again, and one that measures after failing is no longer an
+    error.
+    """
+
+    counts: Counter = field(default_factory=Counter)
+    failed: set = field(default_factory=set)
+    not_logged: int = 0
+    log_problem: str | None = None
+
+    def error(self, path: Path, message: str) -> None:
+        if path in self.failed:
+            return
+        self.failed.add(path)
+        self.counts["error"] += 1
+        print(f"{_stamp()}  {shown(path.name)}: {shown(message)}", flush=True)
+
+    def measured(self, path: Path, outcome: str, line: str) -> None:
+        if path in self.failed:
+            self.failed.discard(path)
+            self.counts["error"] -= 1
+        self.counts[outcome] += 1
+        print(line, flush=True)
+
+    def unlogged(self, problem: str) -> None:
+        self.not_logged += 1
+        if problem != self.log_problem:  # said once, and again only when it changes
+            self.log_problem = problem
+            print(f"{_stamp()}  cannot write the log: {shown(problem)}; results are shown "
+                  "but not logged until it can be written", flush=True)
+
+    def total(self) -> int:
+        return sum(self.counts.values())
+
+
+def _handle(path: Path, args: argparse.Namespace, tally: Tally) -> None:
     from ..analysis.errors import FlatsightError
-    from .record_options import finish_record
+    from .record_options import judge_and_log
 
     try:
         record = measure_photo(path, args)
         per_photo = argparse.Namespace(**vars(args))
         per_photo.part = args.part or path.stem
-        record, _ = finish_record(per_photo, record)
+        record, _, log_error = judge_and_log(per_photo, record)
     except FlatsightError as exc:
-        counts["error"] += 1
-        print(f"{_stamp()}  {path.name}: error: {exc}", flush=True)
+        tally.error(path, f"error: {exc}")
         return
     except Exception as exc:  # noqa: BLE001 - one bad photo must not stop the station's watch
-        counts["error"] += 1
-        print(f"{_stamp()}  {path.name}: internal error: {type(exc).__name__}: {exc}",
-              flush=True)
+        tally.error(path, f"internal error: {type(exc).__name__}: {exc}")
         return
     verdict = (record.get("spec") or {}).get("verdict")
-    counts[verdict or "measured"] += 1
-    print(_line(record, path), flush=True)
+    tally.measured(path, verdict or "measured",
+                   _line(record, path) + ("  not logged" if log_error else ""))
+    if log_error is not None:
+        tally.unlogged(str(log_error))
 
 
-def _summary(counts: Counter, why: str) -> str:
-    total = sum(counts.values())
-    return (f"watch stopped ({why}): {total} photos, {counts['pass']} pass, "
+def _summary(tally: Tally, why: str) -> str:
+    counts = tally.counts
+    return (f"watch stopped ({why}): {tally.total()} photos, {counts['pass']} pass, "
             f"{counts['fail']} fail, {counts['measured']} without tolerance, "
-            f"{counts['error']} errors")
+            f"{counts['error']} errors"
+            + (f", {tally.not_logged} not logged" if tally.not_logged else ""))
 
 
 def run(args: argparse.Namespace) -> int:
-    """``flatsight watch``: 0 after a clean stop, 2 for bad options or folder."""
+    """``flatsight watch``: 0 after a clean stop, 130 after ctrl+c, 2 for bad options or
+    folder, or when a result could not be logged."""
     from ..analysis.errors import SettingsError
     from .record_options import apply_preset, log_path_from_args, tolerance_from_args
 
@@ -260,35 +363,43 @@ def run(args: argparse.Namespace) -> int:
             if "{name}" not in args.save_map:
                 raise SettingsError("--save-map needs {name} in it, one map per photo (e.g. "
                                     "maps/{name}.npy)")
+            check_map_path(args.save_map)
             if Path(args.save_map).expanduser().resolve().parent == folder.resolve():
                 raise SettingsError("--save-map must write outside the watched folder, or "
                                     "each map would be taken for a new photo")
-        for name, value in (("--interval", args.interval), ("--settle", args.settle)):
-            if not value >= 0:
-                raise SettingsError(f"{name} must be zero or more seconds")
+            args.map_names = MapNames(args.save_map)
         watcher = FolderWatcher(folder, settle_s=args.settle, include_existing=args.existing)
     except (SettingsError, argparse.ArgumentTypeError, OSError) as exc:
-        print(f"flatsight watch: error: {exc}", file=sys.stderr)
+        print(f"flatsight watch: error: {shown(exc)}", file=sys.stderr)
         return 2
 
     log_path = log_path_from_args(args)
-    print(f"watching {folder} (logging to {log_path or 'nothing: --no-log'}); "
+    print(f"watching {shown(folder)} (logging to {shown(log_path or 'nothing: --no-log')}); "
           "ctrl+c to stop", flush=True)
-    counts: Counter = Counter()
+    tally = Tally()
     start = time.monotonic()
-    why = "ctrl+c"
+    missing = None
     try:
         while True:
             for path in watcher.poll():
-                _handle(path, args, counts)
-                if args.max_files is not None and sum(counts.values()) >= args.max_files:
+                _handle(path, args, tally)
+                if args.max_files is not None and tally.total() >= args.max_files:
                     raise _Stop("--max-files reached")
+            for path, problem in watcher.take_problems():
+                tally.error(path, f"error: {problem}")
+            if watcher.missing != missing:
+                missing = watcher.missing
+                print(f"{_stamp()}  {shown(folder)} "
+                      + (f"cannot be looked at ({shown(missing)}); waiting for it to come "
+                         "back (ctrl+c to stop)" if missing else "is back; watching again"),
+                      flush=True)
             if args.timeout is not None and time.monotonic() - start >= args.timeout:
                 raise _Stop("--timeout reached")
             time.sleep(args.interval)
     except KeyboardInterrupt:
         print(flush=True)
+        print(_summary(tally, "ctrl+c"), flush=True)
+        return 130
     except _Stop as stop:
-        why = str(stop)
-    print(_summary(counts, why), flush=True)
-    return 0
+        print(_summary(tally, str(stop)), flush=True)
+    return 2 if tally.not_logged else 0

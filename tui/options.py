@@ -4,10 +4,18 @@ from __future__ import annotations
 
 import argparse
 import glob
+import math
 import os
 
+from .safe_text import shown
+
 __all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle", "wavelength_type",
-           "circle_type", "EXIT_CODES"]
+           "circle_type", "diameter_type", "terms_type", "angle_type", "number_type",
+           "whole_number_type", "seconds_type", "count_type",
+           "check_map_path", "MapNames", "EXIT_CODES"]
+
+#: The largest coordinate or radius taken in pixels: no photo Flatsight reads is wider.
+MAX_PIXELS_ACROSS = 1_000_000
 
 # Wavelengths in air of the usual test sources (common practice; references.md).
 SPECTRAL_LINES = {
@@ -51,9 +59,39 @@ def parse_circle(text: str) -> tuple[float, float, float]:
         x, y, r = (float(p) for p in parts)
     except ValueError:
         raise ValueError(f"{text!r} is not X,Y,R (three numbers in pixels)") from None
+    if not all(math.isfinite(v) and abs(v) <= MAX_PIXELS_ACROSS for v in (x, y, r)):
+        raise ValueError(f"{text!r}: X, Y and R are photo pixels, at most "
+                         f"{MAX_PIXELS_ACROSS:,} in size")
     if r <= 0:
         raise ValueError(f"radius in {text!r} must be positive")
     return x, y, r
+
+
+def _quoted(text: str) -> str:
+    """``text`` quoted for a message, cut short when it is long (a 400-digit number)."""
+    return repr(text) if len(text) <= 40 else repr(text[:37]) + "…"
+
+
+def parse_number(text: str, what: str, low: float, high: float) -> float:
+    """A finite number from ``low`` to ``high``; ``what`` names it in the message."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise ValueError(f"{what} {_quoted(text)} is not a number") from None
+    if not (math.isfinite(value) and low <= value <= high):
+        raise ValueError(f"{what} {_quoted(text)} is out of range ({low:g} to {high:g})")
+    return value
+
+
+def parse_whole(text: str, what: str, low: int, high: int) -> int:
+    """A whole number from ``low`` to ``high``."""
+    try:
+        value = int(text.strip())
+    except ValueError:
+        raise ValueError(f"{what} {_quoted(text)} is not a whole number") from None
+    if not low <= value <= high:
+        raise ValueError(f"{what} {_quoted(text)} is out of range ({low} to {high})")
+    return value
 
 
 def _argtype(fn, name):
@@ -69,6 +107,68 @@ def _argtype(fn, name):
 
 wavelength_type = _argtype(parse_wavelength, "wavelength")
 circle_type = _argtype(parse_circle, "circle")
+
+
+def number_type(what: str, low: float, high: float):
+    """An argparse type: a finite number from ``low`` to ``high`` (never inf or nan)."""
+    return _argtype(lambda text: parse_number(text, what, low, high), "number")
+
+
+def whole_number_type(what: str, low: int, high: int):
+    """An argparse type: a whole number from ``low`` to ``high``."""
+    return _argtype(lambda text: parse_whole(text, what, low, high), "whole number")
+
+
+# the same ranges as a preset's (analysis/presets.py) and the pipeline's
+diameter_type = number_type("diameter (mm)", 0.1, 10000.0)
+terms_type = whole_number_type("number of Zernike terms", 15, 231)
+seconds_type = number_type("seconds", 0.0, 1e6)
+count_type = whole_number_type("count", 1, 10**9)
+angle_type = number_type("angle (degrees)", -360.0, 360.0)
+
+
+def check_map_path(template: str) -> None:
+    """Refuse a ``--save-map`` FILE whose suffix is not a map format, before any photo."""
+    from flatsight.analysis.errors import SettingsError
+    from flatsight.analysis.record import MAP_SUFFIXES
+
+    if not template.strip():
+        raise SettingsError("--save-map needs a file name, e.g. maps/{name}.npy")
+    suffix = os.path.splitext(template.replace("{name}", "photo"))[1].lower()
+    if suffix not in MAP_SUFFIXES:
+        raise SettingsError(f"cannot save a height map as {shown(template)}: name it .npy or "
+                            ".tif (32-bit float)")
+
+
+class MapNames:
+    """Where each photo's ``--save-map`` goes: ``{name}`` is the photo's stem, made unique.
+
+    Two photos of one stem (``a/BW-1.png`` and ``b/BW-1.png``, or ``part.png`` and
+    ``part.tif``) would write one file; the second gets ``-2`` after its stem (then
+    ``-3`` ...), so every record points at its own map. The same photo asked again
+    (a rewritten photo in ``watch``) keeps its file.
+    """
+
+    def __init__(self, template: str) -> None:
+        self.template = template
+        self._owner: dict[str, str] = {}  # resolved target -> the photo it belongs to
+        self._given: dict[str, str] = {}  # photo -> its target
+
+    def target(self, photo: str | os.PathLike) -> str:
+        key = os.path.abspath(os.fspath(photo))
+        if key in self._given:
+            return self._given[key]
+        stem = os.path.splitext(os.path.basename(key))[0]
+        n = 1
+        while True:
+            name = stem if n == 1 else f"{stem}-{n}"
+            target = self.template.replace("{name}", name)
+            resolved = os.path.abspath(os.path.expanduser(target))
+            if self._owner.setdefault(resolved, key) == key:
+                break
+            n += 1
+        self._given[key] = target
+        return target
 
 
 def expand_photos(items: list[str]) -> tuple[list[str], list[str]]:

@@ -7,20 +7,22 @@
     tolerance_from_args(args)                  # before measuring: a bad --spec fails fast
     record, status = finish_record(args, rec)  # per photo: spec section, record_id, log
 
-A malformed tolerance, preset or log raises :class:`SettingsError` (exit 2).
+A malformed tolerance or preset raises :class:`SettingsError` (exit 2); a log that cannot
+be written raises :class:`InspectionLogError`, and :func:`judge_and_log` turns that into
+the judged record, unlogged, with the reason, so the result is still shown.
 """
 
 from __future__ import annotations
 
 import argparse
 import getpass
-import math
 import socket
 from pathlib import Path
 
-from ..analysis.errors import SettingsError
+from ..analysis.errors import InspectionLogError
 from ..analysis.inspection_log import default_log_path, record_measurement, utc_now
 from ..analysis.tolerances import Tolerance, evaluate, parse_tolerance, spec_section
+from .options import number_type
 
 __all__ = [
     "PRESET_TO_OPTION",
@@ -28,6 +30,8 @@ __all__ = [
     "add_record_options",
     "apply_preset",
     "finish_record",
+    "judge_and_log",
+    "log_path_type",
     "log_path_from_args",
     "tolerance_from_args",
 ]
@@ -56,23 +60,25 @@ SPEC_HELP = (
 )
 
 
-def _positive_float(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
-    if not math.isfinite(value) or value <= 0:
-        raise argparse.ArgumentTypeError(f"{text!r} must be a positive number")
-    return value
+# the range a preset's spec_wavelength_nm may take (analysis/presets.py)
+spec_wavelength_type = number_type("--spec-wavelength (nm)", 100.0, 20000.0)
+
+
+def log_path_type(text: str) -> str:
+    """``--log PATH``: a path, never empty (an empty one would quietly mean the default)."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("needs a file path, not an empty one")
+    return text
 
 
 def add_record_options(parser: argparse.ArgumentParser) -> None:
     """Add the tolerance, log, people and preset options to a command's parser."""
     group = parser.add_argument_group("tolerance and inspection log")
     group.add_argument("--spec", metavar="TEXT", default=None, help=SPEC_HELP)
-    group.add_argument("--spec-wavelength", metavar="NM", type=_positive_float, default=None,
+    group.add_argument("--spec-wavelength", metavar="NM", type=spec_wavelength_type,
+                       default=None,
                        help="wavelength the drawing states its fringes in (default 546.07)")
-    group.add_argument("--log", metavar="PATH", default=None,
+    group.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
                        help=f"inspection log (SQLite; default {default_log_path()})")
     group.add_argument("--no-log", action="store_true", help="do not record this measurement")
     group.add_argument("--part", metavar="ID", default=None, help="part serial, e.g. BW-FL-0412")
@@ -172,6 +178,21 @@ def finish_record(args: argparse.Namespace, record: dict) -> tuple[dict, int]:
                 path, out, part=out["part"], operator=out["operator"], station=out["station"],
                 logged_utc=out["logged_utc"])
         except OSError as exc:
-            raise SettingsError(f"cannot write the inspection log {path}: {exc}; "
-                                "give another --log PATH or --no-log") from None
+            raise InspectionLogError(f"{path}: {exc.strerror or exc}") from None
     return out, status
+
+
+def judge_and_log(args: argparse.Namespace, record: dict
+                  ) -> tuple[dict, int, InspectionLogError | None]:
+    """:func:`finish_record`, but a log that cannot be written does not lose the result.
+
+    Returns the record, its status, and None; or, when the log refused it, the record
+    judged without logging (no ``record_id``) and the log's error, for the caller to say.
+    """
+    try:
+        out, status = finish_record(args, record)
+    except InspectionLogError as exc:
+        out, status = finish_record(argparse.Namespace(**{**vars(args), "no_log": True}),
+                                    record)
+        return out, status, exc
+    return out, status, None

@@ -14,7 +14,9 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-__all__ = ["Reporter", "figures_table", "zernike_table"]
+from .safe_text import csv_row, literal, shown
+
+__all__ = ["Reporter", "figures_table", "warning_text", "zernike_table"]
 
 # (label, record key stem, show in fringes)
 FIGURE_ROWS = [
@@ -25,6 +27,12 @@ FIGURE_ROWS = [
     ("irregularity", "irregularity", True),
     ("astigmatism", "astigmatism", False),
 ]
+
+
+def warning_text(warning: str, where: str = "") -> Text:
+    """``warning: ...`` (after ``where: `` when given), the text shown literally."""
+    head = f"{shown(where)}: warning:" if where else "warning:"
+    return Text.assemble((head, "yellow"), " ", shown(warning))
 
 
 def _fmt(value, digits: int = 1) -> str:
@@ -90,7 +98,8 @@ class _Progress:
         if self.enabled:
             from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
-            self._bar = Progress(TextColumn("{task.description}"), BarColumn(),
+            # the description is a file name: never markup
+            self._bar = Progress(TextColumn("{task.description}", markup=False), BarColumn(),
                                  TextColumn("{task.completed}/{task.total}"),
                                  TimeElapsedColumn(), console=Console(file=stream),
                                  transient=True)
@@ -100,7 +109,7 @@ class _Progress:
 
     def start(self, photo: str, index: int) -> None:
         if self._bar is not None:
-            self._bar.update(self._task, completed=index, description=f"{photo}")
+            self._bar.update(self._task, completed=index, description=shown(photo))
             self._bar.start()
 
     def stage(self, stage: str, fraction: float) -> None:
@@ -140,7 +149,7 @@ class Reporter:
             self.stream.write(json.dumps(record, allow_nan=False) + "\n")
             self.stream.flush()
         elif self.mode == "csv":
-            row = flat_fields(record)
+            row = csv_row(flat_fields(record))
             if self._csv is None:
                 self._csv = csv.DictWriter(self.stream, fieldnames=list(row),
                                            extrasaction="ignore", lineterminator="\n")
@@ -156,11 +165,11 @@ class Reporter:
         c = self.console
         ap = r["aperture"]
         head = Text()
-        head.append(r["photo"], style="bold")
+        head.append(shown(r["photo"]), style="bold")
         head.append(f"   {r['wavelength_nm']:g} nm   aperture r={ap['radius_px']:.1f} px at "
                     f"({ap['center_x_px']:.1f}, {ap['center_y_px']:.1f}) {ap['source']}")
         if r.get("part"):
-            head.append(f"   part {r['part']}")
+            head.append(f"   part {shown(r['part'])}")
         c.print(head)
         c.print(figures_table(r))
         c.print()
@@ -172,7 +181,7 @@ class Reporter:
                 f"{q['mean_modulation']:.2f}; masked {100 * q['masked_fraction']:.1f} %")
         self._verdict_line(r)
         for w in r.get("warnings", []):
-            c.print(f"[yellow]warning:[/] {w}")
+            c.print(warning_text(w))
         if r.get("record_id") is not None:
             c.print(f"logged as record {r['record_id']}")
         c.print()
@@ -184,7 +193,8 @@ class Reporter:
         ok = spec.get("verdict") == "pass"
         style = "bold green" if ok else "bold red"
         text = spec.get("text") or spec.get("tolerance") or ""
-        self.console.print(f"tolerance {text}: [{style}]{spec.get('verdict', '?').upper()}[/]")
+        self.console.print(Text.assemble(f"tolerance {shown(text)}: ",
+                                         (shown(spec.get("verdict", "?")).upper(), style)))
 
     def finish(self) -> None:
         if self.mode != "table" or not self._rows:
@@ -201,11 +211,11 @@ class Reporter:
             spec = r.get("spec") or {}
             verdict = spec.get("verdict", "")
             style = {"pass": "green", "fail": "bold red"}.get(verdict, "")
-            t.add_row(Path(r["photo"]).name, f"{r['wavelength_nm']:g}", _fmt(r["pv_nm"]),
+            t.add_row(literal(Path(r["photo"]).name), f"{r['wavelength_nm']:g}", _fmt(r["pv_nm"]),
                       _fmt(r["rms_nm"]), _fmt(r["pvr_nm"]), _fmt(r["pvr_waves"], 3),
                       _fmt(r["power_nm"]), _fmt(r["irregularity_nm"]),
-                      Text(verdict, style=style), str(len(r.get("warnings", []))))
+                      literal(verdict, style), str(len(r.get("warnings", []))))
         self.console.print(t)
         for r in self._rows:
             for w in r.get("warnings", []):
-                self.console.print(f"[yellow]{Path(r['photo']).name}: warning:[/] {w}")
+                self.console.print(warning_text(w, Path(r["photo"]).name))

@@ -11,6 +11,7 @@ from typing import Any
 import numpy as np
 
 from ..analysis.errors import FlatsightError, MeasurementCancelled
+from .safe_text import shown
 
 __all__ = ["StationBackend", "default_backend", "describe_error"]
 
@@ -92,7 +93,14 @@ def default_backend() -> StationBackend:
 
 
 def describe_error(exc: BaseException) -> str:
-    """One line an operator can act on, for any failure inside an analysis worker."""
+    """One line an operator can act on, for any failure inside an analysis worker.
+
+    Control characters in it (from a file name) are escaped, so it can be shown as is.
+    """
+    return shown(_describe(exc))
+
+
+def _describe(exc: BaseException) -> str:
     if isinstance(exc, MeasurementCancelled):
         return "cancelled"
     if isinstance(exc, FlatsightError):

@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..analysis.aperture import Aperture, Exclusion
+from .safe_text import shown
 
 __all__ = ["QueueEntry", "STATE_LABELS", "ViewContext"]
 
@@ -54,11 +55,12 @@ class QueueEntry:
 
     @property
     def name(self) -> str:
+        """How the station shows the photo: its file name, control characters escaped."""
         if self.kind == "average":
-            return f"avg×{len(self.sources)} {self.path.name}"
+            return f"avg×{len(self.sources)} {shown(self.path.name)}"
         if self.kind == "sequence":
-            return f"seq×{len(self.sources)} {self.path.name}"
-        return self.path.name
+            return f"seq×{len(self.sources)} {shown(self.path.name)}"
+        return shown(self.path.name)
 
     @property
     def shown_verdict(self) -> tuple[str | None, bool]:

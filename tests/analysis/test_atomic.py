@@ -4,6 +4,9 @@ from __future__ import annotations
 
 import os
 import stat
+import subprocess
+import sys
+import time
 from pathlib import Path
 
 import pytest
@@ -103,3 +106,26 @@ def test_written_file_has_ordinary_permissions(tmp_path):
     target = tmp_path / "atomic.txt"
     atomic_write_text(target, "x")
     assert stat.S_IMODE(target.stat().st_mode) == stat.S_IMODE(plain.stat().st_mode)
+
+
+def test_a_temporary_file_of_a_killed_writer_is_cleared_by_the_next_write(tmp_path):
+    from flatsight.analysis import atomic
+
+    target = tmp_path / "BW-FL-0412.json"
+    gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                          capture_output=True, text=True, check=True)
+    dead_pid = int(gone.stdout)  # that process has ended
+    host = atomic._host_tag()
+    stale = tmp_path / f".BW-FL-0412.json.flatsight-{host}-{dead_pid}-abc123.json"
+    running = tmp_path / f".BW-FL-0412.json.flatsight-{host}-{os.getpid()}-def456.json"
+    other_host = tmp_path / f".BW-FL-0412.json.flatsight-00000000-{dead_pid}-ghi789.json"
+    young = tmp_path / f".BW-FL-0412.json.flatsight-{host}-{dead_pid}-jkl012.json"
+    long_ago = time.time() - 10 * atomic.STALE_AFTER_S
+    for p in (stale, running, other_host, young):
+        p.write_text("half")
+    for p in (stale, running, other_host):
+        os.utime(p, (long_ago, long_ago))
+    atomic_write_text(target, "{}\n")
+    # only the old file of a dead process of this host goes; the rest may still be written
+    assert names(tmp_path) == sorted(["BW-FL-0412.json", running.name, other_host.name,
+                                      young.name])

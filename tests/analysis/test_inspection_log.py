@@ -13,7 +13,7 @@ import time
 
 import pytest
 from flatsight.analysis import inspection_log as log
-from flatsight.analysis.errors import SettingsError
+from flatsight.analysis.errors import InspectionLogError, SettingsError
 
 
 def make_record(photo="BW-FL-0412.png", verdict="pass", pv_nm=41.5, n_terms=36):
@@ -185,27 +185,41 @@ def test_a_killed_writer_leaves_the_log_intact(tmp_path):
     assert log.get(path, rid)["part"] == "BW-FL-0412"
 
 
-def test_migrates_a_version_1_log(tmp_path):
-    path = tmp_path / "old.sqlite"
+def version_1_log(path, *, journal="delete"):
+    """A log as version 1 of the schema wrote it, with one failed record."""
     con = sqlite3.connect(path)
-    con.executescript(log.MIGRATIONS[0])  # the schema as version 1 wrote it
+    con.execute(f"PRAGMA journal_mode = {journal}")
+    con.executescript(log.MIGRATIONS[0])
     con.execute("PRAGMA user_version = 1")
-    old = make_record(verdict="fail")
     con.execute(
         "INSERT INTO inspections (logged_utc, part, record_json) VALUES (?, ?, ?)",
-        ("2026-10-01T12:00:00.000Z", "BW-FL-0100", json.dumps(old)),
+        ("2026-10-01T12:00:00.000Z", "BW-FL-0100", json.dumps(make_record(verdict="fail"))),
     )
     con.commit()
     con.close()
+
+
+def files_and_bytes(folder):
+    return {p.name: p.read_bytes() for p in sorted(folder.iterdir())}
+
+
+def test_reads_a_version_1_log_as_it_is_and_migrates_it_on_the_first_write(tmp_path):
+    path = tmp_path / "old.sqlite"
+    version_1_log(path)
+    before = files_and_bytes(tmp_path)
     rows = log.query(path)
     assert [(r["part"], r["verdict"]) for r in rows] == [("BW-FL-0100", "fail")]
+    assert log.query(path, verdict="fail")[0]["part"] == "BW-FL-0100"
+    assert log.get(path, 1)["verdict"] == "fail"
+    # reading changed nothing: no migration, no switch to WAL, no new files
+    assert files_and_bytes(tmp_path) == before
+    log.record_measurement(path, make_record(), part="BW-FL-0101")
     con = sqlite3.connect(path)
     assert con.execute("PRAGMA user_version").fetchone()[0] == log.SCHEMA_VERSION
     assert con.execute("SELECT spec_text FROM inspections").fetchone()[0] == "3/1(0.5)"
     indexes = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type='index'")}
     assert "inspections_part_time" in indexes
     con.close()
-    log.record_measurement(path, make_record(), part="BW-FL-0101")
     assert [r["part"] for r in log.query(path)][0] == "BW-FL-0101"
 
 
@@ -213,10 +227,15 @@ def test_refuses_a_log_from_a_newer_version(tmp_path):
     path = tmp_path / "new.sqlite"
     log.record_measurement(path, make_record())
     con = sqlite3.connect(path)
+    con.execute("PRAGMA journal_mode = delete")
     con.execute(f"PRAGMA user_version = {log.SCHEMA_VERSION + 1}")
     con.close()
+    before = files_and_bytes(tmp_path)
     with pytest.raises(SettingsError, match="newer Flatsight"):
         log.query(path)
+    with pytest.raises(SettingsError, match="newer Flatsight"):
+        log.record_measurement(path, make_record())
+    assert files_and_bytes(tmp_path) == before  # still in its own journal mode, untouched
 
 
 def test_numpy_values_are_stored_as_plain_json(tmp_path):
@@ -230,3 +249,77 @@ def test_numpy_values_are_stored_as_plain_json(tmp_path):
     got = log.get(path, rid)
     assert got["zernike"]["coefficients_nm"] == [1.5, None, 2.0]
     assert got["pv_nm"] == 12.5
+
+
+def test_another_programs_database_is_refused_untouched(tmp_path):
+    path = tmp_path / "orders.sqlite"
+    con = sqlite3.connect(path)
+    con.execute("CREATE TABLE orders (id INTEGER PRIMARY KEY, customer TEXT)")
+    con.execute("INSERT INTO orders (customer) VALUES ('Brindlewick Optical Works')")
+    con.commit()
+    con.close()
+    before = files_and_bytes(tmp_path)
+    for attempt in (lambda: log.record_measurement(path, make_record()),
+                    lambda: log.query(path), lambda: log.get(path, 1)):
+        with pytest.raises(InspectionLogError, match="another program.*left as it was"):
+            attempt()
+    assert files_and_bytes(tmp_path) == before  # no tables added, no WAL files
+
+
+def full_disk(monkeypatch):
+    """Every new connection may not grow the file: SQLite answers SQLITE_FULL, as it does
+    on a full disk ('PRAGMA max_page_count', SQLite documentation, from memory)."""
+    real = sqlite3.connect
+
+    def tight(*args, **kwargs):
+        con = real(*args, **kwargs)
+        pages = con.execute("PRAGMA page_count").fetchone()[0]
+        con.execute(f"PRAGMA max_page_count = {max(pages, 1)}")
+        return con
+
+    monkeypatch.setattr(sqlite3, "connect", tight)
+
+
+def test_a_full_disk_is_said_to_be_full_not_a_damaged_log(tmp_path, monkeypatch):
+    existing = tmp_path / "log.sqlite"
+    log.record_measurement(existing, make_record())
+    full_disk(monkeypatch)
+    for path in (tmp_path / "new.sqlite", existing):
+        with pytest.raises(InspectionLogError, match="the disk is full") as caught:
+            log.record_measurement(path, make_record(photo="x" * 5000))
+        assert "not a readable" not in str(caught.value)
+    monkeypatch.undo()
+    assert len(log.query(existing)) == 1  # the log is whole, the failed record absent
+
+
+def test_a_folder_given_as_the_log_says_so(tmp_path):
+    with pytest.raises(InspectionLogError, match="is a folder"):
+        log.record_measurement(tmp_path, make_record())
+    with pytest.raises(InspectionLogError, match="is a folder"):
+        log.query(tmp_path)
+
+
+def test_get_refuses_an_id_sqlite_cannot_hold(tmp_path):
+    path = tmp_path / "log.sqlite"
+    log.record_measurement(path, make_record())
+    with pytest.raises(SettingsError, match="no record 1180591620717411303424"):
+        log.get(path, 1180591620717411303424)
+
+
+READER = textwrap.dedent("""
+    import json, sys
+    from flatsight.analysis import inspection_log as log
+    rows = log.query(sys.argv[1])
+    print(json.dumps([[r["part"], r["verdict"]] for r in rows]))
+""")
+
+
+def test_a_reader_without_write_access_reads_the_log(shared_folder, run_as_reader):
+    path = shared_folder / "log.sqlite"
+    log.record_measurement(path, make_record(verdict="fail"), part="BW-FL-0412")
+    log.record_measurement(path, make_record(verdict="pass"), part="BW-FL-0413")
+    before = files_and_bytes(shared_folder)
+    done = run_as_reader(shared_folder, READER, str(path))
+    assert done.returncode == 0, done.stderr
+    assert json.loads(done.stdout) == [["BW-FL-0413", "pass"], ["BW-FL-0412", "fail"]]
+    assert files_and_bytes(shared_folder) == before

@@ -6,6 +6,7 @@ import hashlib
 import struct
 import warnings
 import zlib
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -325,3 +326,104 @@ def test_is_photo_path():
     assert is_photo_path("x.Tif")
     assert not is_photo_path("x.gif") and not is_photo_path("x.png.txt")
     assert not is_photo_path("png")
+
+
+# --- only regular files, headers before bytes, and what was left out said plainly ------
+
+
+def test_a_named_pipe_is_refused_without_waiting_for_a_writer(tmp_path):
+    import os
+    import threading
+
+    fifo = tmp_path / "BW-FL-0412.png"
+    os.mkfifo(fifo)
+    outcome = []
+
+    def load():
+        try:
+            load_photo(fifo)
+        except UnreadablePhotoError as exc:
+            outcome.append(str(exc))
+
+    reader = threading.Thread(target=load, daemon=True)
+    reader.start()
+    reader.join(timeout=60)
+    if reader.is_alive():  # it waits for a writer: give it one so the thread can end
+        with open(fifo, "wb"):
+            pass
+        reader.join(timeout=60)
+        pytest.fail("load_photo waited on a named pipe")
+    assert len(outcome) == 1 and "not a regular file" in outcome[0]
+
+
+@pytest.mark.skipif(not Path("/dev/zero").exists(), reason="no /dev/zero here")
+def test_a_device_or_a_link_to_one_is_refused(tmp_path):
+    link = tmp_path / "BW-FL-0412.png"
+    link.symlink_to("/dev/zero")
+    for path in (Path("/dev/zero"), link):
+        _one_line_error(path, "not a regular file")
+
+
+def _bytes_read() -> int:
+    with open("/proc/self/io") as fh:
+        return next(int(line.split()[1]) for line in fh if line.startswith("rchar:"))
+
+
+@pytest.mark.skipif(not Path("/proc/self/io").exists(), reason="needs Linux /proc/self/io")
+def test_a_huge_file_is_judged_by_its_header_not_read_whole(tmp_path):
+    gib = 2**30
+    junk = tmp_path / "BW-FL-0412.png"
+    with open(junk, "wb") as fh:  # 2 GiB, sparse: no disk space used
+        fh.write(b"not an image at all")
+        fh.truncate(2 * gib)
+    padded = tmp_path / "BW-FL-0413.png"
+    with open(padded, "wb") as fh:  # a real 100 x 100 PNG followed by 2 GiB of nothing
+        fh.write(_png_claiming(100, 100))
+        fh.truncate(2 * gib)
+    for path, words in ((junk, "not an image"), (padded, "far more than a 100 x 100")):
+        before = _bytes_read()
+        _one_line_error(path, words)
+        assert _bytes_read() - before < 64 * 2**20
+
+
+def test_a_multi_page_tiff_and_an_animated_png_say_only_the_first_frame_was_used(tmp_path):
+    frames = [Image.fromarray(_ramp((80, 96), 255, np.uint8) // (k + 1)) for k in range(3)]
+    for name, extra in (("stack.tif", {}), ("anim.png", {"duration": 100, "loop": 0})):
+        path = tmp_path / name
+        frames[0].save(path, save_all=True, append_images=frames[1:], **extra)
+        photo = load_photo(path)
+        assert len(photo.notes) == 1, photo.notes
+        assert "3 frames" in photo.notes[0] and "only the first frame" in photo.notes[0]
+        # the first frame is what was measured
+        np.testing.assert_allclose(photo.pixels * 255, np.asarray(frames[0]), atol=1e-3)
+
+
+def test_transparency_is_said_and_ignored(tmp_path):
+    rgb = np.stack([_ramp((80, 96), 255, np.uint8)] * 3, axis=-1)
+    alpha = np.full((80, 96), 255, np.uint8)
+    opaque = tmp_path / "opaque.png"
+    Image.fromarray(np.dstack([rgb, alpha]), "RGBA").save(opaque)
+    assert load_photo(opaque).notes == ()
+    alpha[:10] = 0
+    clear = tmp_path / "clear.png"
+    Image.fromarray(np.dstack([rgb, alpha]), "RGBA").save(clear)
+    photo = load_photo(clear)
+    assert len(photo.notes) == 1 and "transparency was ignored" in photo.notes[0]
+    assert np.array_equal(photo.pixels, load_photo(opaque).pixels)
+
+
+def test_a_reader_warning_becomes_a_note_not_a_line_on_stderr(tmp_path, monkeypatch, capfd):
+    path = tmp_path / "BW-FL-0412.png"
+    Image.fromarray(_ramp((80, 96), 255, np.uint8)).save(path)
+    real = loading.ImageOps.exif_transpose
+
+    def warns(image, **kwargs):  # as Pillow does for a damaged EXIF block
+        warnings.warn("Corrupt EXIF data.  Expecting to read 12 bytes", UserWarning,
+                      stacklevel=1)
+        return real(image, **kwargs)
+
+    monkeypatch.setattr(loading.ImageOps, "exif_transpose", warns)
+    photo = load_photo(path)
+    assert photo.notes == ("the image reader passed over a fault in the file: Corrupt EXIF "
+                           "data. Expecting to read 12 bytes",)
+    assert capfd.readouterr().err == ""

@@ -34,3 +34,48 @@ def test_version_from_a_fresh_process():
 def test_no_command_prints_the_help_and_status_2(capsys):
     assert main([]) == 2
     assert "--version" in capsys.readouterr().out
+
+
+STOPPED_MID_WRITE = """
+import sys
+from flatsight.analysis import atomic
+from flatsight.tui import cli
+
+def held_write(path, text, encoding="utf-8"):
+    # the certificate's write, held open half done until the test stops the process
+    with atomic.atomic_path(path) as tmp:
+        tmp.write_text(text[:100], encoding=encoding)
+        print("writing", flush=True)
+        sys.stdin.readline()
+
+atomic.atomic_write_text = held_write
+sys.exit(cli.main(sys.argv[1:]))
+"""
+
+
+def test_a_stopped_write_leaves_no_temporary_file(measured, tmp_path):
+    import signal
+
+    from flatsight.analysis.inspection_log import record_measurement
+    from flatsight.analysis.record import measurement_to_record
+
+    log = tmp_path / "log.sqlite"
+    record_measurement(log, measurement_to_record(measured), part="BW-FL-0412")
+    out = tmp_path / "certificates"
+    out.mkdir()
+    with subprocess.Popen(
+            [sys.executable, "-c", STOPPED_MID_WRITE, "report", "1", "--log", str(log),
+             "--output", str(out / "BW-FL-0412.html")],
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+            text=True) as proc:
+        try:
+            assert proc.stdout.readline().strip() == "writing", proc.stderr.read()
+            assert [p.name.startswith(".BW-FL-0412.html.") for p in out.iterdir()] == [True]
+            proc.send_signal(signal.SIGTERM)  # what `kill` sends
+            _, err = proc.communicate(timeout=60)
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+    assert proc.returncode == 128 + signal.SIGTERM, err
+    assert "Traceback" not in err
+    assert list(out.iterdir()) == []  # neither a half certificate nor a hidden temporary file

@@ -14,12 +14,16 @@ import csv
 import io
 import json
 import os
+import signal
+import sqlite3
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import numpy as np
 import pytest
+from flatsight.analysis import inspection_log
 from flatsight.tui.cli import main
 from PIL import Image
 
@@ -290,3 +294,223 @@ def test_console_command(photo_set, tmp_path):
     assert len(records) == 1 and records[0]["wavelength_nm"] == 632.8
     assert_one_line_error(done.stderr, str(empty))
     assert not (tmp_path / "data").exists()  # --no-log: nothing written to the data folder
+
+
+# --- a log that cannot be written: every result still shown, one line, exit 2 --------------
+
+
+def three_photos(tmp_path, photo_set):
+    names = ["BW-FL-0412.png", "BW-FL-0413.png", "BW-FL-0588.png"]
+    for name in names:
+        (tmp_path / name).write_bytes(photo_set.good_png.read_bytes())
+    return [tmp_path / name for name in names]
+
+
+@pytest.mark.parametrize("mode", ["--json", "table"])
+def test_a_folder_as_the_log_still_shows_every_result(mode, quick_measure, photo_set, tmp_path,
+                                                     capsys):
+    photos = three_photos(tmp_path, photo_set)
+    flags = [mode] if mode != "table" else []
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--log", tmp_path, *flags)
+    assert status == 2
+    line = assert_one_line_error(err, "cannot write the log", "is a folder")
+    assert "internal error" not in line
+    if mode == "--json":
+        records = json_lines(out)
+        assert [Path(r["photo"]).name for r in records] == [p.name for p in photos]
+        assert all("record_id" not in r for r in records)
+    else:
+        for p in photos:
+            assert p.name in out
+
+
+def test_a_full_disk_mid_batch_still_shows_every_result(quick_measure, photo_set, tmp_path,
+                                                       capsys, monkeypatch):
+    import sqlite3
+
+    from flatsight.analysis import inspection_log
+
+    photos = three_photos(tmp_path, photo_set)
+    log = tmp_path / "log.sqlite"
+    real_connect, connections = sqlite3.connect, []
+
+    def second_write_finds_the_disk_full(*args, **kwargs):
+        # 'PRAGMA max_page_count' makes SQLite answer SQLITE_FULL, as on a full disk
+        # (SQLite documentation, from memory); from the second record on the file may not grow
+        con = real_connect(*args, **kwargs)
+        connections.append(con)
+        if len(connections) > 1:
+            pages = con.execute("PRAGMA page_count").fetchone()[0]
+            con.execute(f"PRAGMA max_page_count = {pages}")
+        return con
+
+    monkeypatch.setattr(sqlite3, "connect", second_write_finds_the_disk_full)
+    long_part = "BW-FL-" + "0" * 20000  # a record bigger than any free room in the pages
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--log", log, "--json",
+                               "--part", long_part)
+    monkeypatch.undo()
+    assert status == 2
+    line = assert_one_line_error(err, "cannot write the log", "the disk is full")
+    assert "not a readable" not in line
+    records = json_lines(out)
+    assert len(records) == 3
+    assert [("record_id" in r) for r in records] == [True, False, False]
+    assert [r["record_id"] for r in inspection_log.query(log)] == [records[0]["record_id"]]
+
+
+@pytest.mark.parametrize("existing", [False, True])
+def test_a_log_the_user_cannot_write_still_shows_the_result(existing, photo_set, shared_folder,
+                                                           run_as_reader):
+    # a new log in a folder the user may not write (a 0555 folder, a read-only mount),
+    # or a log the user may only read (a 0444 file)
+    log = shared_folder / "log.sqlite"
+    if existing:
+        inspection_log.record_measurement(log, {"photo": "BW-FL-0400.png", "pv_nm": 40.0})
+    before = log.read_bytes() if existing else None
+    photo = shared_folder / "BW-FL-0412.png"
+    photo.write_bytes(photo_set.good_png.read_bytes())
+    code = "import sys; from flatsight.tui.cli import main; sys.exit(main(sys.argv[1:]))"
+    done = run_as_reader(shared_folder, code, "measure", str(photo), *W, "--json",
+                         "--log", str(log))
+    assert done.returncode == 2, done.stderr
+    line = assert_one_line_error(done.stderr, "cannot write the log")
+    assert "not a readable" not in line
+    records = json_lines(done.stdout)
+    assert len(records) == 1 and "record_id" not in records[0]
+    assert (log.read_bytes() if existing else log.exists()) == (before if existing else False)
+
+
+# --- every option checked before a photo is measured; nothing logged that was not shown ----
+
+
+@pytest.fixture
+def measure_calls(monkeypatch):
+    """Photos handed to the analysis (which must not be reached with a bad option)."""
+    import flatsight.analysis.pipeline as pipeline
+
+    calls = []
+    monkeypatch.setattr(pipeline, "measure", lambda photo, *a, **k: calls.append(photo))
+    return calls
+
+
+@pytest.mark.parametrize("option, words", [
+    (["--diameter", "inf"], ["diameter", "out of range"]),
+    (["--diameter", "1e300"], ["diameter", "out of range"]),
+    (["--diameter", "nan"], ["diameter", "out of range"]),
+    (["--aperture", "100,100,1e308"], ["1e308"]),
+    (["--aperture", "nan,240,100"], ["nan"]),
+    (["--exclude", "100,100,inf"], ["inf"]),
+    (["--terms", "9" * 400], ["Zernike terms", "out of range"]),
+    (["--spec", "3/" + "9" * 400 + "(1)"], ["too large"]),
+    (["--spec", "pv<=" + "1" * 400 + "nm"], ["too large"]),
+    (["--spec", "3/²(1)"], ["at character 3", "expected a number"]),
+    (["--spec-wavelength", "1e300", "--spec", "3/1(1)"], ["spec-wavelength", "out of range"]),
+    (["--save-map", "maps/{name}.png"], ["height map", ".npy"]),
+    (["--log", ""], ["--log", "file path"]),
+])
+def test_a_bad_option_is_a_usage_error_before_any_photo(option, words, photo_set, tmp_path,
+                                                        capsys, measure_calls, monkeypatch):
+    monkeypatch.chdir(tmp_path)  # a default log would go here... were one written
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "data"))
+    log = [] if "--log" in option else ["--log", tmp_path / "log.sqlite"]
+    status, out, err = run_cli(capsys, "measure", photo_set.good_png, photo_set.good_tif16,
+                               *W, *log, *option)
+    assert status == 2 and out == ""
+    line = assert_one_line_error(err, *words)
+    assert "could not convert" not in line and "internal error" not in line
+    assert measure_calls == []
+    assert not (tmp_path / "log.sqlite").exists() and not (tmp_path / "data").exists()
+
+
+def test_an_aperture_larger_than_the_photo_is_a_usage_error(photo_set, capsys, tmp_path):
+    log = tmp_path / "log.sqlite"
+    status, out, err = run_cli(capsys, "measure", photo_set.good_png, *W, "--aperture",
+                               "320,240,5000", "--log", log)
+    assert status == 2 and out == ""
+    assert_one_line_error(err, "5000", "does not fit", "640x480")
+    assert not log.exists()
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["report", "1180591620717411303424", "-o", "x.html"], ["record id", "out of range"]),
+    (["history", "--limit", "1" * 30], ["count", "out of range"]),
+    (["trend", "--height", "99999999999"], ["--height", "out of range"]),
+    (["absolute", "--ab", "a.png", "--ac", "b.png", "--bc", "c.png", "--rotated", "d.png",
+      "--angle", "nan", "-w", "hene"], ["angle", "out of range"]),
+    (["stack", "a.png", "b.png", "c.png", "-w", "hene", "--diameter", "inf"], ["diameter"]),
+    (["stack", "a.png", "b.png", "c.png", "-w", "hene", "--save-map", "m.jpg"],
+     ["height map", ".npy"]),
+    (["watch", ".", "-w", "hene", "--interval", "inf"], ["seconds", "out of range"]),
+    (["watch", ".", "-w", "hene", "--save-map", "maps/{name}.bmp", "--timeout", "5",
+      "--no-log"], ["height map", ".npy"]),
+])
+def test_other_commands_refuse_bad_numbers_with_one_line(argv, words, capsys, tmp_path,
+                                                         monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    status, out, err = run_cli(capsys, *argv)
+    assert status == 2 and out == ""
+    assert_one_line_error(err, *words)
+
+
+def test_save_map_never_overwrites_a_map_of_the_same_batch(quick_measure, photo_set, tmp_path,
+                                                           capsys):
+    # a/BW-1.png and b/BW-1.png, and part.png with part.tif: one stem, two photos
+    photos = [tmp_path / "a" / "BW-1.png", tmp_path / "b" / "BW-1.png",
+              tmp_path / "part.png", tmp_path / "part.tif"]
+    for p in photos:
+        p.parent.mkdir(exist_ok=True)
+        p.write_bytes(b"stand-in: the analysis is replaced in this test")
+    maps = tmp_path / "maps"
+    maps.mkdir()
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--json", "--no-log",
+                               "--save-map", maps / "{name}.npy")
+    assert status == 0, err
+    paths = [r["height_map_path"] for r in json_lines(out)]
+    assert [Path(p).name for p in paths] == ["BW-1.npy", "BW-1-2.npy", "part.npy",
+                                             "part-2.npy"]
+    assert sorted(p.name for p in maps.iterdir()) == sorted(Path(p).name for p in paths)
+
+
+def test_a_multi_page_tiff_is_measured_from_its_first_page_and_says_so(photo_set, tmp_path,
+                                                                      capsys):
+    first = Image.open(photo_set.good_png)
+    path = tmp_path / "BW-FL-0412-pages.tif"
+    first.save(path, save_all=True, append_images=[first.rotate(90)])
+    status, out, err = run_cli(capsys, "measure", path, *W, "--json", "--no-log")
+    assert status == 0, err
+    warnings = json_lines(out)[0]["warnings"]
+    assert any("2 frames" in w and "only the first frame" in w for w in warnings), warnings
+
+
+def test_ctrl_c_in_the_table_view_shows_every_finished_result(photo_set, tmp_path):
+    photos = []
+    for k in range(20):  # far more than can finish between the first record and ctrl+c
+        photos.append(tmp_path / f"BW-FL-{412 + k:04d}.png")
+        photos[-1].write_bytes(photo_set.good_png.read_bytes())
+    log = tmp_path / "log.sqlite"
+    code = "import sys; from flatsight.tui.cli import main; sys.exit(main(sys.argv[1:]))"
+    proc = subprocess.Popen([sys.executable, "-c", code, "measure", *map(str, photos), *W,
+                             "--log", str(log)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 300
+        logged = 0
+        while logged == 0 and proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.05)  # polling the log, not timing the process
+            try:
+                con = sqlite3.connect(f"{log.as_uri()}?mode=ro", uri=True)
+                logged = con.execute("SELECT count(*) FROM inspections").fetchone()[0]
+                con.close()
+            except sqlite3.Error:
+                pass  # not made yet
+        assert logged, "no record was logged"
+        proc.send_signal(signal.SIGINT)
+        out, err = proc.communicate(timeout=300)
+    finally:
+        proc.kill()
+        proc.wait()
+    assert proc.returncode == 130, err
+    assert "interrupted" in err and "Traceback" not in err
+    shown = [p.name for p in photos if p.name in out]
+    records = [Path(r["photo"]).name for r in inspection_log.query(log)]
+    assert records and sorted(records) == sorted(shown)  # every logged result was shown

@@ -156,7 +156,7 @@ def test_ctrl_c_stops_cleanly(tmp_path):
     time.sleep(0.2)
     proc.send_signal(signal.SIGINT)
     out, err = proc.communicate(timeout=30)
-    assert proc.returncode == 0
+    assert proc.returncode == 130  # README, exit status: 130 interrupted
     assert "watch stopped (ctrl+c): 0 photos" in out
     assert "Traceback" not in err and "Traceback" not in out
 
@@ -189,3 +189,148 @@ def test_watch_applies_aperture_exclusions_and_saves_maps(tmp_path, photo_set):
     bad = parser.parse_args(["watch", str(folder), "--wavelength", "632.8", "--no-log",
                              "--save-map", str(folder / "{name}.tif")])
     assert cmd_watch.run(bad) == 2
+
+
+# --- one bad file, a vanished folder, a stalled writer, a log that cannot be written -------
+
+
+def run_watch(capsys, *argv):
+    args = parser().parse_args(["watch", *map(str, argv)])
+    status = cmd_watch.run(args)
+    captured = capsys.readouterr()
+    return status, captured.out, captured.err
+
+
+def test_each_bad_file_gives_one_error_line_and_the_watch_goes_on(tmp_path, photo_set,
+                                                                 capsys):
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    shutil.copy(photo_set.bad["bomb.png"], folder / "BW-FL-0401-bomb.png")
+    os.symlink("BW-FL-0402-loop.png", folder / "BW-FL-0402-loop.png")  # a link to itself
+    os.symlink(tmp_path / "nowhere.png", folder / "BW-FL-0403-dangling.png")
+    os.mkfifo(folder / "BW-FL-0404-pipe.png")  # opening it would wait for a writer forever
+    (folder / "BW-FL-0405-empty.png").write_bytes(b"")
+    shutil.copy(photo_set.good_png, folder / "BW-FL-0412.png")
+    status, out, err = run_watch(capsys, folder, "-w", "632.8", "--no-log", "--existing",
+                                 "--settle", "0.1", "--interval", "0.05", "--max-files", "6",
+                                 "--timeout", "120")
+    assert status == 0, out + err
+    assert err == ""  # no Pillow warning, no traceback
+    lines = out.splitlines()[1:-1]
+    errors = {name: [ln for ln in lines if f"BW-FL-040{k}-{name}.png: error:" in ln]
+              for k, name in enumerate(["bomb", "loop", "dangling", "pipe", "empty"], 1)}
+    assert all(len(found) == 1 for found in errors.values()), out
+    assert "safety limit" in errors["bomb"][0]
+    assert "left alone" in errors["loop"][0] and "link to nothing" in errors["dangling"][0]
+    assert "not a regular file" in errors["pipe"][0]
+    assert "empty (0 bytes)" in errors["empty"][0]
+    assert len([ln for ln in lines if ln.split()[1:2] == ["BW-FL-0412"]]) == 1
+    assert "internal error" not in out
+    assert out.splitlines()[-1].endswith("6 photos, 0 pass, 0 fail, 1 without tolerance, "
+                                         "5 errors")
+
+
+class Lines:
+    """The lines a process prints, read in a thread, waited for by content (no sleeps)."""
+
+    def __init__(self, proc):
+        import queue
+
+        self.seen: list[str] = []
+        self._queue = queue.Queue()
+        self._thread = threading.Thread(target=self._read, args=(proc.stdout,), daemon=True)
+        self._thread.start()
+
+    def _read(self, stream):
+        for line in stream:
+            self._queue.put(line.rstrip("\n"))
+        self._queue.put(None)
+
+    def wait_for(self, text, timeout=120):
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            import queue
+
+            try:
+                line = self._queue.get(timeout=max(0.01, deadline - time.monotonic()))
+            except queue.Empty:
+                break
+            if line is None:
+                break
+            self.seen.append(line)
+            if text in line:
+                return line
+        raise AssertionError(f"no line with {text!r}; saw:\n" + "\n".join(self.seen))
+
+
+def test_a_vanished_folder_is_waited_for(tmp_path, photo_set):
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    code = "import sys; from flatsight.tui.cli import main; sys.exit(main())"
+    proc = subprocess.Popen(
+        [sys.executable, "-c", code, "watch", str(folder), "-w", "hene", "--no-log",
+         "--interval", "0.05", "--settle", "0.1", "--max-files", "1", "--timeout", "300"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        lines = Lines(proc)
+        lines.wait_for("watching ")
+        shutil.rmtree(folder)
+        lines.wait_for("cannot be looked at")
+        folder.mkdir()
+        lines.wait_for("is back")
+        shutil.copy(photo_set.good_png, folder / "BW-FL-0412.png")
+        lines.wait_for("BW-FL-0412")
+        _, err = proc.communicate(timeout=120)
+    finally:
+        proc.kill()
+        proc.wait()
+    assert proc.returncode == 0, err
+    assert "Traceback" not in err
+
+
+def test_a_stalled_writer_is_one_error_until_its_photo_measures(tmp_path, photo_set, capsys):
+    now = [0.0]
+    watcher = cmd_watch.FolderWatcher(tmp_path, settle_s=0.5, give_up_s=2.0,
+                                      clock=lambda: now[0])
+    args = parser().parse_args(["watch", str(tmp_path), "-w", "632.8", "--no-log"])
+    tally = cmd_watch.Tally()
+    target = tmp_path / "BW-FL-0412.png"
+    data = photo_set.good_png.read_bytes()
+
+    def stall_at(fraction):
+        target.write_bytes(data[: int(len(data) * fraction)])
+        for step in (0.1, 3.0):  # seen, then stable past the give-up time
+            now[0] += step
+            for path in watcher.poll():
+                cmd_watch._handle(path, args, tally)
+
+    stall_at(0.3)
+    stall_at(0.6)  # the writer went on, then stalled again
+    assert tally.counts["error"] == 1 and tally.total() == 1
+    stall_at(1.0)  # finished
+    out = capsys.readouterr().out
+    assert tally.counts == {"error": 0, "measured": 1}
+    assert len([ln for ln in out.splitlines() if "error" in ln]) == 1
+    assert len(out.splitlines()) == 2
+
+
+def test_results_are_shown_when_the_log_cannot_be_written(tmp_path, quick_measure, photo_set,
+                                                         capsys):
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    maps = tmp_path / "maps"
+    maps.mkdir()
+    # two photos of one stem: each keeps its own map
+    shutil.copy(photo_set.good_png, folder / "BW-FL-0412.png")
+    shutil.copy(photo_set.good_tif16, folder / "BW-FL-0412.tif")
+    status, out, err = run_watch(capsys, folder, "-w", "632.8", "--log", tmp_path,
+                                 "--existing", "--settle", "0", "--interval", "0.05",
+                                 "--max-files", "2", "--timeout", "120",
+                                 "--save-map", maps / "{name}.npy")
+    assert status == 2, out + err
+    lines = out.splitlines()
+    measured = [ln for ln in lines if "BW-FL-0412" in ln and "PV" in ln]
+    assert len(measured) == 2 and all(ln.endswith("not logged") for ln in measured)
+    assert len([ln for ln in lines if "cannot write the log" in ln]) == 1
+    assert lines[-1].endswith("2 not logged")
+    assert sorted(p.name for p in maps.iterdir()) == ["BW-FL-0412-2.npy", "BW-FL-0412.npy"]

@@ -12,6 +12,7 @@ from textual.screen import ModalScreen
 from textual.widgets import DirectoryTree, Static
 
 from ...analysis.loading import is_photo_path, photos_in
+from ..safe_text import literal
 
 __all__ = ["OpenScreen", "PhotoTree", "photos_in"]
 
@@ -25,6 +26,10 @@ class PhotoTree(DirectoryTree):
             for p in paths
             if not p.name.startswith(".") and (p.is_dir() or is_photo_path(p))
         ]
+
+    def process_label(self, label):
+        # a file name is shown as written: never markup, control characters escaped
+        return literal(label) if isinstance(label, str) else label
 
 
 class OpenScreen(ModalScreen[list[Path] | None]):

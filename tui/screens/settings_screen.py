@@ -12,6 +12,7 @@ from textual.widgets import Button, Checkbox, Input, Label, Static
 
 from ...analysis.errors import SettingsError
 from ..config import StationSettings, validate
+from ..safe_text import literal
 
 __all__ = ["PUSH_TEST", "SettingsScreen"]
 
@@ -88,7 +89,7 @@ class SettingsScreen(ModalScreen[StationSettings | None]):
         try:
             self.dismiss(self.read_settings())
         except SettingsError as exc:
-            self.query_one("#settings-error", Label).update(f"✗ {exc}")
+            self.query_one("#settings-error", Label).update(literal(f"✗ {exc}"))
 
     def action_cancel(self) -> None:
         self.dismiss(None)

@@ -11,6 +11,7 @@ from textual.widgets import Static
 from ...analysis.zernike import term_name
 from ..render.summary import figure_rows, zernike_rows
 from ..render.units import fmt_height
+from ..safe_text import literal
 from ..station_state import QueueEntry, ViewContext
 
 __all__ = ["FiguresView"]
@@ -78,6 +79,6 @@ class FiguresView(VerticalScroll, can_focus=True):
         )
         parts = [title, note, main]
         if m.warnings:
-            parts += [Text("! " + w, style="#ffc440") for w in m.warnings]
+            parts += [literal("! " + w, "#ffc440") for w in m.warnings]
         parts += [Text(""), fit, zt]
         return Group(*parts)

@@ -8,6 +8,7 @@ from rich.text import Text
 from textual.binding import Binding
 
 from ..render.photo import aperture_region, render_photo
+from ..safe_text import shown
 from .view_base import StationView, side_by_side
 
 __all__ = ["FringeView"]
@@ -139,4 +140,4 @@ class FringeView(StationView):
 
 def wrapped(message: str, style: str, width: int = PANEL_WIDTH) -> list[Text]:
     """A message broken into panel-wide lines."""
-    return [Text(line, style=style) for line in textwrap.wrap(message, width)]
+    return [Text(line, style=style) for line in textwrap.wrap(shown(message), width)]

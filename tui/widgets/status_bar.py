@@ -6,6 +6,8 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal
 from textual.widgets import Label, ProgressBar
 
+from ..safe_text import literal
+
 __all__ = ["StatusBar"]
 
 
@@ -26,7 +28,8 @@ class StatusBar(Horizontal):
         )
 
     def say(self, message: str) -> None:
-        self.query_one("#status-text", Label).update(message)
+        # the message names photos and parts: shown literally, never as markup
+        self.query_one("#status-text", Label).update(literal(message))
 
     def progress(self, fraction: float | None) -> None:
         """Show ``fraction`` (0..1) on the bar; None hides it."""

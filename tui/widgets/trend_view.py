@@ -7,6 +7,7 @@ from datetime import datetime
 from rich.text import Text
 from textual.binding import Binding
 
+from ..safe_text import shown
 from .view_base import StationView
 
 __all__ = ["TREND_FIGURES", "TrendView", "pass_rate"]
@@ -49,10 +50,10 @@ class TrendView(StationView):
         if not ctx.trend_all:
             rows = [r for r in rows if r.get("part") == ctx.part]
         figure = auto_figure(rows) if ctx.trend_figure == "auto" else ctx.trend_figure
-        scope = "all parts" if ctx.trend_all or ctx.part is None else f"part {ctx.part}"
+        scope = "all parts" if ctx.trend_all or ctx.part is None else f"part {shown(ctx.part)}"
         head = Text.assemble((f"{figure} over time", "bold"), f" · {scope}")
         if ctx.log_note and not ctx.log_rows:
-            return head + Text("\n" + ctx.log_note, style="dim")
+            return head + Text("\n" + shown(ctx.log_note), style="dim")
         rows = rows[::-1]  # oldest first
         points = [(_time(r["logged_utc"]), float(r[figure]), r.get("verdict"))
                   for r in rows if isinstance(r.get(figure), int | float)]

@@ -5,6 +5,7 @@ from __future__ import annotations
 from rich.text import Text
 from textual.widget import Widget
 
+from ..safe_text import shown
 from ..station_state import QueueEntry, ViewContext
 
 __all__ = ["StationView", "side_by_side"]
@@ -50,7 +51,8 @@ class StationView(Widget, can_focus=True):
         try:
             return self.draw()
         except Exception as exc:  # a drawing bug must not take the station down
-            return Text(f"cannot draw this view: {type(exc).__name__}: {exc}", style="#ff6e8a")
+            return Text(f"cannot draw this view: {type(exc).__name__}: {shown(exc)}",
+                        style="#ff6e8a")
 
     def draw(self) -> Text:
         """The view's content at the widget's current size."""
