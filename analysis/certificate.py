@@ -23,12 +23,12 @@ import base64
 import html
 import io
 import json
-import math
 from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
 
+from .formatting import format_number
 from .version import flatsight_version
 from .zernike import noll_to_nm, osa_to_noll, term_name, zernike_basis
 
@@ -192,7 +192,7 @@ def map_png(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> bytes:
         value = span * (1 - 2 * frac)
         y = pad + round(frac * (size_px - 1))
         draw.line((bar_x + bar, y, bar_x + bar + 4, y), fill=(40, 40, 40))
-        draw.text((bar_x + bar + 7, y), f"{value:+.1f} nm" if value else "0 nm",
+        draw.text((bar_x + bar + 7, y), f"{format_number(value, 1, sign=True)} nm",
                   fill=(20, 20, 20), font=font, anchor="lm")
     info = PngInfo()  # the PNG's own Software field, read by image viewers and exiftool
     info.add_text("Software", software(record))
@@ -206,11 +206,7 @@ def _e(value) -> str:
 
 
 def _fmt(value, digits: int) -> str:
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return "—"
-    return f"{x:.{digits}f}" if math.isfinite(x) else "—"
+    return format_number(value, digits)
 
 
 _CSS = """

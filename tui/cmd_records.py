@@ -10,7 +10,6 @@ from __future__ import annotations
 import argparse
 import csv
 import json
-import math
 import shutil
 import sys
 from collections.abc import Sequence
@@ -18,6 +17,7 @@ from datetime import datetime
 from pathlib import Path
 
 from ..analysis.errors import FlatsightError, SettingsError
+from ..analysis.formatting import format_number
 
 __all__ = ["add_parser", "run", "run_history", "run_report", "run_trend", "trend_lines"]
 
@@ -103,11 +103,9 @@ def _csv_row(rec: dict) -> dict:
 
 
 def _cell(value, digits: int = 1) -> str:
-    if value is None:
-        return "—"
     if isinstance(value, float):
-        return f"{value:.{digits}f}" if math.isfinite(value) else "—"
-    return str(value)
+        return format_number(value, digits)
+    return "—" if value is None else str(value)
 
 
 def run_history(args: argparse.Namespace) -> int:
@@ -203,7 +201,7 @@ def trend_lines(
         lo, hi = lo - 1.0, hi + 1.0
     pad = 0.05 * (hi - lo)
     lo, hi = lo - pad, hi + pad
-    label_w = max(len(f"{hi:.1f}"), len(f"{lo:.1f}")) + 1
+    label_w = max(len(format_number(hi)), len(format_number(lo))) + 1
     plot_w = max(10, width - label_w - 2)
     grid = [[" "] * plot_w for _ in range(height)]
 
@@ -230,7 +228,7 @@ def trend_lines(
     lines = []
     for r in range(height):
         value = hi - r * (hi - lo) / (height - 1)
-        label = f"{value:.1f}" if r in (0, height - 1, height // 2) else ""
+        label = format_number(value) if r in (0, height - 1, height // 2) else ""
         lines.append(f"{label:>{label_w}} │" + "".join(grid[r]))
     lines.append(" " * label_w + " └" + "─" * plot_w)
     first, last = t0.strftime("%Y-%m-%d %H:%M"), t1.strftime("%Y-%m-%d %H:%M")
@@ -250,7 +248,7 @@ def _limits_for(rec: dict, figure: str) -> tuple[list[float], str]:
     lines = [tight["limit_nm"]]
     if tight.get("compared") == "magnitude":
         lines.append(-tight["limit_nm"])
-    return lines, (f"limit {tight['limit_nm']:.1f} nm "
+    return lines, (f"limit {format_number(tight['limit_nm'])} nm "
                    f"({tight.get('name')} of {spec.get('tolerance')})")
 
 

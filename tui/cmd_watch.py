@@ -16,6 +16,7 @@ from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
+from ..analysis.formatting import format_number
 from .options import circle_type, wavelength_type
 from .record_options import add_record_options
 
@@ -199,8 +200,7 @@ def _stamp() -> str:
 
 def _line(record: dict, path: Path) -> str:
     def nm(key: str) -> str:
-        v = record.get(key)
-        return f"{v:7.1f}" if isinstance(v, int | float) else "      —"
+        return f"{format_number(record.get(key)):>7}"
 
     verdict = (record.get("spec") or {}).get("verdict")
     word = {"pass": "PASS", "fail": "FAIL"}.get(verdict, "—")

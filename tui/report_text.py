@@ -8,6 +8,7 @@ import sys
 from pathlib import Path
 from typing import TextIO
 
+from flatsight.analysis.formatting import format_number
 from flatsight.analysis.record import flat_fields
 from flatsight.analysis.zernike import noll_to_osa, term_name
 from rich.console import Console
@@ -28,7 +29,7 @@ FIGURE_ROWS = [
 
 
 def _fmt(value, digits: int = 1) -> str:
-    return "-" if value is None else f"{value:.{digits}f}"
+    return format_number(value, digits, missing="-")
 
 
 def figures_table(record: dict) -> Table:
@@ -56,7 +57,7 @@ def figures_table(record: dict) -> Table:
         t.add_row(*row)
     roc = record.get("radius_of_curvature_m")
     if roc is not None:
-        t.add_row("radius of curvature", f"{roc:,.0f} m", "", "")
+        t.add_row("radius of curvature", f"{format_number(roc, 0, grouping=True)} m", "", "")
     return t
 
 

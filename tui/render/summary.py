@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from ...analysis.formatting import format_number
 from ...analysis.version import flatsight_version
 from ...analysis.zernike import term_name
 from .units import fmt_height
@@ -17,7 +18,7 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
 
     power = h(figures.power_nm)
     if units != "fringes":
-        power += f"  ({figures.power_fringes:+.2f} fr)"
+        power += f"  ({format_number(figures.power_fringes, 2, sign=True)} fr)"
     rows = [
         ("PV", h(figures.pv_nm)),
         ("RMS", h(figures.rms_nm)),
@@ -25,7 +26,7 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
         ("power", power),
     ]
     if figures.radius_of_curvature_m is not None:
-        rows.append(("radius", f"{figures.radius_of_curvature_m:+.1f} m"))
+        rows.append(("radius", f"{format_number(figures.radius_of_curvature_m, 1, sign=True)} m"))
     rows += [
         ("irregularity", h(figures.irregularity_nm)),
         ("astigmatism", f"{h(figures.astigmatism_nm)} @ {figures.astigmatism_axis_deg:.0f}°"),
@@ -39,7 +40,8 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
 def zernike_rows(coefficients_nm, *, wavelength_nm: float) -> list[tuple[int, str, str, str]]:
     """``(noll j, trade name, nm, waves)`` for every fitted term."""
     return [
-        (j, term_name(j), f"{c:+.2f}", f"{c / wavelength_nm:+.4f}")
+        (j, term_name(j), format_number(c, 2, sign=True),
+         format_number(c / wavelength_nm, 4, sign=True))
         for j, c in enumerate(coefficients_nm, start=1)
     ]
 
