@@ -16,17 +16,23 @@ from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
-from ..analysis.formatting import format_number
+from ..analysis.formatting import format_number, printable
 from .options import circle_type, wavelength_type
 from .record_options import add_record_options
 
-__all__ = ["FolderWatcher", "add_parser", "measure_photo", "run"]
+__all__ = ["FolderWatcher", "VERDICT_WORDS", "add_parser", "measure_photo", "run"]
+
+# a verdict as each photo's line writes it
+VERDICT_WORDS = {"pass": "PASS", "fail": "FAIL", "inconclusive": "INCONCLUSIVE"}
 
 DESCRIPTION = """\
 Watch FOLDER and measure each new photo (PNG, JPEG, TIFF) once the camera has finished
 writing it; log it to the inspection log and print one line with its verdict. The part
 is the photo's file name without its suffix (BW-FL-0412.png is part BW-FL-0412) unless
 --part is given. Bad files get a one-line error and the watch goes on.
+
+Each line ends with the verdict against --spec: PASS, FAIL, or INCONCLUSIVE under
+--decision guarded (a figure within its uncertainty U of a limit).
 
 Stop with ctrl+c, or with --max-files / --timeout: a summary line and exit status 0,
 whatever the verdicts (they are in the lines and the log); 2 for bad options.
@@ -166,6 +172,7 @@ def measure_photo(path: Path, args: argparse.Namespace) -> dict:
     from ..analysis.errors import SettingsError
     from ..analysis.pipeline import MeasureSettings, measure
     from ..analysis.record import measurement_to_record, save_height_map
+    from .record_options import uncertainty_settings
 
     aperture = getattr(args, "aperture", None)
     settings = MeasureSettings(
@@ -175,6 +182,7 @@ def measure_photo(path: Path, args: argparse.Namespace) -> dict:
         diameter_mm=float(args.diameter) if args.diameter is not None else None,
         aperture=Aperture(*aperture) if aperture else None,
         exclusions=tuple(Exclusion(*c) for c in getattr(args, "exclude", []) or []),
+        **uncertainty_settings(args),
     )
     m = measure(str(path), settings)
     record = measurement_to_record(m)
@@ -203,9 +211,10 @@ def _line(record: dict, path: Path) -> str:
         return f"{format_number(record.get(key)):>7}"
 
     verdict = (record.get("spec") or {}).get("verdict")
-    word = {"pass": "PASS", "fail": "FAIL"}.get(verdict, "—")
+    word = VERDICT_WORDS.get(verdict, "—")
     rid = record.get("record_id")
-    return (f"{_stamp()}  {record.get('part') or path.stem:<16} PV {nm('pv_nm')} nm  "
+    part = printable(record.get("part") or path.stem)
+    return (f"{_stamp()}  {part:<16} PV {nm('pv_nm')} nm  "
             f"PVr {nm('pvr_nm')} nm  power {nm('power_nm')} nm  {word:<4}"
             + (f"  #{rid}" if rid is not None else ""))
 
@@ -221,12 +230,12 @@ def _handle(path: Path, args: argparse.Namespace, counts: Counter) -> None:
         record, _ = finish_record(per_photo, record)
     except FlatsightError as exc:
         counts["error"] += 1
-        print(f"{_stamp()}  {path.name}: error: {exc}", flush=True)
+        print(f"{_stamp()}  {printable(path.name)}: error: {printable(exc)}", flush=True)
         return
     except Exception as exc:  # noqa: BLE001 - one bad photo must not stop the station's watch
         counts["error"] += 1
-        print(f"{_stamp()}  {path.name}: internal error: {type(exc).__name__}: {exc}",
-              flush=True)
+        print(f"{_stamp()}  {printable(path.name)}: internal error: {type(exc).__name__}: "
+              f"{printable(exc)}", flush=True)
         return
     verdict = (record.get("spec") or {}).get("verdict")
     counts[verdict or "measured"] += 1
@@ -236,8 +245,8 @@ def _handle(path: Path, args: argparse.Namespace, counts: Counter) -> None:
 def _summary(counts: Counter, why: str) -> str:
     total = sum(counts.values())
     return (f"watch stopped ({why}): {total} photos, {counts['pass']} pass, "
-            f"{counts['fail']} fail, {counts['measured']} without tolerance, "
-            f"{counts['error']} errors")
+            f"{counts['fail']} fail, {counts['inconclusive']} inconclusive, "
+            f"{counts['measured']} without tolerance, {counts['error']} errors")
 
 
 def run(args: argparse.Namespace) -> int:

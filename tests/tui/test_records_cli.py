@@ -67,6 +67,35 @@ def test_measure_exit_status_follows_the_tolerance(photos, tmp_path, capsys):
     assert len(inspection_log.query(log)) == before == 4
 
 
+def test_guarded_decision_exits_5_when_inconclusive_and_the_worst_status_wins(photos, tmp_path,
+                                                                              capsys):
+    good, bad = photos
+    # a stated reference-flat uncertainty of 40 nm (k = 2) makes every figure's U at least
+    # 40 nm: U = k * sqrt(sum of u_i^2) >= k * 40 / 2 (JCGM 100:2008, 5.1.2 and 6.2.1).
+    # The good photo's PVr is about 69 nm (power only, 2 sqrt(3) x 20 nm; Noll 1976), so
+    # "pvr<=75nm" lies within U of it: inconclusive under the guarded rule (ISO 14253-1)
+    common = ["-w", "632.8", "--spec", "pvr<=75nm", "--decision", "guarded",
+              "--reference-uncertainty", "40", "--no-log", "--json"]
+    status, out, err = run_cli(capsys, "measure", good, *common)
+    assert status == 5, err
+    rec = json.loads(out)
+    spec = rec["spec"]
+    assert spec["verdict"] == "inconclusive" and spec["decision_rule"] == "guarded"
+    assert spec["limits"][0]["uncertainty_nm"] >= 40.0
+    assert rec["uncertainty"]["pvr_nm"] == spec["limits"][0]["uncertainty_nm"]
+    assert rec["uncertainty_budget"]["reference_uncertainty_nm"] == 40.0
+    # the bad photo's PVr, about 201 nm (spherical 60 nm x 3.354: Noll's
+    # Z11 = sqrt(5)(6 rho^4 - 6 rho^2 + 1) spans 1.5 sqrt(5) over the disk), minus U is
+    # still beyond 75 nm: it fails (1), which outranks inconclusive (5); a missing file
+    # (2) outranks both
+    status, out, err = run_cli(capsys, "measure", good, bad, *common)
+    assert status == 1, err
+    assert [json.loads(line)["spec"]["verdict"] for line in out.splitlines()] == [
+        "inconclusive", "fail"]
+    status, out, err = run_cli(capsys, "measure", good, tmp_path / "missing.png", *common)
+    assert status == 2 and len(out.splitlines()) == 1
+
+
 @pytest.fixture(scope="module")
 def filled_log(photos, tmp_path_factory):
     good, bad = photos

@@ -310,6 +310,16 @@ def test_inspect_passes_log_part_people_and_preset_to_the_station(tmp_path, monk
     assert code == 0 and started["recorder"].log_path is None
 
 
+def test_inspect_takes_the_decision_rule_and_the_uncertainties(tmp_path, monkeypatch):
+    code, started = _inspect(tmp_path, monkeypatch, "--no-log", "--decision", "guarded",
+                             "--wavelength-uncertainty", "0.05", "--reference-uncertainty", "6")
+    assert code == 0
+    assert started["recorder"].options["decision"] == "guarded"
+    s = started["settings"]
+    assert (s.decision, s.wavelength_uncertainty_nm, s.reference_uncertainty_nm) == (
+        "guarded", 0.05, 6.0)
+
+
 @pytest.mark.parametrize("argv, says", [
     (("--spec", "3/1(0.5"), "3/1(0.5"),
     (("--preset", "bench-9"), "no preset 'bench-9'"),

@@ -96,7 +96,7 @@ def test_watch_measures_slowly_written_photos_and_survives_a_bad_one(tmp_path, c
     assert "BW-FL-0413.png: error:" in by_part["BW-FL-0413"][0]
     assert "FAIL" in by_part["BW-FL-0414"][0]
     assert lines[-1] == ("watch stopped (--max-files reached): 3 photos, 1 pass, 1 fail, "
-                         "0 without tolerance, 1 errors")
+                         "0 inconclusive, 0 without tolerance, 1 errors")
     # nothing was measured half-written: each good photo was whole when measured
     assert seen_sizes["BW-FL-0412.png"] == len(good_a)
     assert seen_sizes["BW-FL-0414.png"] == len(good_b)

@@ -46,6 +46,8 @@ class RecordActions:
         """Judge and log entry ``index``'s fresh measurement (in a worker: SQLite may wait)."""
         e = self.entries[index]
         options = entry_options(self.recorder, self.photo_preset(e), e.path)
+        if options.decision is None:  # neither the command line nor the preset: the station's
+            options.decision = self.settings.decision
         self._record(index, copy.copy(e), options)  # a copy: the entry may change meanwhile
 
     @work(thread=True, exit_on_error=False, group="record")
@@ -167,7 +169,9 @@ class RecordActions:
         self.chosen_preset = preset
         if preset is not None:
             changes = {"wavelength_nm": preset.wavelength_nm, "diameter_mm": preset.diameter_mm,
-                       "n_terms": preset.zernike_terms}
+                       "n_terms": preset.zernike_terms,
+                       "wavelength_uncertainty_nm": preset.wavelength_uncertainty_nm,
+                       "reference_uncertainty_nm": preset.reference_uncertainty_nm}
             new = replace(new, **{k: v for k, v in changes.items() if v is not None})
         for e in self.entries:
             if e.state != "error" or e.pixels is not None:
