@@ -303,7 +303,7 @@ def query(
         Only this part.
     since : str, optional
         Only records logged at or after this ISO 8601 date or time (UTC when no zone).
-    verdict : {"pass", "fail"}, optional
+    verdict : {"pass", "fail", "inconclusive"}, optional
         Only records with this verdict (records without a tolerance have none).
     limit : int, optional
         At most this many.
@@ -314,8 +314,8 @@ def query(
         The ``measure --json`` fields plus ``record_id``, ``logged_utc``, ``part``,
         ``operator``, ``station`` and ``verdict``.
     """
-    if verdict not in (None, "pass", "fail"):
-        raise SettingsError(f"--verdict {verdict!r}: choose pass or fail")
+    if verdict not in (None, "pass", "fail", "inconclusive"):
+        raise SettingsError(f"--verdict {verdict!r}: choose pass, fail or inconclusive")
     where, params = [], []
     if part is not None:
         where.append("part = ?")

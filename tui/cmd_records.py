@@ -43,7 +43,8 @@ def add_parser(subparsers) -> None:
     _log_option(h)
     h.add_argument("--part", metavar="ID", help="only this part")
     h.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
-    h.add_argument("--verdict", choices=("pass", "fail"), help="only this verdict")
+    h.add_argument("--verdict", choices=("pass", "fail", "inconclusive"),
+                   help="only this verdict")
     h.add_argument("--limit", metavar="N", type=int, default=None, help="at most N records")
     fmt = h.add_mutually_exclusive_group()
     fmt.add_argument("--json", action="store_true", help="JSON Lines, one record a line")
@@ -53,7 +54,8 @@ def add_parser(subparsers) -> None:
     t = subparsers.add_parser(
         "trend", help="plot a figure over time with its tolerance line and pass rate",
         description="Plot a figure over time in the terminal. Each mark is one record's "
-                    "overall verdict (o passed, x failed, * no tolerance); the dashed line "
+                    "overall verdict (o passed, x failed, ? inconclusive, * no tolerance); "
+                    "the dashed line "
                     "is the latest record's tightest limit on that figure (both signs for "
                     "power, which is limited by magnitude).")
     _log_option(t)
@@ -149,7 +151,8 @@ def run_history(args: argparse.Namespace) -> int:
                          no_wrap=name in ("time (UTC)", "part"))
     for rec in rows:
         verdict = rec.get("verdict")
-        style = {"pass": "bold green", "fail": "bold red"}.get(verdict, "dim")
+        style = {"pass": "bold green", "fail": "bold red",
+                 "inconclusive": "bold yellow"}.get(verdict, "dim")
         cells = [str(rec["record_id"]), str(rec.get("logged_utc", ""))[:16].replace("T", " "),
                  _cell(rec.get("part"))]
         if people:
@@ -213,18 +216,18 @@ def trend_lines(
         grid[r] = ["-" if c == " " else c for c in grid[r]]
     t0, t1 = points[0][0], points[-1][0]
     span = (t1 - t0).total_seconds()
-    rank = {"fail": 3, "pass": 2, None: 1}
-    mark = {"fail": "x", "pass": "o", None: "*"}
+    rank = {"fail": 4, "inconclusive": 3, "pass": 2, None: 1}
+    mark = {"fail": "x", "inconclusive": "?", "pass": "o", None: "*"}
     best: dict[tuple[int, int], str | None] = {}
     for i, (t, v, verdict) in enumerate(points):
         frac = (t - t0).total_seconds() / span if span > 0 else (
             i / (len(points) - 1) if len(points) > 1 else 0.5)
         cell = (row_of(v), min(plot_w - 1, round(frac * (plot_w - 1))))
         # where points share a cell, a failure must stay visible
-        if cell not in best or rank[verdict] > rank[best[cell]]:
+        if cell not in best or rank.get(verdict, 1) > rank.get(best[cell], 1):
             best[cell] = verdict
     for (r, c), verdict in best.items():
-        grid[r][c] = mark[verdict]
+        grid[r][c] = mark.get(verdict, "*")
     lines = []
     for r in range(height):
         value = hi - r * (hi - lo) / (height - 1)
@@ -286,13 +289,15 @@ def run_trend(args: argparse.Namespace) -> int:
         text = Text(body)
         text.highlight_regex(r"x", "bold red")
         text.highlight_regex(r"o", "green")
+        text.highlight_regex(r"\?", "bold yellow")
         text.highlight_regex(r"-+", "yellow")
         console.print(Text(label + bar) + text)
-    judged = [r for r in rows if r.get("verdict") in ("pass", "fail")]
+    judged = [r for r in rows if r.get("verdict") in ("pass", "fail", "inconclusive")]
     passed = sum(r["verdict"] == "pass" for r in judged)
     rate = (f"pass rate {passed}/{len(judged)} ({100.0 * passed / len(judged):.1f} %)"
             if judged else "pass rate: no record had a tolerance")
-    console.print(f"o pass  x fail  * no tolerance  --- {limit_note}")
+    console.print("o pass  x fail  ? inconclusive  * no tolerance")
+    console.print(f"--- {limit_note}")
     console.print(rate, style="bold")
     return 0
 

@@ -16,7 +16,8 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-__all__ = ["Reporter", "figures_table", "limits_table", "verdict_text", "zernike_table"]
+__all__ = ["Reporter", "figures_table", "limit_lines", "limits_table", "verdict_text",
+           "zernike_table"]
 
 # (label, record key stem, show in fringes)
 FIGURE_ROWS = [
@@ -36,8 +37,10 @@ SHORT_NAMES = {"pv_nm": "PV", "rms_nm": "RMS", "pvr_nm": "PVr", "power_nm": "pow
                "symmetric_irregularity_nm": "symmetric", "rms_irregularity_nm": "RMSi",
                "rms_asymmetric_nm": "RMSa"}
 # verdict -> (word, style) in tables and lines
-VERDICT_STYLES = {"pass": ("pass", "bold green"), "fail": ("FAIL", "bold red"),
-                  "inconclusive": ("INCONCLUSIVE", "bold yellow")}
+VERDICT_WORDS = {"pass": "pass", "fail": "FAIL", "inconclusive": "INCONCLUSIVE"}
+VERDICT_STYLES = {"pass": (VERDICT_WORDS["pass"], "bold green"),
+                  "fail": (VERDICT_WORDS["fail"], "bold red"),
+                  "inconclusive": (VERDICT_WORDS["inconclusive"], "bold yellow")}
 U_NOTE = ("U: expanded uncertainty (k = 2) in nm: the map's noise, the method, the "
           "wavelength and the reference flat (--json gives each in uncertainty_budget)")
 BATCH_U_NOTE = "±: " + U_NOTE.removeprefix("U: ")
@@ -104,6 +107,23 @@ def figures_table(record: dict) -> Table:
     return t
 
 
+def _limit_cells(lim: dict) -> tuple[Text, str, str, str, Text]:
+    """One judged limit as (name, measured ± U, limit, margin, verdict), heights in nm."""
+    short = SHORT_NAMES.get(lim.get("figure"), lim.get("label") or "")
+    name = str(lim.get("name") or "")
+    title = short if name.lower() in (short.lower(), lim.get("figure")) else f"{name} {short}"
+    measured = format_number(lim.get("measured_nm"))
+    if lim.get("compared") == "magnitude":
+        measured = f"|{measured}|"
+    u = lim.get("uncertainty_nm")
+    if u is not None:
+        measured += f" ± {format_number(u)}"
+    return (Text(printable(title)), f"{measured} nm",
+            f"≤ {format_number(lim.get('limit_nm'))} nm",
+            f"{format_number(lim.get('margin_nm'), sign=True)} nm",
+            verdict_text(lim.get("verdict")))
+
+
 def limits_table(spec: dict) -> Table:
     """Each limit of a judged tolerance: measured ± U, the limit, the margin, the verdict."""
     t = Table(show_edge=False, pad_edge=False, box=None, header_style="bold")
@@ -113,20 +133,17 @@ def limits_table(spec: dict) -> Table:
     t.add_column("margin", justify="right", no_wrap=True)
     t.add_column("verdict", no_wrap=True)
     for lim in spec.get("limits", []):
-        short = SHORT_NAMES.get(lim.get("figure"), lim.get("label") or "")
-        name = str(lim.get("name") or "")
-        title = short if name.lower() in (short.lower(), lim.get("figure")) else f"{name} {short}"
-        measured = format_number(lim.get("measured_nm"))
-        if lim.get("compared") == "magnitude":
-            measured = f"|{measured}|"
-        u = lim.get("uncertainty_nm")
-        if u is not None:
-            measured += f" ± {format_number(u)}"
-        t.add_row(Text(printable(title)), f"{measured} nm",
-                  f"≤ {format_number(lim.get('limit_nm'))} nm",
-                  f"{format_number(lim.get('margin_nm'), sign=True)} nm",
-                  verdict_text(lim.get("verdict")))
+        t.add_row(*_limit_cells(lim))
     return t
+
+
+def limit_lines(spec: dict) -> list[Text]:
+    """The same as :func:`limits_table`, one line a limit that wraps rather than cuts."""
+    lines = []
+    for lim in spec.get("limits", []):
+        title, measured, limit, margin, verdict = _limit_cells(lim)
+        lines.append(Text.assemble(title, ": ", verdict, f"  {measured} {limit}, margin {margin}"))
+    return lines
 
 
 def zernike_table(record: dict, *, first: int = 4, last: int = 15) -> Table:

@@ -158,6 +158,31 @@ def test_trend_lines_against_a_hand_placement():
     assert all(len(line) <= 60 for line in lines)
 
 
+def test_an_inconclusive_record_is_marked_and_counted_as_not_passed(tmp_path, capsys,
+                                                                    monkeypatch):
+    t0 = datetime(2026, 11, 1, tzinfo=UTC)
+    points = [(t0, 10.0, "inconclusive"), (t0 + timedelta(days=1), 10.0, "pass")]
+    lines = cmd_records.trend_lines(points, width=40, height=5)
+    assert "?" in "".join(lines) and "o" in "".join(lines)
+    # where an inconclusive and a fail share a cell, the fail stays visible
+    lines = cmd_records.trend_lines([(t0, 10.0, "inconclusive"),
+                                     (t0 + timedelta(minutes=1), 10.0, "fail"),
+                                     (t0 + timedelta(days=10), 20.0, "pass")],
+                                    width=40, height=5)
+    assert "x" in "".join(lines) and "?" not in "".join(lines)
+    log = tmp_path / "log.sqlite"
+    for day, verdict in ((1, "pass"), (2, "inconclusive"), (3, "fail")):
+        inspection_log.record_measurement(
+            log, {"pvr_nm": 60.0 + day, "spec": {"tolerance": "pvr<=62nm", "verdict": verdict}},
+            part="BW-FL-0412", logged_utc=f"2026-11-0{day}T08:00:00Z")
+    monkeypatch.setenv("COLUMNS", "80")
+    status, out, _ = run_cli(capsys, "trend", "--log", log)
+    assert status == 0 and "pass rate 1/3 (33.3 %)" in out and "? inconclusive" in out
+    status, out, _ = run_cli(capsys, "history", "--log", log, "--verdict", "inconclusive",
+                             "--json")
+    assert status == 0 and [json.loads(x)["pvr_nm"] for x in out.splitlines()] == [62.0]
+
+
 def test_report_html_and_png(filled_log, tmp_path, capsys):
     html_out = tmp_path / "cert.html"
     status, out, _ = run_cli(capsys, "report", "2", "--log", filled_log, "--output", html_out)

@@ -7,7 +7,16 @@ from ...analysis.version import flatsight_version
 from ...analysis.zernike import term_name
 from .units import fmt_height
 
-__all__ = ["figure_rows", "summary_text", "zernike_rows"]
+__all__ = ["UNCERTAINTY_KEYS", "figure_rows", "summary_text", "uncertainty_text", "zernike_rows"]
+
+
+# a figure's name in the station -> its key in Figures.uncertainty_nm
+UNCERTAINTY_KEYS = {
+    "PV": "pv_nm", "RMS": "rms_nm", "PVr": "pvr_nm", "power": "power_nm",
+    "irregularity": "irregularity_nm", "astigmatism": "astigmatism_nm",
+    "sym. irregularity": "symmetric_irregularity_nm",
+    "RMS irregularity": "rms_irregularity_nm", "RMS asymmetric": "rms_asymmetric_nm",
+}
 
 
 def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str, str]]:
@@ -35,6 +44,14 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
         ("RMS asymmetric", h(figures.rms_asymmetric_nm)),
     ]
     return rows
+
+
+def uncertainty_text(figures, name: str, *, units: str, wavelength_nm: float) -> str:
+    """``"± 3.1 nm"``: the expanded uncertainty (k = 2) of figure ``name``; empty without one."""
+    u = (getattr(figures, "uncertainty_nm", None) or {}).get(UNCERTAINTY_KEYS.get(name, ""))
+    if u is None:
+        return ""
+    return f"± {fmt_height(u, units, wavelength_nm)}"
 
 
 def zernike_rows(coefficients_nm, *, wavelength_nm: float) -> list[tuple[int, str, str, str]]:
@@ -69,11 +86,11 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
     ]
     if m.settings.diameter_mm:
         out.append(f"diameter       {m.settings.diameter_mm:g} mm")
-    out += ["", "Figures (piston and tilt removed)"]
-    for name, _ in figure_rows(m.figures, units="nm", wavelength_nm=wl):
-        nm = dict(figure_rows(m.figures, units="nm", wavelength_nm=wl))[name]
-        wv = dict(figure_rows(m.figures, units="waves", wavelength_nm=wl))[name]
-        out.append(f"  {name:<18} {nm:<26} {wv}")
+    out += ["", "Figures (piston and tilt removed; ± U is the expanded uncertainty, k = 2)"]
+    waves = dict(figure_rows(m.figures, units="waves", wavelength_nm=wl))
+    for name, nm in figure_rows(m.figures, units="nm", wavelength_nm=wl):
+        u = uncertainty_text(m.figures, name, units="nm", wavelength_nm=wl)
+        out.append(f"  {name:<18} {nm:<26} {u:<12} {waves[name]}".rstrip())
     if figures is not None and set(removed_terms) - {1, 2, 3}:
         names = ", ".join(term_name(j) for j in sorted(set(removed_terms) - {1, 2, 3}))
         out += ["", f"Figures with {names} also removed"]

@@ -9,12 +9,14 @@ from pathlib import Path
 from textual import work
 from textual.worker import Worker, WorkerState
 
+from ..report_text import VERDICT_WORDS
 from ..station_backend import describe_error
 from ..station_log import entry_options, read_log, record_result
 from ..station_state import QueueEntry
 from ..widgets.trend_view import TREND_FIGURES
 
 __all__ = ["RecordActions"]
+
 
 
 class RecordActions:
@@ -70,6 +72,7 @@ class RecordActions:
         if outcome is None or e.measurement is not measurement:
             return  # no records in this build, or the photo was measured again meanwhile
         e.verdict, e.record_id, e.log_error = outcome.verdict, outcome.record_id, outcome.error
+        e.spec = outcome.record.get("spec")
         if outcome.error:
             self.notify(outcome.error, severity="error", timeout=10)
         part = self.part_of(e)
@@ -83,14 +86,18 @@ class RecordActions:
             self.reload_log()
 
     def verdict_text(self, e: QueueEntry) -> str:
-        """`` · pass`` / `` · FAIL`` and the record id, for the status line."""
+        """`` · pass``, `` · FAIL`` or `` · INCONCLUSIVE`` and the record id, for the status line.
+
+        The figures view (5) gives each limit with its margin and U.
+        """
         if e.verdict is None and e.record_id is None and not e.log_error:
             return ""
         out = ""
         if e.verdict is not None:
             spec = self.photo_preset(e)
             text = self.recorder.options.get("spec") or (spec.tolerance if spec else None)
-            out += f" · {'pass' if e.verdict == 'pass' else 'FAIL'} {text or ''}".rstrip()
+            word = VERDICT_WORDS.get(e.verdict, e.verdict)
+            out += f" · {word} {text or ''}".rstrip()
         if e.record_id is not None:
             out += f" · record {e.record_id}"
         elif e.log_error:

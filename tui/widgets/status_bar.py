@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+from rich.text import Text
 from textual.app import ComposeResult
 from textual.containers import Horizontal
 from textual.widgets import Label, ProgressBar
+
+from ...analysis.formatting import printable
 
 __all__ = ["StatusBar"]
 
@@ -26,7 +29,8 @@ class StatusBar(Horizontal):
         )
 
     def say(self, message: str) -> None:
-        self.query_one("#status-text", Label).update(message)
+        """Show ``message`` as written: photo names and tolerances may hold brackets."""
+        self.query_one("#status-text", Label).update(Text(printable(message)))
 
     def progress(self, fraction: float | None) -> None:
         """Show ``fraction`` (0..1) on the bar; None hides it."""
