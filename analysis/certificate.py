@@ -23,14 +23,13 @@ import base64
 import html
 import io
 import json
-import math
 import re
 from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
 
-from .formatting import format_number
+from .formatting import finite_number, format_number
 from .version import flatsight_version
 from .zernike import noll_to_nm, osa_to_noll, term_name, zernike_basis
 
@@ -317,26 +316,18 @@ def _facts(record: Mapping) -> str:
     return f'<table class="facts">{body}</table>'
 
 
-def _number(value) -> float | None:
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return None
-    return x if math.isfinite(x) else None
-
-
 def _figures_table(record: Mapping) -> str:
-    lam = _number(record.get("wavelength_nm"))
+    lam = finite_number(record.get("wavelength_nm"))
     uncertainty = record.get("uncertainty") or {}
     rows = []
     for key, label, meaning in _FIGURE_ROWS:
-        nm = _number(record.get(key))
+        nm = finite_number(record.get(key))
         waves = nm / lam if nm is not None and lam else None
         fringes = 2 * waves if waves is not None else None
-        u = uncertainty.get(key)
+        u = finite_number(uncertainty.get(key))
+        u_text = "—" if u is None else f"± {_fmt(u, 1)}"
         rows.append(f"<tr><td>{_e(label)}</td><td class=\"num\">{_fmt(nm, 1)}</td>"
-                    f"<td class=\"num\">{'± ' + _fmt(u, 1) if _number(u) is not None else '—'}"
-                    f"</td><td class=\"num\">{_fmt(waves, 4)}</td>"
+                    f"<td class=\"num\">{u_text}</td><td class=\"num\">{_fmt(waves, 4)}</td>"
                     f"<td class=\"num\">{_fmt(fringes, 3)}</td>"
                     f"<td class=\"small\">{_e(meaning)}</td></tr>")
     roc = record.get("radius_of_curvature_m")
@@ -359,7 +350,7 @@ def _spec_table(spec: Mapping) -> str:
         value = "|measured|" if lim.get("compared") == "magnitude" else "measured"
         name, label = lim.get("name"), lim.get("label")
         title = label if name == label or not name else f"{name}: {label}"
-        u = _number(lim.get("uncertainty_nm"))
+        u = finite_number(lim.get("uncertainty_nm"))
         verdict = lim.get("verdict")
         rows.append(
             f"<tr><td>{_e(title)}</td>"

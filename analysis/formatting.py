@@ -13,7 +13,16 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["format_number", "format_plus_minus", "printable"]
+__all__ = ["finite_number", "format_number", "format_plus_minus", "printable"]
+
+
+def finite_number(value) -> float | None:
+    """``value`` as a float, or None when it is missing, not a number, NaN or infinite."""
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        return None
+    return x if math.isfinite(x) else None
 
 
 def format_number(value, digits: int = 1, *, sign: bool = False, missing: str = "—",
@@ -43,11 +52,8 @@ def format_number(value, digits: int = 1, *, sign: bool = False, missing: str = 
     >>> format_number(3, 1, sign=True), format_number(-8260.4, 0, grouping=True)
     ('+3.0', '-8,260')
     """
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return missing
-    if not math.isfinite(x):
+    x = finite_number(value)
+    if x is None:
         return missing
     plain = f"{x:.{digits}f}"
     if float(plain) == 0.0:

@@ -23,6 +23,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 from .errors import SettingsError
+from .formatting import finite_number
 
 __all__ = [
     "FIGURE_COLUMNS",
@@ -181,14 +182,6 @@ def _migrate(con: sqlite3.Connection, log_path: Path) -> None:
         raise
 
 
-def _number(value) -> float | None:
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return None
-    return x if math.isfinite(x) else None
-
-
 def _json(value) -> str:
     # NaN is not JSON; a figure that could not be measured is stored as null
     return json.dumps(_finite(value), allow_nan=False, default=_plain)
@@ -244,8 +237,8 @@ def record_measurement(
         "logged_utc": logged_utc or utc_now(),
         "part": part, "operator": operator, "station": station,
         "photo": record.get("photo"), "photo_sha256": record.get("photo_sha256"),
-        "wavelength_nm": _number(record.get("wavelength_nm")),
-        **{c: _number(record.get(c)) for c in FIGURE_COLUMNS},
+        "wavelength_nm": finite_number(record.get("wavelength_nm")),
+        **{c: finite_number(record.get(c)) for c in FIGURE_COLUMNS},
         "zernike_json": _json(record.get("zernike")),
         "settings_json": _json(record.get("settings")),
         "spec_text": spec.get("tolerance"), "verdict": spec.get("verdict"),
