@@ -22,6 +22,10 @@ from .record_options import add_record_options
 
 __all__ = ["FolderWatcher", "VERDICT_WORDS", "add_parser", "measure_photo", "run"]
 
+# the watch's clock and its pause between looks (tests put a clock of their own here)
+clock = time.monotonic
+pause = time.sleep
+
 # a verdict as each photo's line writes it
 VERDICT_WORDS = {"pass": "PASS", "fail": "FAIL", "inconclusive": "INCONCLUSIVE"}
 
@@ -275,26 +279,30 @@ def run(args: argparse.Namespace) -> int:
         for name, value in (("--interval", args.interval), ("--settle", args.settle)):
             if not value >= 0:
                 raise SettingsError(f"{name} must be zero or more seconds")
-        watcher = FolderWatcher(folder, settle_s=args.settle, include_existing=args.existing)
+        watcher = FolderWatcher(folder, settle_s=args.settle, include_existing=args.existing,
+                                clock=clock)
     except (SettingsError, argparse.ArgumentTypeError, OSError) as exc:
         print(f"flatsight watch: error: {exc}", file=sys.stderr)
         return 2
 
     log_path = log_path_from_args(args)
-    print(f"watching {folder} (logging to {log_path or 'nothing: --no-log'}); "
-          "ctrl+c to stop", flush=True)
     counts: Counter = Counter()
-    start = time.monotonic()
+    start = clock()
     why = "ctrl+c"
     try:
+        # announced inside the try: from the moment this line is out, ctrl+c ends the
+        # watch with its summary line
+        print(f"watching {printable(folder)} (logging to "
+              f"{printable(log_path) if log_path else 'nothing: --no-log'}); ctrl+c to stop",
+              flush=True)
         while True:
             for path in watcher.poll():
                 _handle(path, args, counts)
                 if args.max_files is not None and sum(counts.values()) >= args.max_files:
                     raise _Stop("--max-files reached")
-            if args.timeout is not None and time.monotonic() - start >= args.timeout:
+            if args.timeout is not None and clock() - start >= args.timeout:
                 raise _Stop("--timeout reached")
-            time.sleep(args.interval)
+            pause(args.interval)
     except KeyboardInterrupt:
         print(flush=True)
     except _Stop as stop:

@@ -23,7 +23,7 @@ from flatsight.tui.screens.bench import BenchScreen
 from flatsight.tui.screens.preset_screen import PresetScreen
 from flatsight.tui.station_log import StationRecorder
 from rich.console import Console
-from station_fakes import fake_backend, write_photos
+from station_fakes import fake_backend, settle, write_photos
 
 PARTS = ["BW-FL-0412.png", "BW-FL-0413.png"]
 
@@ -34,14 +34,6 @@ def sync(scenario):
         asyncio.run(scenario(*args, **kwargs))
 
     return test
-
-
-async def settle(pilot, rounds: int = 4):
-    # a measurement starts a record worker, which starts a log read: wait for the chain
-    for _ in range(rounds):
-        await pilot.pause()
-        await pilot.app.workers.wait_for_complete()
-    await pilot.pause()
 
 
 def make_app(tmp_path, *, names=PARTS, log=True, presets_file=None, preset=None, **options):

@@ -91,7 +91,10 @@ class AnalysisRunner:
         )
 
     def start_analysis(self, index: int) -> None:
-        """Measure photo ``index`` now, cancelling whatever is running."""
+        """Measure photo ``index`` now, cancelling whatever is running or waiting to run."""
+        if self._rerun_timer is not None:  # a re-run this one makes redundant
+            self._rerun_timer.stop()
+            self._rerun_timer = None
         if self._cancel is not None:
             self._cancel.set()
             for job in self._jobs.values():
