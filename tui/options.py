@@ -11,7 +11,9 @@ __all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle"
            "circle_type", "EXIT_CODES", "TOLERANCE_EXIT_CODES", "STATUS_SEVERITY", "worst_status",
            "parse_uncertainty", "uncertainty_type"]
 
-# Wavelengths in air of the usual test sources (common practice; references.md).
+# Wavelengths in air of the usual test sources: the mercury e, helium d and sodium D
+# lines as ISO 7944:1998 (Reference wavelengths) tabulates them, from memory; He-Ne
+# 632.8 nm is common practice.
 SPECTRAL_LINES = {
     "hene": 632.8,
     "sodium": 589.3,

@@ -114,8 +114,9 @@ def test_validation_names_what_to_change(change, words):
 
 
 def test_heights_in_waves_and_fringes():
-    # one fringe is half a wavelength of height; at He-Ne one fringe = 316.40 nm and
-    # lambda/10 = 63.28 nm (references.md, facts of the trade, common practice)
+    # one fringe is half a wavelength of height in reflection (double pass: D. Malacara,
+    # ed., Optical Shop Testing, 3rd ed., Wiley, 2007, ch. 1, from memory); at He-Ne one
+    # fringe = 316.40 nm and lambda/10 = 63.28 nm (arithmetic)
     assert convert(316.4, "fringes", 632.8) == pytest.approx(1.0)
     assert convert(63.28, "waves", 632.8) == pytest.approx(0.1)
     assert convert(273.035, "fringes", 546.07) == pytest.approx(1.0)

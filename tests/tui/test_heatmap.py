@@ -175,7 +175,8 @@ def test_unknown_mode_is_refused():
 
 # ---- legend -------------------------------------------------------------------------------
 def test_legend_values_in_nm_and_waves():
-    # lambda/10 at He-Ne 632.8 nm is 63.28 nm (references.md, common practice)
+    # lambda/10 at He-Ne 632.8 nm is 63.28 nm (arithmetic; lambda/10 is the trade's usual
+    # flatness grade, common practice)
     lines = legend_lines(-63.28, 63.28, wavelength_nm=632.8, n=5, mode="truecolor")
     text = [line.plain for line in lines]
     assert "+63.3 nm" in text[0] and "+0.100 λ" in text[0]

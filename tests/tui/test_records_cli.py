@@ -27,8 +27,10 @@ def photos(tmp_path_factory):
     good = folder / "BW-FL-0412.png"
     bad = folder / "BW-FL-0413.png"
     write_photo(make_fringe_photo(SyntheticSurface({4: 20.0}), shape=(360, 480), seed=1), good)
-    # spherical a11 = 60 nm: PV 3.354 x 60 = 201 nm > 150 nm (references.md: PV/RMS of
-    # spherical is 3.3541); the good photo, power only: 2 sqrt(3) x 20 = 69 nm, passes both
+    # spherical a11 = 60 nm: PV 3.354 x 60 = 201 nm > 150 nm (Noll's Z11 =
+    # sqrt(5)(6 rho^4 - 6 rho^2 + 1), Noll, JOSA 66(3), 207, 1976, spans 1.5 sqrt(5) over the
+    # disk); the good photo, power only: 2 sqrt(3) x 20 = 69 nm (Z4 = sqrt(3)(2 rho^2 - 1)
+    # spans 2 sqrt(3)), passes both
     write_photo(make_fringe_photo(SyntheticSurface({4: 10.0, 11: 60.0}), shape=(360, 480),
                                   seed=2), bad)
     return good, bad

@@ -69,8 +69,9 @@ def test_watch_measures_slowly_written_photos_and_survives_a_bad_one(tmp_path, c
     folder = tmp_path / "camera"
     folder.mkdir()
     log = tmp_path / "log.sqlite"
-    # power only (69 nm) passes "3/1(-), pvr<=150nm"; spherical a11 = 60 nm (PV 201 nm,
-    # references.md: spherical PV/RMS 3.3541) fails its PVr limit
+    # power only (69 nm) passes "3/1(-), pvr<=150nm"; spherical a11 = 60 nm (PV 201 nm:
+    # Noll's Z11 = sqrt(5)(6 rho^4 - 6 rho^2 + 1) spans 1.5 sqrt(5) = 3.354 over the disk,
+    # Noll, JOSA 66(3), 207, 1976) fails its PVr limit
     good_a = photo_bytes(tmp_path, "a.png", {4: 20.0}, 1)
     good_b = photo_bytes(tmp_path, "b.png", {4: 10.0, 11: 60.0}, 2)
     truncated = good_a[: len(good_a) // 2]  # a camera that died mid-write
@@ -123,7 +124,8 @@ def test_watch_measures_slowly_written_photos_and_survives_a_bad_one(tmp_path, c
     assert [(r["part"], r["verdict"], r["operator"]) for r in rows] == [
         ("BW-FL-0414", "fail", "Ruben Halloway"), ("BW-FL-0412", "pass", "Ruben Halloway")]
     # the logged figures are the engine's: power of a4 = 20 nm is -2 sqrt(3) a4 = -69.3 nm
-    # (analysis/figures.py sign convention, references.md), within the FFT method's error
+    # (Noll's Z4 = sqrt(3)(2 rho^2 - 1), Noll 1976: the centre stands 2 sqrt(3) a4 below
+    # the rim; analysis/figures.py's sign), within the FFT method's error
     assert rows[1]["power_nm"] == pytest.approx(-2 * np.sqrt(3) * 20.0, abs=5.0)
 
 
