@@ -168,3 +168,14 @@ def test_no_option_and_no_preset_means_simple_and_zero():
     assert record_options.decision_from_args(args) == "simple"
     assert record_options.uncertainty_settings(args) == {
         "wavelength_uncertainty_nm": 0.0, "reference_uncertainty_nm": 0.0}
+
+
+def test_the_readme_exit_table_says_the_same():
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    table = readme.split("### Exit status", 1)[1].split("\n## ", 1)[0]
+    statuses = {int(line.split("|")[1]) for line in table.splitlines()
+                if line.startswith("| ") and line.split("|")[1].strip().isdigit()}
+    assert statuses == set(STATUS_SEVERITY)
+    assert "130, 4, 3, 2, 1, 5, 0" in table
