@@ -214,13 +214,24 @@ def _line(record: dict, path: Path) -> str:
     def nm(key: str) -> str:
         return f"{format_number(record.get(key)):>7}"
 
-    verdict = (record.get("spec") or {}).get("verdict")
-    word = VERDICT_WORDS.get(verdict, "—")
+    spec = record.get("spec") or {}
+    word = VERDICT_WORDS.get(spec.get("verdict"), "—")
     rid = record.get("record_id")
     part = printable(record.get("part") or path.stem)
     return (f"{_stamp()}  {part:<16} PV {nm('pv_nm')} nm  "
             f"PVr {nm('pvr_nm')} nm  power {nm('power_nm')} nm  {word:<4}"
-            + (f"  #{rid}" if rid is not None else ""))
+            + _deciding_limit(spec) + (f"  #{rid}" if rid is not None else ""))
+
+
+def _deciding_limit(spec: dict) -> str:
+    """`` (B margin -7.6 nm, U 29.0 nm)``: the first limit that did not pass, if any."""
+    for lim in spec.get("limits", []):
+        if lim.get("verdict") not in (None, "pass"):
+            u = lim.get("uncertainty_nm")
+            return (f" ({printable(lim.get('name'))} margin "
+                    f"{format_number(lim.get('margin_nm'), sign=True)} nm"
+                    + (f", U {format_number(u)} nm" if u is not None else "") + ")")
+    return ""
 
 
 def _handle(path: Path, args: argparse.Namespace, counts: Counter) -> None:

@@ -329,6 +329,13 @@ class Reporter:
             self.console.print(t)
         if any(_u(r, "pv_nm") is not None for r in self._rows):
             self.console.print(Text(BATCH_U_NOTE, style="dim"))
+        for r in self._rows:  # what decided each verdict that is not a pass
+            spec = r.get("spec") or {}
+            if spec.get("verdict") in ("fail", "inconclusive"):
+                name = printable(Path(r["photo"]).name)
+                for line, lim in zip(limit_lines(spec), spec.get("limits", []), strict=True):
+                    if lim.get("verdict") != "pass":
+                        self.console.print(Text(f"{name}: ") + line)
         for r in self._rows:
             for w in r.get("warnings", []):
                 self.console.print(Text.assemble(

@@ -84,6 +84,10 @@ def test_batch_table_fits_and_never_cuts_a_number(record, width):
                    f"±{record['uncertainty']['rms_nm']:.1f}"):
         assert number in out, number
     assert ("PVr" in out and "waves" in out) == (width >= 100)  # the extra column when wide
+    # below the table, what decided each verdict that is not a pass: limit and margin
+    flat = " ".join(out.split())
+    assert ("BW-FL-0412_mercury.jpg: PV: INCONCLUSIVE 1234.5 ± 123.4 nm ≤ 1250.0 nm, "
+            "margin +15.5 nm") in flat
 
 
 def test_a_narrow_terminal_gets_blocks_not_cut_numbers(record):
@@ -113,3 +117,15 @@ def test_names_are_printed_literally(record):
         assert "[bold]BW-FL[red]\\x1b[2J.png" in out
         assert "\x1b" not in out
     assert "[red]BW-FL-0412" in printed([r], width=100, detail=True)
+
+
+def test_a_watch_line_names_the_limit_that_decided(record):
+    from pathlib import Path
+
+    from flatsight.tui.cmd_watch import _line
+
+    r = dict(record, part="BW-FL-0412", uncertainty={**record["uncertainty"], "pv_nm": 5.0})
+    limit = round(r["pv_nm"] + 2.0, 1)  # within U = 5 nm: inconclusive (guarded)
+    line = _line(judged(r, f"pv<={limit}nm", "guarded"), Path("BW-FL-0412.png"))
+    assert line.endswith("INCONCLUSIVE (pv margin +2.0 nm, U 5.0 nm)")
+    assert _line(judged(r, "pv<=10000nm", "guarded"), Path("x.png")).rstrip().endswith("PASS")
