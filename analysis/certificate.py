@@ -395,10 +395,10 @@ def _uncertainty_html(record: Mapping) -> str:
                 "stated them), so no U is given.</p>")
     k = budget.get("coverage_factor", 2)
     parts = [f"Each U is an expanded uncertainty with coverage factor k = {_e(k)} "
-             "(JCGM 100:2008, the GUM), for a level of confidence of about 95 %: the "
-             "standard uncertainties below combined in quadrature and multiplied by k."]
+             "(JCGM 100:2008, the GUM), for a level of confidence of about 95 %: standard "
+             "uncertainties combined in quadrature and multiplied by k."]
     if budget.get("basis"):
-        parts.append(f"The budget: {_e(budget['basis'])}.")
+        parts.append(f"What it contains: {_e(budget['basis'])}.")
     stated = [f"map noise {_fmt(budget.get('map_noise_nm'), 2)} nm RMS"]
     wl_u = budget.get("wavelength_uncertainty_nm")
     stated.append(f"wavelength standard uncertainty {_fmt(wl_u, 3)} nm" if wl_u else
@@ -412,7 +412,7 @@ def _uncertainty_html(record: Mapping) -> str:
         stated.append(f"{_e(photos)} photos averaged (noise and method parts divided by "
                       f"√{_e(photos)})")
     parts.append("For this measurement: " + "; ".join(stated) + ".")
-    return f"<p>{' '.join(parts)}</p>"
+    return f"<p class=\"small\">{' '.join(parts)}</p>"
 
 
 def _method_items(record: Mapping) -> str:
@@ -443,7 +443,7 @@ def _method_items(record: Mapping) -> str:
     note = ("" if recorded else
             "<p class=\"small\">The record does not name its figure method; this is the "
             "method of the Flatsight that wrote the certificate.</p>")
-    return (f"<p>{plain(intro)}</p><ul class=\"method\">"
+    return (f"<p class=\"small\">{plain(intro)}</p><ul class=\"method small\">"
             + "".join(f"<li>{plain(item)}</li>" for item in items) + "</ul>" + note)
 
 
@@ -536,10 +536,9 @@ removed; positive is a high point on the part. {_e(map_source)}</figcaption>
 <h2>Figures</h2>
 {_figures_table(record)}
 {"<h2>Tolerance</h2>" + _spec_table(spec) if spec else ""}
-{"<section class='keep'><h2>Decision rule</h2>" + _decision_html(spec) + "</section>"
- if spec else ""}
 <section class="keep">
-<h2>Uncertainty</h2>
+<h2>{"Decision rule and uncertainty" if spec else "Uncertainty"}</h2>
+{_decision_html(spec) if spec else ""}
 {_uncertainty_html(record)}
 </section>
 {warn_html}
@@ -566,10 +565,8 @@ phase × wavelength / 4π. A {n_terms}-term Zernike fit in Noll's ordering and n
 Evans (Opt. Eng. 48, 043605, 2009). Tolerances are written in ISO 10110-5 notation.</p>
 <p class="small">Settings: {settings_html or '—'}</p>
 </section>
-<section class="keep">
 <h2>How the figures are taken</h2>
 {_method_items(record)}
-</section>
 
 </body>
 </html>
