@@ -70,8 +70,10 @@ _OUTER_SHARE = 0.05  # and this share of R outside (short of the mount, usually)
 _TRIAL_REACH = 2.5  # binned px either side of the pass-1 circle where the edge is sought
 # Penalty weights (per sample in the window) of the edge model's amplitudes: outer level
 # and slope, inner level and slope, fringe cos and sin (toward the amplitude measured
-# inside) and second harmonic. Tuned on synthetic.random_photo: stronger fringe weights
-# bias the rim where the surface bends the fringes, weaker ones let the model drift.
+# inside) and second harmonic. Stronger fringe weights bias the rim where the surface
+# bends the fringes, weaker ones let the model drift. Checked on the independent
+# reference set (benchmarks/refset_accuracy.py: linear, Gaussian, rolled and hard edges,
+# centre and radius found within 0.5 % of the radius on 60 photos).
 _PENALTY = (1e-6, 0.05, 1e-6, 0.05, 0.03, 0.03, 0.05)
 
 

@@ -25,6 +25,10 @@ measured pixels stands in.
   (measured from its fine-scale roughness) taken out of that RMS in quadrature.
 * **Power** is the sag of the best-fit sphere from edge to centre, ``-2 sqrt(3) a4``,
   positive when the centre stands high; **astigmatism** the PV of Noll 5 and 6.
+* **Noise bias.** What noise the filtered map still carries can only raise a PV or an
+  RMS. The uncertainty module measures by how much (Monte Carlo at two added noise
+  levels) and takes it out by simulation-extrapolation (SIMEX, Cook & Stefanski 1994);
+  the amount removed is recorded with each figure.
 
 References
 ----------
@@ -109,6 +113,8 @@ class Figures:
         Figure name -> expanded uncertainty U (k = 2), nm (see ``uncertainty``).
     uncertainty_budget : dict
         Figure name -> the standard uncertainty of each part, nm.
+    noise_bias_removed_nm : dict
+        Figure name -> how much the map's noise had inflated it, taken out (SIMEX).
     """
 
     pv_nm: float
@@ -128,6 +134,7 @@ class Figures:
     noise_nm: float = 0.0
     uncertainty_nm: dict = field(default_factory=dict)
     uncertainty_budget: dict = field(default_factory=dict)
+    noise_bias_removed_nm: dict = field(default_factory=dict)
 
 
 def to_waves(height_nm: float, wavelength_nm: float) -> float:
@@ -443,7 +450,7 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
     photos : int
         How many photos were averaged into the map.
     """
-    from .uncertainty import expanded_uncertainty
+    from .uncertainty import expanded_uncertainty, noise_effects
 
     prepared = MapFigures.of(height_nm, valid, xu, yu, resolution_px=resolution_px,
                              n_terms=max(FIGURE_TERMS, fit.n_terms))
@@ -456,9 +463,14 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
         if inner.sum() > 50:
             ref = float(np.median(sig[inner])) or 1.0
             scale = np.clip(np.nan_to_num(sig / ref, nan=1.0, posinf=5.0), 1.0, 5.0)
+    spread, corrected = noise_effects(prepared, figures, removed=figures.removed_terms,
+                                      noise_scale=scale, wavelength_nm=wavelength_nm)
+    corrections = {name: getattr(figures, name) - value for name, value in corrected.items()}
+    figures = replace(figures, **corrected)
     uncertainty, budget = expanded_uncertainty(
-        prepared, figures, removed=figures.removed_terms,
-        report_coefficients=np.asarray(fit.coefficients_nm, float), noise_scale=scale,
-        wavelength_nm=wavelength_nm, wavelength_uncertainty_nm=wavelength_uncertainty_nm,
-        reference_uncertainty_nm=reference_uncertainty_nm, photos=photos)
-    return replace(figures, uncertainty_nm=uncertainty, uncertainty_budget=budget)
+        figures, spread=spread, noise_nm=prepared.noise_nm, wavelength_nm=wavelength_nm,
+        wavelength_uncertainty_nm=wavelength_uncertainty_nm,
+        reference_uncertainty_nm=reference_uncertainty_nm, photos=photos,
+        corrections=corrections)
+    return replace(figures, uncertainty_nm=uncertainty, uncertainty_budget=budget,
+                   noise_bias_removed_nm=corrections)

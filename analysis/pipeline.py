@@ -386,6 +386,14 @@ def measurement_from_height(
         warnings += (f"{100 * inner_masked:.0f} % of the aperture is masked (specks, "
                      "scratches, exclusions or low contrast): clean the flats or check the "
                      "aperture",)
+    noisy = [name for name, removed in figures.noise_bias_removed_nm.items()
+             if name in ("pv_nm", "pvr_nm", "irregularity_nm")
+             and removed > 0.1 * (getattr(figures, name) + removed) and removed > 2.0]
+    if noisy:
+        labels = {"pv_nm": "PV", "pvr_nm": "PVr", "irregularity_nm": "irregularity"}
+        warnings += ("the map's noise inflated " + ", ".join(labels[n] for n in noisy)
+                     + " by more than 10 % (taken out, and counted in U): improve the "
+                     "fringe contrast, or average several photos",)
     if spectrum is None:
         spectrum = Spectrum(np.zeros((1, 1), np.float32), (0.0, 0.0), 0.0, 0.0)
     return Measurement(

@@ -33,7 +33,9 @@ FIGURES_METHOD = (
     "measured departures from it smoothed at the method's resolution); C from the mean "
     "around each circle less its best a + b rho^2; RMS over the filtered map; PVr after "
     "Evans 2009 with the 36-term Fringe set and the map's noise taken out of its residual; "
-    "pv_raw_nm is the PV of the unfiltered map")
+    "the bias the map's noise adds to PV, B, C, PVr and the RMS figures removed by "
+    "simulation-extrapolation (Cook & Stefanski 1994); pv_raw_nm is the PV of the "
+    "unfiltered map")
 
 
 def _num(value: float | None, digits: int = 4) -> float | None:
@@ -143,6 +145,8 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
         "standard_uncertainties_nm": {
             name: {part: _num(v, 4) for part, v in parts.items()}
             for name, parts in f.uncertainty_budget.items()},
+        "noise_bias_removed_nm": {name: _num(v, 4)
+                                  for name, v in f.noise_bias_removed_nm.items()},
     }
     rec["figures_method"] = FIGURES_METHOD
     rec["sign_convention"] = SIGN_CONVENTION

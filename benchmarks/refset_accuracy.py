@@ -27,7 +27,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from tests.refset.cases import named_case, NAMED_CASES, random_case  # noqa: E402
+from tests.refset.cases import NAMED_CASES, named_case, random_case  # noqa: E402
 from tests.refset.score import FIGURES, score  # noqa: E402
 
 
@@ -61,7 +61,7 @@ def _measure(job):
 
     info = _case(key, Path(cache), megapixels)
     try:
-        m = measure(info["path"], MeasureSettings(wavelength_nm=info["wavelength_nm"], n_terms=int(os.environ.get("TERMS", 36))))
+        m = measure(info["path"], MeasureSettings(wavelength_nm=info["wavelength_nm"]))
     except FlatsightError as exc:
         return key, info, None, str(exc)
     rec = measurement_to_record(m)

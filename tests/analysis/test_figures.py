@@ -245,3 +245,16 @@ def test_averaging_shrinks_the_photo_to_photo_parts():
     for name in ("pv_nm", "irregularity_nm", "power_nm"):
         assert four.uncertainty_nm[name] == pytest.approx(one.uncertainty_nm[name] / 2,
                                                           rel=1e-9)
+
+
+@pytest.mark.parametrize("j_beyond", [56, 60, 66])
+def test_rms_counts_what_lies_beyond_the_fitted_terms(j_beyond):
+    # Noll terms are orthonormal over the disk (Noll, JOSA 66, 207, 1976): the RMS of a
+    # sum is the root-sum-square of the coefficients, so a term beyond the 45-term fit
+    # (n 10 and 11) must still count in RMSt, RMSi and RMSa. The terms come from the
+    # reference set's own Zernike code (tests/refset/surface.py, checked against aotools).
+    f = figures_of({4: 12.0, 6: 5.0, j_beyond: 6.0}, 401)
+    assert f.rms_nm == pytest.approx(math.sqrt(12.0**2 + 5.0**2 + 6.0**2), rel=0.02)
+    assert f.rms_irregularity_nm == pytest.approx(math.sqrt(5.0**2 + 6.0**2), rel=0.02)
+    expected_a = 5.0 if j_beyond == 56 else math.sqrt(5.0**2 + 6.0**2)  # Z56 is m = 0
+    assert f.rms_asymmetric_nm == pytest.approx(expected_a, rel=0.03)

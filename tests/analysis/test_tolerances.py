@@ -271,3 +271,26 @@ def test_spec_section_is_json_ready():
     assert by_name["pv"]["verdict"] == "fail"
     assert by_name["pv"]["margin_nm"] == pytest.approx(63.28 - 70.0)
     assert math.isclose(by_name["B"]["limit_nm"], 0.5 * FRINGE_546, rel_tol=1e-6)
+
+
+@pytest.mark.parametrize("text", ["3/1(0.25)", "3/-(0.1/0.05)", "3/0.5(-)", "3/-(-) RMSi<0.02",
+                                  "3/-(-) RMSa<0.01", "pv<=40nm, pvr<=0.1w, rms<=10nm"])
+def test_every_limit_form_passes_at_its_limit_and_fails_just_beyond(text):
+    # a tolerance is a maximum permissible value: a figure equal to it conforms under the
+    # simple rule (ISO 14253-1's specification zone includes its limit, from memory)
+    tol = parse_tolerance(text)
+    zero = {k: 0.0 for k in ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm",
+                             "symmetric_irregularity_nm", "rms_irregularity_nm",
+                             "rms_asymmetric_nm", "astigmatism_nm")}
+    limits = evaluate(tol, record(**zero)).results
+    assert limits
+    at = record(**zero)
+    for r in limits:
+        at[r.limit.figure] = r.limit_nm
+    assert evaluate(tol, at).verdict == "pass"
+    for r in limits:
+        beyond = dict(at)
+        beyond[r.limit.figure] = r.limit_nm * (1 + 1e-9) + 1e-9
+        judged = evaluate(tol, beyond)
+        assert judged.verdict == "fail", r.limit.figure
+        assert [x.verdict for x in judged.results].count("fail") == 1
