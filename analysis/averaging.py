@@ -5,7 +5,8 @@ coordinates (x right, y up, divided by the radius: the Zernike coordinates), so 
 taken at different positions or magnifications line up. The averaged map sits on the
 first photo's aperture. The spread between photos is the repeatability a certificate
 can quote; the standard error of the mean falls as ``1 / sqrt(N)`` for independent
-errors such as air turbulence (references.md, "Facts of the trade": common practice).
+errors such as air turbulence (the experimental standard deviation of the mean, JCGM
+100:2008, 4.2.3, from memory).
 """
 
 from __future__ import annotations

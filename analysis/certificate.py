@@ -23,12 +23,13 @@ import base64
 import html
 import io
 import json
-import math
+import re
 from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
 
+from .formatting import finite_number, format_number
 from .version import flatsight_version
 from .zernike import noll_to_nm, osa_to_noll, term_name, zernike_basis
 
@@ -36,6 +37,7 @@ __all__ = [
     "MAP_PAD_PX",
     "MAP_SIZE_PX",
     "VERDICT_RGB",
+    "VERDICT_WORDS",
     "certificate_html",
     "map_colours",
     "map_grid",
@@ -47,7 +49,17 @@ __all__ = [
 MAP_SIZE_PX = 360
 MAP_PAD_PX = 12
 BAR_WIDTH_PX = 22
-VERDICT_RGB = {"pass": (27, 122, 61), "fail": (179, 38, 30), None: (95, 99, 104)}
+VERDICT_RGB = {"pass": (27, 122, 61), "fail": (179, 38, 30), "inconclusive": (138, 90, 0),
+               None: (95, 99, 104)}
+VERDICT_WORDS = {"pass": "PASS", "fail": "FAIL", "inconclusive": "INCONCLUSIVE",
+                 None: "NO TOLERANCE"}
+# what each verdict means, in the words of the decision rules (ISO 14253-1; ILAC G8)
+VERDICT_MEANING = {
+    "pass": "every limit is met",
+    "fail": "a limit is not met",
+    "inconclusive": "no limit is proven broken, but at least one figure lies within its "
+                    "expanded uncertainty of its limit, so conformity is not proven either",
+}
 _FIGURE_ROWS = [
     ("pv_nm", "PV", "peak to valley, piston and tilt removed"),
     ("rms_nm", "RMS", "piston and tilt removed (ISO 10110-5 RMSt)"),
@@ -192,7 +204,7 @@ def map_png(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> bytes:
         value = span * (1 - 2 * frac)
         y = pad + round(frac * (size_px - 1))
         draw.line((bar_x + bar, y, bar_x + bar + 4, y), fill=(40, 40, 40))
-        draw.text((bar_x + bar + 7, y), f"{value:+.1f} nm" if value else "0 nm",
+        draw.text((bar_x + bar + 7, y), f"{format_number(value, 1, sign=True)} nm",
                   fill=(20, 20, 20), font=font, anchor="lm")
     info = PngInfo()  # the PNG's own Software field, read by image viewers and exiftool
     info.add_text("Software", software(record))
@@ -206,15 +218,12 @@ def _e(value) -> str:
 
 
 def _fmt(value, digits: int) -> str:
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return "—"
-    return f"{x:.{digits}f}" if math.isfinite(x) else "—"
+    return format_number(value, digits)
 
 
 _CSS = """
-:root { --pass: rgb(27,122,61); --fail: rgb(179,38,30); --none: rgb(95,99,104); }
+:root { --pass: rgb(27,122,61); --fail: rgb(179,38,30); --inconclusive: rgb(138,90,0);
+        --none: rgb(95,99,104); }
 * { box-sizing: border-box; }
 html { background: #fff; }
 body { font: 9.5pt/1.35 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; color: #16181b;
@@ -236,6 +245,7 @@ td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; }
 .verdict .word { font-size: 22pt; font-weight: 700; letter-spacing: 0.08em; }
 .verdict.pass { background: var(--pass); }
 .verdict.fail { background: var(--fail); }
+.verdict.inconclusive { background: var(--inconclusive); }
 .verdict.none { background: var(--none); }
 .top { display: flex; gap: 5mm; align-items: flex-start; break-inside: avoid; }
 .top figure { margin: 0; flex: 0 0 86mm; }
@@ -249,6 +259,9 @@ figcaption { font-size: 8.5pt; color: #444; margin-top: 1mm; }
 .pair table { font-size: 8pt; }
 td.pass { color: var(--pass); font-weight: 700; }
 td.fail { color: var(--fail); font-weight: 700; }
+td.inconclusive { color: var(--inconclusive); font-weight: 700; }
+ul.method { margin: 1mm 0; padding-left: 5mm; }
+ul.method li { margin: 0.6mm 0; }
 .sign { display: flex; gap: 10mm; margin-top: 8mm; break-inside: avoid; }
 .sign div { flex: 1; border-top: 0.3mm solid #333; padding-top: 1mm; font-size: 8.5pt; }
 .small { font-size: 8.5pt; color: #333; }
@@ -304,22 +317,26 @@ def _facts(record: Mapping) -> str:
 
 
 def _figures_table(record: Mapping) -> str:
-    lam = record.get("wavelength_nm")
+    lam = finite_number(record.get("wavelength_nm"))
+    uncertainty = record.get("uncertainty") or {}
     rows = []
     for key, label, meaning in _FIGURE_ROWS:
-        nm = record.get(key)
-        waves = float(nm) / float(lam) if nm is not None and lam else None
+        nm = finite_number(record.get(key))
+        waves = nm / lam if nm is not None and lam else None
         fringes = 2 * waves if waves is not None else None
+        u = finite_number(uncertainty.get(key))
+        u_text = "—" if u is None else f"± {_fmt(u, 1)}"
         rows.append(f"<tr><td>{_e(label)}</td><td class=\"num\">{_fmt(nm, 1)}</td>"
-                    f"<td class=\"num\">{_fmt(waves, 4)}</td>"
+                    f"<td class=\"num\">{u_text}</td><td class=\"num\">{_fmt(waves, 4)}</td>"
                     f"<td class=\"num\">{_fmt(fringes, 3)}</td>"
                     f"<td class=\"small\">{_e(meaning)}</td></tr>")
     roc = record.get("radius_of_curvature_m")
     if roc is not None:
-        rows.append(f"<tr><td>radius of curvature</td><td class=\"num\" colspan=\"3\">"
+        rows.append(f"<tr><td>radius of curvature</td><td class=\"num\" colspan=\"4\">"
                     f"{_fmt(roc, 1)} m</td><td class=\"small\">of the best-fit sphere, "
                     "signed like the power</td></tr>")
     return ("<table><thead><tr><th>figure</th><th class=\"num\">nm</th>"
+            "<th class=\"num\">U (k = 2), nm</th>"
             f"<th class=\"num\">waves at {_fmt(lam, 2)} nm</th><th class=\"num\">fringes</th>"
             "<th>meaning</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
 
@@ -333,17 +350,101 @@ def _spec_table(spec: Mapping) -> str:
         value = "|measured|" if lim.get("compared") == "magnitude" else "measured"
         name, label = lim.get("name"), lim.get("label")
         title = label if name == label or not name else f"{name}: {label}"
+        u = finite_number(lim.get("uncertainty_nm"))
+        verdict = lim.get("verdict")
         rows.append(
             f"<tr><td>{_e(title)}</td>"
             f"<td class=\"num\">≤ {_e(lim.get('limit'))} {_e(unit)}{_e(unit_note)}<br>"
             f"<span class=\"small\">= {_fmt(lim.get('limit_nm'), 1)} nm</span></td>"
             f"<td class=\"num\">{_fmt(lim.get('measured_nm'), 1)} nm<br><span class=\"small\">"
-            f"{_e(value)}</span></td><td class=\"num\">{_fmt(lim.get('margin_nm'), 1)} nm</td>"
-            f"<td class=\"{_e(lim.get('verdict'))}\">{_e(str(lim.get('verdict')).upper())}</td>"
+            f"{_e(value)}</span></td>"
+            f"<td class=\"num\">{'± ' + _fmt(u, 1) + ' nm' if u is not None else '—'}</td>"
+            f"<td class=\"num\">{format_number(lim.get('margin_nm'), 1, sign=True)} nm</td>"
+            f"<td class=\"{_e(verdict)}\">{_e(VERDICT_WORDS.get(verdict, verdict))}</td>"
             "</tr>")
     return ("<table><thead><tr><th>limit</th><th class=\"num\">tolerance</th>"
-            "<th class=\"num\">measured</th><th class=\"num\">margin</th><th>verdict</th>"
+            "<th class=\"num\">measured</th><th class=\"num\">U (k = 2)</th>"
+            "<th class=\"num\">margin</th><th>verdict</th>"
             "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+
+
+def _decision_html(spec: Mapping) -> str:
+    """The decision rule in words, and what the verdict means under it."""
+    rule = spec.get("decision_rule") or "simple"
+    text = spec.get("decision_rule_text")
+    if not text:  # a record judged before decision rules were recorded: the simple rule
+        text = ("simple acceptance: a limit passes when the measured value is within it "
+                "(decision rule not recorded with this measurement)")
+    verdict = spec.get("verdict")
+    out = [f"<p>Verdicts are given under the <b>{_e(rule)}</b> decision rule: {_e(text)}.</p>"]
+    if verdict in VERDICT_MEANING:
+        out.append(f"<p>{_e(VERDICT_WORDS[verdict])}: {_e(VERDICT_MEANING[verdict])}.</p>")
+    if rule == "simple":
+        out.append("<p class=\"small\">Under simple acceptance a value close to its limit "
+                   "passes or fails on the measured value alone, with the risk that the "
+                   "true value lies on the other side of the limit; the margin and U above "
+                   "show how close each figure came.</p>")
+    return "".join(out)
+
+
+def _uncertainty_html(record: Mapping) -> str:
+    """What the expanded uncertainties contain, from the record's own budget."""
+    budget = record.get("uncertainty_budget") or {}
+    if not record.get("uncertainty") or not budget:
+        return ("<p>This record carries no uncertainties (it was measured before Flatsight "
+                "stated them), so no U is given.</p>")
+    k = budget.get("coverage_factor", 2)
+    parts = [f"Each U is an expanded uncertainty with coverage factor k = {_e(k)} "
+             "(JCGM 100:2008, the GUM), for a level of confidence of about 95 %: standard "
+             "uncertainties combined in quadrature and multiplied by k."]
+    if budget.get("basis"):
+        parts.append(f"What it contains: {_e(budget['basis'])}.")
+    stated = [f"map noise {_fmt(budget.get('map_noise_nm'), 2)} nm RMS"]
+    wl_u = budget.get("wavelength_uncertainty_nm")
+    stated.append(f"wavelength standard uncertainty {_fmt(wl_u, 3)} nm" if wl_u else
+                  "wavelength uncertainty taken as 0 (a spectral line is known far better "
+                  "than a photo measures)")
+    stated.append(f"reference flat {_fmt(budget.get('reference_uncertainty_nm'), 1)} nm (k = 2)"
+                  if budget.get("reference_uncertainty_nm") else
+                  "reference flat uncertainty not stated (taken as 0)")
+    photos = budget.get("photos") or 1
+    if photos > 1:
+        stated.append(f"{_e(photos)} photos averaged (noise and method parts divided by "
+                      f"√{_e(photos)})")
+    parts.append("For this measurement: " + "; ".join(stated) + ".")
+    return f"<p class=\"small\">{' '.join(parts)}</p>"
+
+
+def _method_items(record: Mapping) -> str:
+    """How the figures were taken: the method the record names, in words."""
+    from . import figures
+    from .record import FIGURES_METHOD
+
+    recorded = record.get("figures_method")
+    if recorded and recorded != FIGURES_METHOD:
+        return f"<p>{_e(recorded)}</p>"  # measured by another version: its own words
+    doc = figures.__doc__ or ""
+    section = doc.split("How the figures are taken", 1)[-1].split("References", 1)[0]
+    paragraphs: list[str] = []
+    for line in section.splitlines()[1:]:  # the heading's own line holds only its aside
+        text = line.strip()
+        if not text or set(text) <= {"-"}:
+            continue
+        if text.startswith("* ") or not paragraphs:
+            paragraphs.append(text.removeprefix("* "))
+        else:
+            paragraphs[-1] += " " + text
+    intro, items = paragraphs[0], paragraphs[1:]
+
+    def plain(text: str) -> str:  # the docstring's reStructuredText marks, dropped
+        text = text.replace("``", "").replace("**", "")
+        return _e(re.sub(r"\*([^*]+)\*", r"\1", text))
+
+    note = ("" if recorded else
+            "<p class=\"small\">The record does not name its figure method; this is the "
+            "method of the Flatsight that wrote the certificate.</p>")
+    return (f"<p class=\"small\">{plain(intro)}</p><ul class=\"method small\">"
+            + "".join(f"<li>{plain(item)}</li>" for item in items) + "</ul>" + note)
 
 
 def _zernike_tables(record: Mapping) -> str:
@@ -389,10 +490,12 @@ def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None) -> 
     png = map_png_bytes if map_png_bytes is not None else map_png(record)
     _, map_source = surface_map(record, size_px=8)
     spec = record.get("spec") or {}
-    verdict = spec.get("verdict") if spec.get("verdict") in ("pass", "fail") else None
-    word = {"pass": "PASS", "fail": "FAIL", None: "NO TOLERANCE"}[verdict]
+    verdict = spec.get("verdict") if spec.get("verdict") in VERDICT_MEANING else None
+    word = VERDICT_WORDS[verdict]
+    rule = spec.get("decision_rule") or "simple"
     against = (f"against {_e(spec.get('tolerance'))} (ISO 10110-5 notation as Flatsight reads "
-               f"it; fringes at {_fmt(spec.get('spec_wavelength_nm'), 2)} nm)"
+               f"it; fringes at {_fmt(spec.get('spec_wavelength_nm'), 2)} nm) under the "
+               f"{_e(rule)} decision rule"
                if spec else "no tolerance was given, so no pass or fail is stated")
     warnings = record.get("warnings") or []
     settings = record.get("settings") or {}
@@ -433,6 +536,11 @@ removed; positive is a high point on the part. {_e(map_source)}</figcaption>
 <h2>Figures</h2>
 {_figures_table(record)}
 {"<h2>Tolerance</h2>" + _spec_table(spec) if spec else ""}
+<section class="keep">
+<h2>{"Decision rule and uncertainty" if spec else "Uncertainty"}</h2>
+{_decision_html(spec) if spec else ""}
+{_uncertainty_html(record)}
+</section>
 {warn_html}
 <section class="keep">
 <h2>What this measurement covers</h2>
@@ -457,6 +565,8 @@ phase × wavelength / 4π. A {n_terms}-term Zernike fit in Noll's ordering and n
 Evans (Opt. Eng. 48, 043605, 2009). Tolerances are written in ISO 10110-5 notation.</p>
 <p class="small">Settings: {settings_html or '—'}</p>
 </section>
+<h2>How the figures are taken</h2>
+{_method_items(record)}
 
 </body>
 </html>

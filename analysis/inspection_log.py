@@ -27,6 +27,7 @@ from functools import partial
 from pathlib import Path
 
 from .errors import InspectionLogError, SettingsError
+from .formatting import finite_number
 
 __all__ = [
     "FIGURE_COLUMNS",
@@ -332,14 +333,6 @@ def _migrate(con: sqlite3.Connection, log_path: Path) -> None:
         raise
 
 
-def _number(value) -> float | None:
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        return None
-    return x if math.isfinite(x) else None
-
-
 def _json(value) -> str:
     # NaN is not JSON; a figure that could not be measured is stored as null
     return json.dumps(_finite(value), allow_nan=False, default=_plain)
@@ -395,8 +388,8 @@ def record_measurement(
         "logged_utc": logged_utc or utc_now(),
         "part": part, "operator": operator, "station": station,
         "photo": record.get("photo"), "photo_sha256": record.get("photo_sha256"),
-        "wavelength_nm": _number(record.get("wavelength_nm")),
-        **{c: _number(record.get(c)) for c in FIGURE_COLUMNS},
+        "wavelength_nm": finite_number(record.get("wavelength_nm")),
+        **{c: finite_number(record.get(c)) for c in FIGURE_COLUMNS},
         "zernike_json": _json(record.get("zernike")),
         "settings_json": _json(record.get("settings")),
         "spec_text": spec.get("tolerance"), "verdict": spec.get("verdict"),
@@ -456,7 +449,7 @@ def query(
         Only this part.
     since : str, optional
         Only records logged at or after this ISO 8601 date or time (UTC when no zone).
-    verdict : {"pass", "fail"}, optional
+    verdict : {"pass", "fail", "inconclusive"}, optional
         Only records with this verdict (records without a tolerance have none).
     limit : int, optional
         At most this many.
@@ -467,8 +460,8 @@ def query(
         The ``measure --json`` fields plus ``record_id``, ``logged_utc``, ``part``,
         ``operator``, ``station`` and ``verdict``.
     """
-    if verdict not in (None, "pass", "fail"):
-        raise SettingsError(f"--verdict {verdict!r}: choose pass or fail")
+    if verdict not in (None, "pass", "fail", "inconclusive"):
+        raise SettingsError(f"--verdict {verdict!r}: choose pass, fail or inconclusive")
     where, params = [], []
     if part is not None:
         where.append("part = ?")

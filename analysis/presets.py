@@ -1,4 +1,4 @@
-"""Station presets: named sets of wavelength, diameter, tolerance and people, read from TOML.
+"""Station presets from TOML: named sets of wavelength, tolerance, decision rule, people...
 
 The file holds one table per preset under ``presets``::
 
@@ -10,6 +10,9 @@ The file holds one table per preset under ``presets``::
     zernike_terms = 36
     operator = "Tamsin Ode"
     station = "bench-2"
+    decision = "guarded"             # or "simple" (ISO 14253-1; see tolerances.py)
+    wavelength_uncertainty_nm = 0.0  # standard uncertainty of the wavelength (k = 1)
+    reference_uncertainty_nm = 6.0   # the reference flat's own, expanded (k = 2)
 
 Every key is optional; an unknown key is an error (a misspelt key would otherwise be
 silently ignored and the part measured with the wrong settings).
@@ -31,7 +34,7 @@ from dataclasses import dataclass, fields
 from pathlib import Path
 
 from .errors import SettingsError
-from .tolerances import parse_tolerance
+from .tolerances import DECISION_RULES, parse_tolerance
 
 __all__ = ["Preset", "PresetsFile", "default_presets_path", "get_preset", "load_presets",
            "load_presets_file", "preset_for_photo"]
@@ -49,6 +52,9 @@ class Preset:
     zernike_terms: int | None = None
     operator: str | None = None
     station: str | None = None
+    decision: str | None = None
+    wavelength_uncertainty_nm: float | None = None
+    reference_uncertainty_nm: float | None = None
 
 
 _KEYS = tuple(f.name for f in fields(Preset) if f.name != "name")
@@ -96,9 +102,16 @@ def _preset(path: Path, name: str, table) -> Preset:
             raise SettingsError(
                 f"{path}: preset {name!r}: zernike_terms must be a whole number from 15 to 231")
         values["zernike_terms"] = terms
-    for key in ("tolerance", "operator", "station"):
+    for key in ("wavelength_uncertainty_nm", "reference_uncertainty_nm"):
+        if key in table:
+            values[key] = _positive(path, name, key, table[key], 0.0, 1000.0)
+    for key in ("tolerance", "operator", "station", "decision"):
         if key in table:
             values[key] = _text(path, name, key, table[key])
+    if values.get("decision", "simple") not in DECISION_RULES:
+        raise SettingsError(f"{path}: preset {name!r}: decision must be "
+                            f"{' or '.join(repr(r) for r in DECISION_RULES)}, "
+                            f"not {values['decision']!r}")
     if "tolerance" in values:
         try:  # a bad tolerance is found when the file is read, not at the first part
             parse_tolerance(values["tolerance"],

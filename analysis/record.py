@@ -160,9 +160,19 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
 
 
 def flat_fields(record: dict) -> dict:
-    """The record's scalar fields, flattened for a CSV row (Zernike terms as z1, z2, ...)."""
+    """The record's scalar fields, flattened for a CSV row (Zernike terms as z1, z2, ...).
+
+    Each figure's expanded uncertainty stands beside it as ``u_<figure>``
+    (``pv_nm``, ``u_pv_nm``, ``rms_nm``, ``u_rms_nm`` ...).
+    """
     row: dict = {}
+    uncertainty = record.get("uncertainty") or {}
     for key, value in record.items():
+        if key == "uncertainty" and isinstance(value, dict):
+            for figure, u in value.items():  # figures the record does not carry: at the end
+                if figure not in record:
+                    row[f"u_{figure}"] = u
+            continue
         if isinstance(value, dict):
             if key == "zernike":
                 first = value.get("first_index", 1)
@@ -178,6 +188,8 @@ def flat_fields(record: dict) -> dict:
                 row["warnings"] = " | ".join(str(w) for w in value)
         else:
             row[key] = value
+            if key in uncertainty:
+                row[f"u_{key}"] = uncertainty[key]
     return row
 
 

@@ -51,7 +51,8 @@ __all__ = [
     "write_photo",
 ]
 
-# Trade wavelengths in air (references.md, "Facts of the trade", common practice).
+# Trade wavelengths in air: mercury e, helium d, sodium D (ISO 7944:1998, Reference
+# wavelengths, from memory) and He-Ne (common practice).
 TRADE_WAVELENGTHS_NM = (546.07, 587.56, 589.3, 632.8)
 
 _DARK_SURROUND = 0.02

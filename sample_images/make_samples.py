@@ -18,7 +18,8 @@ from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo, wr
 HERE = Path(__file__).resolve().parent
 SQRT3 = float(np.sqrt(3.0))
 
-# Light sources (references.md, "Facts of the trade"): wavelength in air, nm.
+# Light sources: wavelength in air, nm (ISO 7944:1998, Reference wavelengths, from
+# memory, for the sodium and mercury lines; He-Ne 632.8 nm is common practice).
 LAMPS = {
     "hene": ("He-Ne laser", 632.8),
     "sodium": ("sodium lamp", 589.3),

@@ -98,7 +98,9 @@ class FlatsightStation(App):
                 entry.preset_source = preset
                 entry.preset = {"wavelength_nm": preset.wavelength_nm,
                                 "diameter_mm": preset.diameter_mm,
-                                "n_terms": preset.zernike_terms}
+                                "n_terms": preset.zernike_terms,
+                                "wavelength_uncertainty_nm": preset.wavelength_uncertainty_nm,
+                                "reference_uncertainty_nm": preset.reference_uncertainty_nm}
         return entry
 
     def on_mount(self) -> None:

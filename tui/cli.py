@@ -52,7 +52,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser = OneLineParser(
         prog="flatsight",
         description=DESCRIPTION,
-        epilog=EXIT_CODES,
+        epilog=EXIT_CODES + "\nA tolerance (measure --spec) adds 1 (out of tolerance) and 5 "
+        "(inconclusive);\nsee 'flatsight measure --help'. Each command's --help gives its own.",
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     pkg = __package__ or "flatsight.tui"

@@ -7,6 +7,7 @@ import json
 import sys
 from pathlib import Path
 
+from ..analysis.formatting import format_number
 from .options import EXIT_CODES, angle_type, diameter_type, terms_type, wavelength_type
 from .safe_text import shown
 
@@ -243,10 +244,10 @@ def _print_table(doc: dict) -> None:
         unsep = r["unseparated_terms"]
         t.add_row(
             name,
-            f"{r['pv_nm']:.1f}",
-            f"{r['rms_nm']:.1f}",
-            f"{r['power_nm']:.1f}",
-            f"{r['irregularity_nm']:.1f}",
+            format_number(r["pv_nm"]),
+            format_number(r["rms_nm"]),
+            format_number(r["power_nm"]),
+            format_number(r["irregularity_nm"]),
             ", ".join(map(str, unsep)) if unsep else "none",
         )
     c.print(t)

@@ -7,7 +7,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from .options import EXIT_CODES, diameter_type, expand_photos, wavelength_type
+from .options import diameter_type, expand_photos, wavelength_type
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -28,10 +28,14 @@ Every measurement is judged against --spec (or the preset's tolerance) and
 recorded in the inspection log, as flatsight measure records it: the default
 log, --log PATH, or none with --no-log. The part is --part, or else the photo's
 file stem (BW-FL-0412_hene.png is part BW-FL-0412_hene); the queue shows each
-part's verdict, P pass or F fail (bold: measured now; plain: the log's last).
+part's verdict, P pass, F fail or I inconclusive (under --decision guarded: a
+figure within its uncertainty of a limit), bold for the measurement in hand and
+plain for the log's last. The figures view gives each figure with its expanded
+uncertainty U (k = 2).
 
 Settings changed in the station (wavelength, sign, diameter, terms, units) are
-remembered in station.toml in your user config folder; options given here win
+remembered in station.toml in your user config folder, with --decision,
+--wavelength-uncertainty and --reference-uncertainty; options given here win
 for this run and are remembered too.
 
 Sign: Flatsight takes the air wedge to be wider toward the top of the photo, so
@@ -45,6 +49,14 @@ examples:
   flatsight inspect BW-FL-0412.png BW-FL-0413.png --wavelength hene --diameter 100
   flatsight inspect shots/ --wavelength mercury-e --out results/
 """
+
+
+# the station's verdicts are on its screen and in the log, not in its exit status
+EXIT_CODES = """exit status:
+  0  the station was closed (each verdict is in the queue and the inspection log)
+  2  usage error: a bad option, preset, tolerance or settings value, or no photos
+  4  internal error (please report it)
+  130 interrupted (ctrl+c)"""
 
 
 def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
@@ -146,6 +158,11 @@ def settings_from_args(args: argparse.Namespace, remembered):
         changes["n_terms"] = int(args.terms)
     if args.colour is not None:
         changes["colour"] = args.colour
+    if getattr(args, "decision", None) is not None:
+        changes["decision"] = args.decision
+    for key in ("wavelength_uncertainty", "reference_uncertainty"):
+        if getattr(args, key, None) is not None:
+            changes[f"{key}_nm"] = float(getattr(args, key))
     return validate(replace(remembered, **changes))
 
 

@@ -8,7 +8,7 @@ from pathlib import Path
 
 from .multi_options import add_multi_options
 from .options import (
-    EXIT_CODES,
+    TOLERANCE_EXIT_CODES,
     MapNames,
     check_map_path,
     circle_type,
@@ -34,6 +34,18 @@ gently (press lightly at the wedge's thin end, following your shop's procedure);
 if the fringes travel toward the bottom (right) of the photo instead of the top
 (left), the wedge runs the other way: add --invert.
 
+Figures: PV, irregularity (B) and C are taken over the filtered map (a 45-term
+Zernike fit plus the measured departures from it, smoothed at the resolution the
+fringes carry), so a noisy pixel at the rim cannot decide a verdict; the raw PV is
+kept in the JSON as pv_raw_nm. PVr follows Evans (Opt. Eng. 48, 043605, 2009).
+
+Uncertainty: every figure comes with its expanded uncertainty U (k = 2, JCGM
+100:2008): the map's noise (by Monte Carlo), what the method cannot resolve, and
+what you state with --wavelength-uncertainty and --reference-uncertainty. The
+table shows it as value ± U. With --spec, --decision guarded passes a part only
+when each figure plus its U is within its limit, fails it when the figure minus U
+is beyond, and calls it inconclusive (exit status 5) in between.
+
 PHOTO may be a file (PNG, JPEG, TIFF), a folder (its photos) or a glob."""
 
 EXAMPLES = """\
@@ -42,12 +54,15 @@ examples:
   flatsight measure shots/*.tif --wavelength 546.07 --json > results.jsonl
   flatsight measure part.png --wavelength 632.8 --aperture 640,480,410 --diameter 100
   flatsight measure part.png --wavelength sodium --spec '3/2(0.5)' --part BW-FL-0412
+  flatsight measure part.png -w hene --spec '3/2(1)' --decision guarded
+  flatsight measure part.png -w hene --reference-uncertainty 6 --json
 """
 
 
 def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     p = sub.add_parser(
-        "measure", help=HELP, description=DESCRIPTION, epilog=EXAMPLES + "\n" + EXIT_CODES,
+        "measure", help=HELP, description=DESCRIPTION,
+        epilog=EXAMPLES + "\n" + TOLERANCE_EXIT_CODES,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument("photos", nargs="+", metavar="PHOTO", help="photo files, folders or globs")
@@ -89,6 +104,8 @@ def _settings(args: argparse.Namespace):
     from flatsight.analysis.aperture import Aperture, Exclusion
     from flatsight.analysis.pipeline import MeasureSettings
 
+    from .record_options import uncertainty_settings
+
     aperture = Aperture(*args.aperture) if args.aperture else None
     return MeasureSettings(
         wavelength_nm=float(args.wavelength),
@@ -98,6 +115,7 @@ def _settings(args: argparse.Namespace):
         aperture=aperture,
         exclusions=tuple(Exclusion(*c) for c in args.exclude),
         report_wavelength_nm=args.report_wavelength,
+        **uncertainty_settings(args),
     )
 
 
@@ -111,6 +129,7 @@ def run(args: argparse.Namespace) -> int:
     from flatsight.analysis.record import measurement_to_record, save_height_map
 
     from .multi_options import check_multi_options, combine_with_sections
+    from .options import worst_status
     from .record_options import apply_preset, judge_and_log, tolerance_from_args
     from .report_text import Reporter
 
@@ -227,10 +246,10 @@ def run(args: argparse.Namespace) -> int:
                     collected.append(m)
                     continue
                 for item in combine_with_sections(opts, [m]):
-                    status = max(status, report(item, photo, opts))
+                    status = worst_status(status, report(item, photo, opts))
             except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
                 progress.pause()
-                status = max(status, one_line(exc, photo))
+                status = worst_status(status, one_line(exc, photo))
     except KeyboardInterrupt:
         # ctrl+c: the table shows what was finished (and logged), as --json and --csv do
         progress.stop()
@@ -243,8 +262,8 @@ def run(args: argparse.Namespace) -> int:
         try:
             opts = photo_args(collected[0].photo)[0] if per_photo else args
             for item in combine_with_sections(opts, collected):
-                status = max(status, report(item, name, opts))
+                status = worst_status(status, report(item, name, opts))
         except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
-            status = max(status, one_line(exc, name))
+            status = worst_status(status, one_line(exc, name))
     reporter.finish()
     return status

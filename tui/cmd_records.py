@@ -10,7 +10,6 @@ from __future__ import annotations
 import argparse
 import csv
 import json
-import math
 import shutil
 import sys
 from collections.abc import Sequence
@@ -18,6 +17,7 @@ from datetime import datetime
 from pathlib import Path
 
 from ..analysis.errors import FlatsightError, SettingsError
+from ..analysis.formatting import format_number
 from .options import count_type, whole_number_type
 from .record_options import log_path_type
 from .safe_text import csv_row, literal, shown
@@ -51,7 +51,8 @@ def add_parser(subparsers) -> None:
     _log_option(h)
     h.add_argument("--part", metavar="ID", help="only this part")
     h.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
-    h.add_argument("--verdict", choices=("pass", "fail"), help="only this verdict")
+    h.add_argument("--verdict", choices=("pass", "fail", "inconclusive"),
+                   help="only this verdict")
     h.add_argument("--limit", metavar="N", type=count_type, default=None,
                    help="at most N records")
     fmt = h.add_mutually_exclusive_group()
@@ -62,7 +63,8 @@ def add_parser(subparsers) -> None:
     t = subparsers.add_parser(
         "trend", help="plot a figure over time with its tolerance line and pass rate",
         description="Plot a figure over time in the terminal. Each mark is one record's "
-                    "overall verdict (o passed, x failed, * no tolerance); the dashed line "
+                    "overall verdict (o passed, x failed, ? inconclusive, * no tolerance); "
+                    "the dashed line "
                     "is the latest record's tightest limit on that figure (both signs for "
                     "power, which is limited by magnitude).")
     _log_option(t)
@@ -113,12 +115,12 @@ def _csv_row(rec: dict) -> dict:
     return csv_row(row)
 
 
-def _cell(value, digits: int = 1):
+def _cell(value, digits: int = 1) -> str:
     """A table cell: a number to ``digits`` places, or stored text shown literally."""
     if value is None:
         return "—"
     if isinstance(value, float):
-        return f"{value:.{digits}f}" if math.isfinite(value) else "—"
+        return format_number(value, digits)
     return literal(value)
 
 
@@ -163,7 +165,8 @@ def run_history(args: argparse.Namespace) -> int:
                          no_wrap=name in ("time (UTC)", "part"))
     for rec in rows:
         verdict = rec.get("verdict")
-        style = {"pass": "bold green", "fail": "bold red"}.get(verdict, "dim")
+        style = {"pass": "bold green", "fail": "bold red",
+                 "inconclusive": "bold yellow"}.get(verdict, "dim")
         cells = [str(rec["record_id"]),
                  literal(str(rec.get("logged_utc", ""))[:16].replace("T", " ")),
                  _cell(rec.get("part"))]
@@ -216,7 +219,7 @@ def trend_lines(
         lo, hi = lo - 1.0, hi + 1.0
     pad = 0.05 * (hi - lo)
     lo, hi = lo - pad, hi + pad
-    label_w = max(len(f"{hi:.1f}"), len(f"{lo:.1f}")) + 1
+    label_w = max(len(format_number(hi)), len(format_number(lo))) + 1
     plot_w = max(10, width - label_w - 2)
     grid = [[" "] * plot_w for _ in range(height)]
 
@@ -228,22 +231,22 @@ def trend_lines(
         grid[r] = ["-" if c == " " else c for c in grid[r]]
     t0, t1 = points[0][0], points[-1][0]
     span = (t1 - t0).total_seconds()
-    rank = {"fail": 3, "pass": 2, None: 1}
-    mark = {"fail": "x", "pass": "o", None: "*"}
+    rank = {"fail": 4, "inconclusive": 3, "pass": 2, None: 1}
+    mark = {"fail": "x", "inconclusive": "?", "pass": "o", None: "*"}
     best: dict[tuple[int, int], str | None] = {}
     for i, (t, v, verdict) in enumerate(points):
         frac = (t - t0).total_seconds() / span if span > 0 else (
             i / (len(points) - 1) if len(points) > 1 else 0.5)
         cell = (row_of(v), min(plot_w - 1, round(frac * (plot_w - 1))))
         # where points share a cell, a failure must stay visible
-        if cell not in best or rank[verdict] > rank[best[cell]]:
+        if cell not in best or rank.get(verdict, 1) > rank.get(best[cell], 1):
             best[cell] = verdict
     for (r, c), verdict in best.items():
-        grid[r][c] = mark[verdict]
+        grid[r][c] = mark.get(verdict, "*")
     lines = []
     for r in range(height):
         value = hi - r * (hi - lo) / (height - 1)
-        label = f"{value:.1f}" if r in (0, height - 1, height // 2) else ""
+        label = format_number(value) if r in (0, height - 1, height // 2) else ""
         lines.append(f"{label:>{label_w}} │" + "".join(grid[r]))
     lines.append(" " * label_w + " └" + "─" * plot_w)
     first, last = t0.strftime("%Y-%m-%d %H:%M"), t1.strftime("%Y-%m-%d %H:%M")
@@ -263,7 +266,7 @@ def _limits_for(rec: dict, figure: str) -> tuple[list[float], str]:
     lines = [tight["limit_nm"]]
     if tight.get("compared") == "magnitude":
         lines.append(-tight["limit_nm"])
-    return lines, (f"limit {tight['limit_nm']:.1f} nm "
+    return lines, (f"limit {format_number(tight['limit_nm'])} nm "
                    f"({tight.get('name')} of {spec.get('tolerance')})")
 
 
@@ -299,13 +302,15 @@ def run_trend(args: argparse.Namespace) -> int:
         text = Text(body)
         text.highlight_regex(r"x", "bold red")
         text.highlight_regex(r"o", "green")
+        text.highlight_regex(r"\?", "bold yellow")
         text.highlight_regex(r"-+", "yellow")
         console.print(Text(label + bar) + text)
-    judged = [r for r in rows if r.get("verdict") in ("pass", "fail")]
+    judged = [r for r in rows if r.get("verdict") in ("pass", "fail", "inconclusive")]
     passed = sum(r["verdict"] == "pass" for r in judged)
     rate = (f"pass rate {passed}/{len(judged)} ({100.0 * passed / len(judged):.1f} %)"
             if judged else "pass rate: no record had a tolerance")
-    console.print(literal(f"o pass  x fail  * no tolerance  --- {limit_note}"))
+    console.print("o pass  x fail  ? inconclusive  * no tolerance")
+    console.print(literal(f"--- {limit_note}"))
     console.print(rate, style="bold")
     return 0
 

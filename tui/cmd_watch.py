@@ -20,6 +20,7 @@ from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from ..analysis.formatting import format_number
 from .options import (
     MapNames,
     check_map_path,
@@ -33,7 +34,14 @@ from .options import (
 from .record_options import add_record_options
 from .safe_text import shown
 
-__all__ = ["FolderWatcher", "add_parser", "measure_photo", "run"]
+__all__ = ["FolderWatcher", "VERDICT_WORDS", "add_parser", "measure_photo", "run"]
+
+# the watch's clock and its pause between looks (tests put a clock of their own here)
+clock = time.monotonic
+pause = time.sleep
+
+# a verdict as each photo's line writes it
+VERDICT_WORDS = {"pass": "PASS", "fail": "FAIL", "inconclusive": "INCONCLUSIVE"}
 
 DESCRIPTION = """\
 Watch FOLDER and measure each new photo (PNG, JPEG, TIFF) once the camera has finished
@@ -41,6 +49,9 @@ writing it; log it to the inspection log and print one line with its verdict. Th
 is the photo's file name without its suffix (BW-FL-0412.png is part BW-FL-0412) unless
 --part is given. Bad files get a one-line error and the watch goes on; if the folder
 disappears, the watch says so and waits for it to come back.
+
+Each line ends with the verdict against --spec: PASS, FAIL, or INCONCLUSIVE under
+--decision guarded (a figure within its uncertainty U of a limit).
 
 Stop with ctrl+c (exit status 130), or with --max-files / --timeout: a summary line and
 exit status 0, whatever the verdicts (they are in the lines and the log); 2 for bad
@@ -226,6 +237,7 @@ def measure_photo(path: Path, args: argparse.Namespace) -> dict:
     from ..analysis.errors import SettingsError
     from ..analysis.pipeline import MeasureSettings, measure
     from ..analysis.record import measurement_to_record, save_height_map
+    from .record_options import uncertainty_settings
 
     aperture = getattr(args, "aperture", None)
     settings = MeasureSettings(
@@ -235,6 +247,7 @@ def measure_photo(path: Path, args: argparse.Namespace) -> dict:
         diameter_mm=float(args.diameter) if args.diameter is not None else None,
         aperture=Aperture(*aperture) if aperture else None,
         exclusions=tuple(Exclusion(*c) for c in getattr(args, "exclude", []) or []),
+        **uncertainty_settings(args),
     )
     m = measure(str(path), settings)
     record = measurement_to_record(m)
@@ -262,15 +275,25 @@ def _stamp() -> str:
 
 def _line(record: dict, path: Path) -> str:
     def nm(key: str) -> str:
-        v = record.get(key)
-        return f"{v:7.1f}" if isinstance(v, int | float) else "      —"
+        return f"{format_number(record.get(key)):>7}"
 
-    verdict = (record.get("spec") or {}).get("verdict")
-    word = {"pass": "PASS", "fail": "FAIL"}.get(verdict, "—")
+    spec = record.get("spec") or {}
+    word = VERDICT_WORDS.get(spec.get("verdict"), "—")
     rid = record.get("record_id")
     return (f"{_stamp()}  {shown(record.get('part') or path.stem):<16} PV {nm('pv_nm')} nm  "
             f"PVr {nm('pvr_nm')} nm  power {nm('power_nm')} nm  {word:<4}"
-            + (f"  #{rid}" if rid is not None else ""))
+            + _deciding_limit(spec) + (f"  #{rid}" if rid is not None else ""))
+
+
+def _deciding_limit(spec: dict) -> str:
+    """`` (B margin -7.6 nm, U 29.0 nm)``: the first limit that did not pass, if any."""
+    for lim in spec.get("limits", []):
+        if lim.get("verdict") not in (None, "pass"):
+            u = lim.get("uncertainty_nm")
+            return (f" ({shown(lim.get('name'))} margin "
+                    f"{format_number(lim.get('margin_nm'), sign=True)} nm"
+                    + (f", U {format_number(u)} nm" if u is not None else "") + ")")
+    return ""
 
 
 @dataclass
@@ -337,8 +360,8 @@ def _handle(path: Path, args: argparse.Namespace, tally: Tally) -> None:
 def _summary(tally: Tally, why: str) -> str:
     counts = tally.counts
     return (f"watch stopped ({why}): {tally.total()} photos, {counts['pass']} pass, "
-            f"{counts['fail']} fail, {counts['measured']} without tolerance, "
-            f"{counts['error']} errors"
+            f"{counts['fail']} fail, {counts['inconclusive']} inconclusive, "
+            f"{counts['measured']} without tolerance, {counts['error']} errors"
             + (f", {tally.not_logged} not logged" if tally.not_logged else ""))
 
 
@@ -368,18 +391,25 @@ def run(args: argparse.Namespace) -> int:
                 raise SettingsError("--save-map must write outside the watched folder, or "
                                     "each map would be taken for a new photo")
             args.map_names = MapNames(args.save_map)
-        watcher = FolderWatcher(folder, settle_s=args.settle, include_existing=args.existing)
+        for name, value in (("--interval", args.interval), ("--settle", args.settle)):
+            if not value >= 0:
+                raise SettingsError(f"{name} must be zero or more seconds")
+        watcher = FolderWatcher(folder, settle_s=args.settle, include_existing=args.existing,
+                                clock=clock)
     except (SettingsError, argparse.ArgumentTypeError, OSError) as exc:
         print(f"flatsight watch: error: {shown(exc)}", file=sys.stderr)
         return 2
 
     log_path = log_path_from_args(args)
-    print(f"watching {shown(folder)} (logging to {shown(log_path or 'nothing: --no-log')}); "
-          "ctrl+c to stop", flush=True)
     tally = Tally()
-    start = time.monotonic()
+    start = clock()
     missing = None
     try:
+        # announced inside the try: from the moment this line is out, ctrl+c ends the
+        # watch with its summary line
+        print(f"watching {shown(folder)} (logging to "
+              f"{shown(log_path) if log_path else 'nothing: --no-log'}); ctrl+c to stop",
+              flush=True)
         while True:
             for path in watcher.poll():
                 _handle(path, args, tally)
@@ -393,9 +423,9 @@ def run(args: argparse.Namespace) -> int:
                       + (f"cannot be looked at ({shown(missing)}); waiting for it to come "
                          "back (ctrl+c to stop)" if missing else "is back; watching again"),
                       flush=True)
-            if args.timeout is not None and time.monotonic() - start >= args.timeout:
+            if args.timeout is not None and clock() - start >= args.timeout:
                 raise _Stop("--timeout reached")
-            time.sleep(args.interval)
+            pause(args.interval)
     except KeyboardInterrupt:
         print(flush=True)
         print(_summary(tally, "ctrl+c"), flush=True)

@@ -9,6 +9,7 @@ from pathlib import Path
 
 from ..analysis.atomic import atomic_write_text
 from ..analysis.errors import SettingsError
+from ..analysis.tolerances import DECISION_RULES
 
 __all__ = [
     "StationSettings",
@@ -22,6 +23,7 @@ UNITS = ("nm", "waves", "fringes")
 COLOUR_MODES = ("auto", "truecolor", "256", "mono")
 MIN_TERMS, MAX_TERMS = 15, 66  # 15 reaches secondary astigmatism; 66 is Noll order 10
 MIN_WAVELENGTH_NM, MAX_WAVELENGTH_NM = 300.0, 1700.0  # UV lamps to telecom lasers
+MAX_UNCERTAINTY_NM = 1000.0  # as MeasureSettings accepts
 
 
 @dataclass(frozen=True)
@@ -44,6 +46,12 @@ class StationSettings:
         Noll terms taken out of the map beyond piston and tilt (4 = power ...).
     colour : {"auto", "truecolor", "256", "mono"}
         How the maps are drawn; "auto" reads the terminal's environment.
+    decision : {"simple", "guarded"}
+        The decision rule verdicts are given under (ISO 14253-1; see ``tolerances``).
+    wavelength_uncertainty_nm : float
+        Standard uncertainty (k = 1) of the test wavelength, nm.
+    reference_uncertainty_nm : float
+        Expanded uncertainty (k = 2) of the reference flat's form, nm.
     """
 
     wavelength_nm: float = 632.8
@@ -53,6 +61,9 @@ class StationSettings:
     units: str = "nm"
     removed_terms: tuple[int, ...] = ()
     colour: str = "auto"
+    decision: str = "simple"
+    wavelength_uncertainty_nm: float = 0.0
+    reference_uncertainty_nm: float = 0.0
 
 
 def validate(s: StationSettings) -> StationSettings:
@@ -77,6 +88,14 @@ def validate(s: StationSettings) -> StationSettings:
         raise SettingsError(f"unknown colour {s.colour!r}; use one of {', '.join(COLOUR_MODES)}")
     if any(not 4 <= j <= MAX_TERMS for j in s.removed_terms):
         raise SettingsError("removed terms must be Noll indices from 4 up")
+    if s.decision not in DECISION_RULES:
+        raise SettingsError(f"unknown decision rule {s.decision!r}; use one of "
+                            f"{', '.join(DECISION_RULES)}")
+    for what, value in (("wavelength uncertainty", s.wavelength_uncertainty_nm),
+                        ("reference flat uncertainty", s.reference_uncertainty_nm)):
+        if not (math.isfinite(value) and 0.0 <= value <= MAX_UNCERTAINTY_NM):
+            raise SettingsError(f"{what} {value:g} nm is out of range; give 0 to "
+                                f"{MAX_UNCERTAINTY_NM:g} nm")
     return s
 
 
@@ -123,7 +142,8 @@ def settings_from_toml(text: str) -> StationSettings:
     try:
         if "removed_terms" in values:
             values["removed_terms"] = tuple(int(j) for j in values["removed_terms"])
-        for key in ("wavelength_nm", "diameter_mm"):
+        for key in ("wavelength_nm", "diameter_mm", "wavelength_uncertainty_nm",
+                    "reference_uncertainty_nm"):
             if key in values:
                 values[key] = float(values[key])
         if "n_terms" in values:

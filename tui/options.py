@@ -12,12 +12,15 @@ from .safe_text import shown
 __all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle", "wavelength_type",
            "circle_type", "diameter_type", "terms_type", "angle_type", "number_type",
            "whole_number_type", "seconds_type", "count_type",
-           "check_map_path", "MapNames", "EXIT_CODES"]
+           "check_map_path", "MapNames", "EXIT_CODES", "TOLERANCE_EXIT_CODES",
+           "STATUS_SEVERITY", "worst_status", "parse_uncertainty", "uncertainty_type"]
 
 #: The largest coordinate or radius taken in pixels: no photo Flatsight reads is wider.
 MAX_PIXELS_ACROSS = 1_000_000
 
-# Wavelengths in air of the usual test sources (common practice; references.md).
+# Wavelengths in air of the usual test sources: the mercury e, helium d and sodium D
+# lines as ISO 7944:1998 (Reference wavelengths) tabulates them, from memory; He-Ne
+# 632.8 nm is common practice.
 SPECTRAL_LINES = {
     "hene": 632.8,
     "sodium": 589.3,
@@ -26,13 +29,38 @@ SPECTRAL_LINES = {
 }
 
 EXIT_CODES = """exit status:
-  0  every photo measured (and within tolerance, when one is given)
-  1  a photo measured but out of tolerance
+  0  every photo measured
   2  usage error, or a photo could not be read
   3  a photo was read but could not be analysed (no carrier, closed fringes...)
   4  internal error (please report it with the photo)
   130 interrupted (ctrl+c)
-In a batch the highest status applies."""
+In a batch the most severe status applies."""
+
+# for the commands that judge a tolerance (--spec); the README's exit table says the same
+TOLERANCE_EXIT_CODES = """exit status:
+  0  every photo measured (and within tolerance, when --spec gives one)
+  1  a photo measured but out of tolerance
+  2  usage error, or a photo could not be read
+  3  a photo was read but could not be analysed (no carrier, closed fringes...)
+  4  internal error (please report it with the photo)
+  5  inconclusive under --decision guarded: a figure lies within its uncertainty
+     U of a limit, so neither pass nor fail is proven
+  130 interrupted (ctrl+c)
+In a batch the most severe status applies, from most to least severe:
+130, 4, 3, 2, 1, 5, 0 (an inconclusive verdict is less severe than a fail)."""
+
+# exit statuses from least to most severe: 5 (inconclusive) ranks below 1 (fail)
+STATUS_SEVERITY = (0, 5, 1, 2, 3, 4, 130)
+
+
+def worst_status(*statuses: int) -> int:
+    """The most severe of several exit statuses, in the order of :data:`STATUS_SEVERITY`.
+
+    >>> worst_status(0, 5, 1), worst_status(5, 0), worst_status(2, 5, 130)
+    (1, 5, 130)
+    """
+    rank = {status: i for i, status in enumerate(STATUS_SEVERITY)}
+    return max(statuses, key=lambda s: rank.get(s, len(STATUS_SEVERITY)))
 
 
 def parse_wavelength(text: str) -> float:
@@ -105,7 +133,19 @@ def _argtype(fn, name):
     return convert
 
 
+def parse_uncertainty(text: str) -> float:
+    """An uncertainty in nm: a number from 0 to 1000 (``nm`` may follow it)."""
+    try:
+        value = float(text.strip().lower().removesuffix("nm"))
+    except ValueError:
+        raise ValueError(f"{text!r} is not an uncertainty in nm (a number such as 2.5)") from None
+    if not math.isfinite(value) or not 0.0 <= value <= 1000.0:
+        raise ValueError(f"uncertainty {text!r} is out of range (0 to 1000 nm)")
+    return value
+
+
 wavelength_type = _argtype(parse_wavelength, "wavelength")
+uncertainty_type = _argtype(parse_uncertainty, "uncertainty")
 circle_type = _argtype(parse_circle, "circle")
 
 

@@ -5,11 +5,14 @@
     add_record_options(parser)                 # when building the parser
     args = apply_preset(args)                  # after parsing: fill unset options
     tolerance_from_args(args)                  # before measuring: a bad --spec fails fast
+    uncertainty_settings(args)                 # MeasureSettings fields for U
     record, status = finish_record(args, rec)  # per photo: spec section, record_id, log
 
 A malformed tolerance or preset raises :class:`SettingsError` (exit 2); a log that cannot
 be written raises :class:`InspectionLogError`, and :func:`judge_and_log` turns that into
-the judged record, unlogged, with the reason, so the result is still shown.
+the judged record, unlogged, with the reason, so the result is still shown. The
+decision rule (``--decision``) and the stated uncertainties (``--wavelength-uncertainty``,
+``--reference-uncertainty``) come from the command line, else the preset.
 """
 
 from __future__ import annotations
@@ -21,19 +24,29 @@ from pathlib import Path
 
 from ..analysis.errors import InspectionLogError
 from ..analysis.inspection_log import default_log_path, record_measurement, utc_now
-from ..analysis.tolerances import Tolerance, evaluate, parse_tolerance, spec_section
-from .options import number_type
+from ..analysis.tolerances import (
+    DECISION_RULES,
+    Tolerance,
+    evaluate,
+    parse_tolerance,
+    spec_section,
+)
+from .options import number_type, uncertainty_type
 
 __all__ = [
+    "DECISION_HELP",
     "PRESET_TO_OPTION",
     "SPEC_HELP",
+    "VERDICT_STATUS",
     "add_record_options",
     "apply_preset",
+    "decision_from_args",
     "finish_record",
     "judge_and_log",
     "log_path_type",
     "log_path_from_args",
     "tolerance_from_args",
+    "uncertainty_settings",
 ]
 
 # preset key -> argparse dest it fills when that option was not given on the command line.
@@ -47,6 +60,9 @@ PRESET_TO_OPTION = {
     "spec_wavelength_nm": "spec_wavelength",
     "operator": "operator",
     "station": "station",
+    "decision": "decision",
+    "wavelength_uncertainty_nm": "wavelength_uncertainty",
+    "reference_uncertainty_nm": "reference_uncertainty",
 }
 
 SPEC_HELP = (
@@ -56,8 +72,18 @@ SPEC_HELP = (
     "(astigmatism included); C = rotationally symmetric part of B. A, B, C are fringes "
     "(half waves) and D waves at 546.07 nm unless --spec-wavelength; plain 'w' is a wave of "
     "the test wavelength unless --spec-wavelength. A value equal to its limit passes. "
-    "Exit status 1 when a photo fails."
+    "Exit status 1 when a photo fails, 5 when it is inconclusive (--decision guarded)."
 )
+DECISION_HELP = (
+    "how a figure is judged against its limit (ISO 14253-1, ILAC G8): simple (default) "
+    "passes a value within the limit; guarded passes only when value + U is within it, "
+    "fails when value - U is beyond it, and is otherwise inconclusive (exit status 5); "
+    "U is the figure's expanded uncertainty (k = 2)"
+)
+
+
+# a tolerance's verdict -> what it adds to the exit status (tui/options.py)
+VERDICT_STATUS = {"pass": 0, "fail": 1, "inconclusive": 5}
 
 
 # the range a preset's spec_wavelength_nm may take (analysis/presets.py)
@@ -78,6 +104,18 @@ def add_record_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--spec-wavelength", metavar="NM", type=spec_wavelength_type,
                        default=None,
                        help="wavelength the drawing states its fringes in (default 546.07)")
+    group.add_argument("--decision", choices=tuple(DECISION_RULES), default=None,
+                       help=DECISION_HELP)
+    group.add_argument("--wavelength-uncertainty", metavar="NM", type=uncertainty_type,
+                       default=None,
+                       help="standard uncertainty of the test wavelength in nm (k = 1; "
+                            "default 0: a spectral line is known far better than a photo "
+                            "measures); it enters every figure's U")
+    group.add_argument("--reference-uncertainty", metavar="NM", type=uncertainty_type,
+                       default=None,
+                       help="expanded uncertainty (k = 2) in nm of the reference flat's own "
+                            "form, from its calibration certificate (default 0); it enters "
+                            "every figure's U")
     group.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
                        help=f"inspection log (SQLite; default {default_log_path()})")
     group.add_argument("--no-log", action="store_true", help="do not record this measurement")
@@ -127,6 +165,19 @@ def tolerance_from_args(args: argparse.Namespace) -> Tolerance | None:
     return parse_tolerance(text, spec_wavelength_nm=getattr(args, "spec_wavelength", None))
 
 
+def decision_from_args(args: argparse.Namespace) -> str:
+    """The decision rule: ``--decision`` or the preset's, else ``simple``."""
+    return getattr(args, "decision", None) or "simple"
+
+
+def uncertainty_settings(args: argparse.Namespace) -> dict:
+    """The ``MeasureSettings`` fields the uncertainty options give (0 when unset)."""
+    return {
+        "wavelength_uncertainty_nm": float(getattr(args, "wavelength_uncertainty", None) or 0.0),
+        "reference_uncertainty_nm": float(getattr(args, "reference_uncertainty", None) or 0.0),
+    }
+
+
 def log_path_from_args(args: argparse.Namespace) -> Path | None:
     """Where to log: ``--log``, the default path, or None with ``--no-log``."""
     if getattr(args, "no_log", False):
@@ -158,15 +209,16 @@ def finish_record(args: argparse.Namespace, record: dict) -> tuple[dict, int]:
         A copy with ``part``, ``operator``, ``station``, ``logged_utc``, the ``spec``
         section when a tolerance was given, and ``record_id`` when logged.
     status : int
-        1 when the tolerance fails, else 0 (combine with ``max``).
+        1 when the tolerance fails, 5 when it is inconclusive (guarded rule), else 0;
+        combine several with :func:`~flatsight.tui.options.worst_status`.
     """
     out = dict(record)
     status = 0
     tolerance = tolerance_from_args(args)
     if tolerance is not None:
-        result = evaluate(tolerance, out)
+        result = evaluate(tolerance, out, decision=decision_from_args(args))
         out["spec"] = spec_section(result)
-        status = 1 if result.verdict == "fail" else 0
+        status = VERDICT_STATUS.get(result.verdict, 0)
     out["part"] = getattr(args, "part", None)
     out["operator"] = getattr(args, "operator", None) or _default_operator()
     out["station"] = getattr(args, "station", None) or socket.gethostname() or None

@@ -8,15 +8,18 @@ import sys
 from pathlib import Path
 from typing import TextIO
 
+from flatsight.analysis.formatting import format_number
 from flatsight.analysis.record import flat_fields
 from flatsight.analysis.zernike import noll_to_osa, term_name
+from rich import box
 from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from .safe_text import csv_row, literal, shown
+from .safe_text import csv_row, shown
 
-__all__ = ["Reporter", "figures_table", "warning_text", "zernike_table"]
+__all__ = ["Reporter", "figures_table", "limit_lines", "limits_table", "verdict_text",
+           "warning_text", "zernike_table"]
 
 # (label, record key stem, show in fringes)
 FIGURE_ROWS = [
@@ -26,7 +29,23 @@ FIGURE_ROWS = [
     ("power", "power", True),
     ("irregularity", "irregularity", True),
     ("astigmatism", "astigmatism", False),
+    ("C (symmetric irreg.)", "symmetric_irregularity", True),
+    ("RMSi", "rms_irregularity", False),
+    ("RMSa", "rms_asymmetric", False),
 ]
+# a figure's record key -> its short name, for the tolerance's limits
+SHORT_NAMES = {"pv_nm": "PV", "rms_nm": "RMS", "pvr_nm": "PVr", "power_nm": "power",
+               "irregularity_nm": "irregularity", "astigmatism_nm": "astigmatism",
+               "symmetric_irregularity_nm": "symmetric", "rms_irregularity_nm": "RMSi",
+               "rms_asymmetric_nm": "RMSa"}
+# verdict -> (word, style) in tables and lines
+VERDICT_WORDS = {"pass": "pass", "fail": "FAIL", "inconclusive": "INCONCLUSIVE"}
+VERDICT_STYLES = {"pass": (VERDICT_WORDS["pass"], "bold green"),
+                  "fail": (VERDICT_WORDS["fail"], "bold red"),
+                  "inconclusive": (VERDICT_WORDS["inconclusive"], "bold yellow")}
+U_NOTE = ("U: expanded uncertainty (k = 2) in nm: the map's noise, the method, the "
+          "wavelength and the reference flat (--json gives each in uncertainty_budget)")
+BATCH_U_NOTE = "±: " + U_NOTE.removeprefix("U: ")
 
 
 def warning_text(warning: str, where: str = "") -> Text:
@@ -36,36 +55,103 @@ def warning_text(warning: str, where: str = "") -> Text:
 
 
 def _fmt(value, digits: int = 1) -> str:
-    return "-" if value is None else f"{value:.{digits}f}"
+    return format_number(value, digits, missing="-")
+
+
+def _u(record: dict, key: str) -> float | None:
+    """The expanded uncertainty of figure ``key`` (``"pv_nm"``), or None."""
+    value = (record.get("uncertainty") or {}).get(key)
+    return value if isinstance(value, int | float) else None
+
+
+def _cell_width(cell) -> int:
+    """Terminal cells the widest line of a table cell takes."""
+    plain = cell.plain if isinstance(cell, Text) else str(cell)
+    return max(Text(line).cell_len for line in plain.split("\n"))
+
+
+def verdict_text(verdict: str | None, *, upper: bool = False) -> Text:
+    """``pass``, ``FAIL`` or ``INCONCLUSIVE`` in its colour; empty without a verdict."""
+    word, style = VERDICT_STYLES.get(verdict, (shown(verdict or ""), ""))
+    return Text(word.upper() if upper else word, style=style)
 
 
 def figures_table(record: dict) -> Table:
-    """The headline figures of one record in nm, waves and fringes."""
+    """The figures of one record in nm with their U, in waves and in fringes."""
     lam = record["wavelength_nm"]
     t = Table(title=None, show_edge=False, pad_edge=False, box=None, header_style="bold")
     t.add_column("figure")
-    t.add_column("nm", justify="right")
-    t.add_column(f"waves @{lam:g}", justify="right")
-    t.add_column("fringes", justify="right")
+    t.add_column("nm", justify="right", no_wrap=True)
+    t.add_column("± U nm", justify="right", no_wrap=True)
+    t.add_column(f"waves @{lam:g}", justify="right", no_wrap=True)
+    t.add_column("fringes", justify="right", no_wrap=True)
     report = record.get("report_waves")
     if report:
-        t.add_column(f"waves @{report['wavelength_nm']:g}", justify="right")
+        t.add_column(f"waves @{report['wavelength_nm']:g}", justify="right", no_wrap=True)
     for label, key, fringes in FIGURE_ROWS:
         nm = record.get(f"{key}_nm")
-        fr = record.get(f"{key}_fringes") if fringes else None
-        if key == "power" and nm is not None:
+        if nm is None and key not in ("pv", "rms", "pvr", "power", "irregularity"):
+            continue  # an older record without this figure
+        waves = record.get(f"{key}_waves")
+        if waves is None and isinstance(nm, int | float):
+            waves = nm / lam
+        fr = None if waves is None or not fringes else 2.0 * waves
+        if key == "power" and isinstance(nm, int | float):
             label = f"power ({'convex' if nm > 0 else 'concave' if nm < 0 else 'flat'})"
         if key == "astigmatism" and record.get("astigmatism_axis_deg") is not None:
-            label = f"astigmatism (axis {record['astigmatism_axis_deg']:.0f}°)"
-        row = [label, _fmt(nm), _fmt(record.get(f"{key}_waves"), 4),
+            label = f"astigmatism (axis {format_number(record['astigmatism_axis_deg'], 0)}°)"
+        u = _u(record, f"{key}_nm")
+        row = [label, _fmt(nm), "" if u is None else _fmt(u), _fmt(waves, 4),
                _fmt(fr, 3) if fringes else ""]
         if report:
-            row.append(_fmt(report.get(f"{key}_waves"), 4))
+            rw = report.get(f"{key}_waves")
+            if rw is None and isinstance(nm, int | float):
+                rw = nm / report["wavelength_nm"]
+            row.append(_fmt(rw, 4))
         t.add_row(*row)
     roc = record.get("radius_of_curvature_m")
     if roc is not None:
-        t.add_row("radius of curvature", f"{roc:,.0f} m", "", "")
+        t.add_row("radius of curvature", f"{format_number(roc, 0, grouping=True)} m", "", "", "")
     return t
+
+
+def _limit_cells(lim: dict) -> tuple[Text, str, str, str, Text]:
+    """One judged limit as (name, measured ± U, limit, margin, verdict), heights in nm."""
+    short = SHORT_NAMES.get(lim.get("figure"), lim.get("label") or "")
+    name = str(lim.get("name") or "")
+    title = short if name.lower() in (short.lower(), lim.get("figure")) else f"{name} {short}"
+    measured = format_number(lim.get("measured_nm"))
+    if lim.get("compared") == "magnitude":
+        measured = f"|{measured}|"
+    u = lim.get("uncertainty_nm")
+    if u is not None:
+        measured += f" ± {format_number(u)}"
+    return (Text(shown(title)), f"{measured} nm",
+            f"≤ {format_number(lim.get('limit_nm'))} nm",
+            f"{format_number(lim.get('margin_nm'), sign=True)} nm",
+            verdict_text(lim.get("verdict")))
+
+
+def limits_table(spec: dict) -> Table:
+    """Each limit of a judged tolerance: measured ± U, the limit, the margin, the verdict."""
+    t = Table(show_edge=False, pad_edge=False, box=None, header_style="bold")
+    t.add_column("limit")
+    t.add_column("measured ± U", justify="right", no_wrap=True)
+    t.add_column("limit", justify="right", no_wrap=True)
+    t.add_column("margin", justify="right", no_wrap=True)
+    t.add_column("verdict", no_wrap=True)
+    for lim in spec.get("limits", []):
+        t.add_row(*_limit_cells(lim))
+    return t
+
+
+def limit_lines(spec: dict) -> list[Text]:
+    """The same as :func:`limits_table`, one line a limit that wraps rather than cuts."""
+    lines = []
+    for lim in spec.get("limits", []):
+        title, measured, limit, margin, verdict = _limit_cells(lim)
+        lines.append(Text.assemble(title, ": ", verdict, f"  {measured} {limit}, margin {margin}"))
+    return lines
 
 
 def zernike_table(record: dict, *, first: int = 4, last: int = 15) -> Table:
@@ -166,56 +252,116 @@ class Reporter:
         ap = r["aperture"]
         head = Text()
         head.append(shown(r["photo"]), style="bold")
-        head.append(f"   {r['wavelength_nm']:g} nm   aperture r={ap['radius_px']:.1f} px at "
-                    f"({ap['center_x_px']:.1f}, {ap['center_y_px']:.1f}) {ap['source']}")
+        head.append(f"   {r['wavelength_nm']:g} nm   aperture r={_fmt(ap['radius_px'])} px at "
+                    f"({_fmt(ap['center_x_px'])}, {_fmt(ap['center_y_px'])}) {ap['source']}")
         if r.get("part"):
             head.append(f"   part {shown(r['part'])}")
         c.print(head)
         c.print(figures_table(r))
+        if r.get("uncertainty"):
+            c.print(Text(U_NOTE, style="dim"))
         c.print()
         c.print(zernike_table(r))
         q = r["quality"]
-        c.print(f"fringes: {q['carrier_fringes']:.1f} across at {q['carrier_angle_deg']:.0f}°, "
-                f"{q['fringe_period_px']:.1f} px each; resolution "
-                f"{q['resolution_cycles_per_aperture']:.1f} cycles/aperture; visibility "
-                f"{q['mean_modulation']:.2f}; masked {100 * q['masked_fraction']:.1f} %")
-        self._verdict_line(r)
+        c.print(f"fringes: {_fmt(q['carrier_fringes'])} across at "
+                f"{_fmt(q['carrier_angle_deg'], 0)}°, {_fmt(q['fringe_period_px'])} px each; "
+                f"resolution {_fmt(q['resolution_cycles_per_aperture'])} cycles/aperture; "
+                f"visibility {_fmt(q['mean_modulation'], 2)}; masked "
+                f"{_fmt(100 * q['masked_fraction'])} %")
+        self._verdict(r)
         for w in r.get("warnings", []):
             c.print(warning_text(w))
         if r.get("record_id") is not None:
             c.print(f"logged as record {r['record_id']}")
         c.print()
 
-    def _verdict_line(self, r: dict) -> None:
+    def _verdict(self, r: dict) -> None:
+        """The tolerance's verdict under its decision rule, then each limit with U and margin."""
         spec = r.get("spec")
         if not spec:
             return
-        ok = spec.get("verdict") == "pass"
-        style = "bold green" if ok else "bold red"
-        text = spec.get("text") or spec.get("tolerance") or ""
-        self.console.print(Text.assemble(f"tolerance {shown(text)}: ",
-                                         (shown(spec.get("verdict", "?")).upper(), style)))
+        rule = spec.get("decision_rule") or "simple"
+        line = Text.assemble("tolerance ", shown(spec.get("tolerance") or ""),
+                             f" ({rule} decision rule): ",
+                             verdict_text(spec.get("verdict"), upper=True))
+        self.console.print(line)
+        self.console.print(limits_table(spec))
+        if spec.get("decision_rule_text"):
+            self.console.print(Text(shown(spec["decision_rule_text"]), style="dim"))
+
+    def _batch_columns(self) -> list[tuple[str, str, object]]:
+        """(header, justify, cell maker) of the batch table; more columns on a wide terminal."""
+
+        def with_u(key: str):
+            def cell(r: dict) -> Text:
+                text = Text(_fmt(r.get(key)))
+                u = _u(r, key)
+                if u is not None:
+                    text.append(f"\n±{_fmt(u)}", style="dim")
+                return text
+
+            return cell
+
+        columns = [
+            ("λ\nnm", "right", lambda r: f"{r['wavelength_nm']:g}"),
+            ("PV\nnm", "right", with_u("pv_nm")),
+            ("RMS\nnm", "right", with_u("rms_nm")),
+            ("PVr\nnm", "right", with_u("pvr_nm")),
+            ("power\nnm", "right", with_u("power_nm")),
+            ("irreg.\nnm", "right", with_u("irregularity_nm")),
+            ("verdict", "left", lambda r: verdict_text((r.get("spec") or {}).get("verdict"))),
+        ]
+        if self.console.width >= 100:
+            columns.insert(4, ("PVr\nwaves", "right", lambda r: _fmt(r.get("pvr_waves"), 3)))
+            columns.append(("warn.", "right", lambda r: str(len(r.get("warnings", [])))))
+        return columns
 
     def finish(self) -> None:
         if self.mode != "table" or not self._rows:
             return
-        t = Table(header_style="bold", show_edge=False)
-        name_width = max(len(Path(r["photo"]).name) for r in self._rows)
-        t.add_column("photo", no_wrap=True, min_width=min(name_width, 40))
-        for col, just in [ ("λ nm", "right"), ("PV nm", "right"),
-                          ("RMS nm", "right"), ("PVr nm", "right"), ("PVr waves", "right"),
-                          ("power nm", "right"), ("irreg. nm", "right"), ("verdict", "left"),
-                          ("warn.", "right")]:
-            t.add_column(col, justify=just)
-        for r in self._rows:
+        columns = self._batch_columns()
+        cells = [[make(r) for _, _, make in columns] for r in self._rows]
+        # the numbers never fold or shorten: below the width they need, one block a photo
+        widths = [max(_cell_width(header), *(_cell_width(row[i]) for row in cells))
+                  for i, (header, _, _) in enumerate(columns)]
+        if sum(widths) + 2 * len(columns) + 10 > self.console.width:
+            self._narrow(columns, cells)
+        else:
+            t = Table(header_style="bold", box=box.SIMPLE_HEAD, show_edge=False,
+                      pad_edge=False, collapse_padding=True)
+            t.add_column("photo", overflow="fold", ratio=1,
+                         min_width=min(10, max(len(Path(r["photo"]).name) for r in self._rows)))
+            for header, justify, _ in columns:
+                t.add_column(header, justify=justify, no_wrap=True)
+            for r, row in zip(self._rows, cells, strict=True):
+                t.add_row(Text(shown(Path(r["photo"]).name)), *row)
+            self.console.print(t)
+        if any(_u(r, "pv_nm") is not None for r in self._rows):
+            self.console.print(Text(BATCH_U_NOTE, style="dim"))
+        for r in self._rows:  # what decided each verdict that is not a pass
             spec = r.get("spec") or {}
-            verdict = spec.get("verdict", "")
-            style = {"pass": "green", "fail": "bold red"}.get(verdict, "")
-            t.add_row(literal(Path(r["photo"]).name), f"{r['wavelength_nm']:g}", _fmt(r["pv_nm"]),
-                      _fmt(r["rms_nm"]), _fmt(r["pvr_nm"]), _fmt(r["pvr_waves"], 3),
-                      _fmt(r["power_nm"]), _fmt(r["irregularity_nm"]),
-                      literal(verdict, style), str(len(r.get("warnings", []))))
-        self.console.print(t)
+            if spec.get("verdict") in ("fail", "inconclusive"):
+                name = shown(Path(r["photo"]).name)
+                for line, lim in zip(limit_lines(spec), spec.get("limits", []), strict=True):
+                    if lim.get("verdict") != "pass":
+                        self.console.print(Text(f"{name}: ") + line)
         for r in self._rows:
             for w in r.get("warnings", []):
                 self.console.print(warning_text(w, Path(r["photo"]).name))
+
+    def _narrow(self, columns, cells) -> None:
+        """Each photo as its name and ``figure value ±U unit`` pairs packed into lines."""
+        width = self.console.width
+        for r, row in zip(self._rows, cells, strict=True):
+            self.console.print(Text(shown(Path(r["photo"]).name), style="bold"))
+            line = ""
+            for (header, _, _), cell in zip(columns, row, strict=True):
+                name, _, unit = header.partition("\n")
+                value = cell.plain.replace("\n", " ") if isinstance(cell, Text) else str(cell)
+                pair = " ".join(x for x in (name, value, unit) if x)
+                if line and len(line) + 2 + len(pair) > width:
+                    self.console.print(Text(line))
+                    line = ""
+                line = f"{line}  {pair}" if line else f"  {pair}"
+            if line:
+                self.console.print(Text(line))

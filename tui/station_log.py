@@ -25,7 +25,7 @@ __all__ = [
 ]
 
 # the command-line options that shape a record (argparse dests of add_record_options)
-OPTION_KEYS = ("spec", "spec_wavelength", "part", "operator", "station")
+OPTION_KEYS = ("spec", "spec_wavelength", "decision", "part", "operator", "station")
 
 
 @dataclass(frozen=True)
@@ -38,8 +38,8 @@ class StationRecorder:
         The SQLite inspection log; None records nothing (``--no-log``), but tolerances
         are still judged.
     options : dict
-        ``spec``, ``spec_wavelength``, ``part``, ``operator``, ``station`` from the
-        command line (None: unset, so a preset may fill it).
+        ``spec``, ``spec_wavelength``, ``decision``, ``part``, ``operator``, ``station``
+        from the command line (None: unset, so a preset may fill it).
     """
 
     log_path: Path | None = None

@@ -44,6 +44,7 @@ class QueueEntry:
     preset_source: Any = None  # the Preset those came from (its tolerance and people too)
     # inspection record: this session's verdict, the log's last one for the part, the id
     verdict: str | None = None
+    spec: dict | None = None  # the record's judged tolerance: rule, limits, margins, U
     last_verdict: str | None = None
     record_id: int | None = None
     log_error: str | None = None
@@ -91,6 +92,7 @@ class QueueEntry:
         self.error = None
         self.state = "new"
         self.verdict = self.record_id = self.log_error = None
+        self.spec = None
         self.combined = None
 
 

@@ -59,8 +59,9 @@ def on_grid(size, *, noise_nm, seed, name):
 
 
 def test_error_of_the_average_falls_as_one_over_root_n():
-    # independent errors average down as 1/sqrt(N) (references.md, facts of the trade:
-    # common practice); the spread between photos stays at the single-photo noise
+    # independent errors average down as 1/sqrt(N): the standard deviation of the mean
+    # (JCGM 100:2008, the GUM, 4.2.3, from memory); the spread between photos stays at
+    # the single-photo noise
     size, sigma = 81, 3.0
     xu, yu = unit_grid(size)
     disk = np.hypot(xu, yu) <= 1

@@ -92,6 +92,46 @@ def test_html_is_self_contained_with_verdict_and_map():
     assert "@page" in page and "break-inside: avoid" in page
 
 
+def test_each_figure_with_its_u_the_rule_in_words_and_an_inconclusive_verdict():
+    rec = make_record(spec=None)
+    u = {"pv_nm": 4.4, "rms_nm": 0.6, "pvr_nm": 4.1, "power_nm": 1.2,
+         "irregularity_nm": 3.3, "astigmatism_nm": 0.9, "symmetric_irregularity_nm": 1.5,
+         "rms_irregularity_nm": 0.5, "rms_asymmetric_nm": 0.5}
+    rec["uncertainty"] = u
+    rec["uncertainty_budget"] = {"coverage_factor": 2, "basis": "noise, method, wavelength",
+                                 "map_noise_nm": 0.4, "wavelength_uncertainty_nm": 0.0,
+                                 "reference_uncertainty_nm": 6.0, "photos": 4}
+    # a PV limit 2 nm above the value, inside its U of 4.4 nm: inconclusive under the
+    # guarded rule (ISO 14253-1 / ILAC G8, from memory); the simple rule passes it
+    limit = round(rec["pv_nm"] + 2.0, 1)
+    rec["spec"] = spec_section(evaluate(parse_tolerance(f"pv<={limit}nm"), rec,
+                                        decision="guarded"))
+    page = certificate.certificate_html(rec)
+    assert 'class="verdict inconclusive"' in page and ">INCONCLUSIVE<" in page
+    assert "under the guarded decision rule" in page
+    assert "pass when value + U is within the limit" in page  # the rule in words
+    assert "conformity is not proven either" in page  # what inconclusive means
+    for key, value in u.items():  # every figure beside its U
+        assert f"<td class=\"num\">± {value:.1f}</td>" in page, key
+    assert f"± {u['pv_nm']:.1f} nm" in page and f"+{limit - rec['pv_nm']:.1f} nm" in page
+    assert "coverage factor k = 2" in page and "JCGM 100:2008" in page
+    assert "reference flat 6.0 nm (k = 2)" in page and "4 photos averaged" in page
+    # how the figures are taken, from analysis/figures.py's own account
+    assert "How the figures are taken" in page and "filtered map" in page
+    assert "Evans 2009" in page and "**" not in page and "``" not in page
+    rec["spec"] = spec_section(evaluate(parse_tolerance(f"pv<={limit}nm"), rec))
+    page = certificate.certificate_html(rec)
+    assert 'class="verdict pass"' in page and "under the simple decision rule" in page
+
+
+def test_no_signed_zero_on_the_page():
+    rec = make_record(a4=-0.001, a6=0.0, a7=-0.0004)
+    rec["power_nm"], rec["radius_of_curvature_m"] = -0.004, None
+    page = certificate.certificate_html(rec)
+    # a value that rounds to zero is written without a sign (analysis/formatting.py)
+    assert not re.search(r"-0\.0+(?![0-9])", re.sub(r"<style>.*?</style>", "", page, flags=re.S))
+
+
 def test_no_tolerance_says_so():
     page = certificate.certificate_html(make_record(spec=None))
     assert 'class="verdict none"' in page and "NO TOLERANCE" in page

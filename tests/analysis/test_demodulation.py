@@ -68,7 +68,7 @@ def test_textbook_takeda_is_near_the_truth(clean):
     ap = photo.aperture
     yy, xx = np.mgrid[0 : photo.image.shape[0], 0 : photo.image.shape[1]].astype(float)
     interior = np.hypot(xx - ap.center_x_px, yy - ap.center_y_px) <= 0.8 * ap.radius_px
-    height = phase * LAM / (4 * np.pi)  # double pass (references.md)
+    height = phase * LAM / (4 * np.pi)  # double pass (Malacara, Optical Shop Testing, 2007)
     diff = (height - photo.true_height_nm(xx, yy))[interior]
     r = residual_after_plane(diff, xx[interior], yy[interior])
     assert np.sqrt(np.mean(r**2)) < 2.0 and np.max(np.abs(r)) < 6.0

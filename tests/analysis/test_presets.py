@@ -22,6 +22,9 @@ station = "bench-2"
 wavelength_nm = 589.3
 tolerance = "pv<=0.1w"
 spec_wavelength_nm = 589.3
+decision = "guarded"
+wavelength_uncertainty_nm = 0.02
+reference_uncertainty_nm = 6
 """
 
 
@@ -46,7 +49,10 @@ def test_reads_presets(tmp_path):
         station="bench-2",
     )
     assert got["sodium window"].diameter_mm is None
-    assert presets.get_preset("sodium window", path=p).spec_wavelength_nm == 589.3
+    sodium = presets.get_preset("sodium window", path=p)
+    assert sodium.spec_wavelength_nm == 589.3 and sodium.decision == "guarded"
+    assert sodium.wavelength_uncertainty_nm == 0.02 and sodium.reference_uncertainty_nm == 6.0
+    assert hene.decision is None and hene.reference_uncertainty_nm is None  # not set: default
     # agrees with the standard library's own reading of the file (tomllib)
     raw = tomllib.loads(GOOD)["presets"]["bench-2-hene"]
     assert {k: getattr(hene, k) for k in raw} == raw
@@ -75,6 +81,10 @@ def test_default_path_is_in_the_user_config_dir(monkeypatch, tmp_path):
         ('[presets.a]\ntolerance = "3/1(0.5"\n', r"preset 'a': tolerance .*at character 8"),
         ("[bench]\nwavelength_nm = 632.8\n", r"unknown top-level key 'bench'"),
         ("presets = 3\n", r"must be tables"),
+        ('[presets.a]\ndecision = "lenient"\n', r"decision must be 'simple' or 'guarded'"),
+        ("[presets.a]\ndecision = 1\n", r"decision must be a non-empty string"),
+        ("[presets.a]\nreference_uncertainty_nm = -2\n", r"= -2 is out of range \(0 to 1000\)"),
+        ('[presets.a]\nwavelength_uncertainty_nm = "0.1"\n', r"must be a number"),
     ],
 )
 def test_bad_files_give_one_line(tmp_path, text, message):

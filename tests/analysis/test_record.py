@@ -130,6 +130,12 @@ def test_flat_fields_for_csv(rec):
     assert row["aperture.radius_px"] == rec["aperture"]["radius_px"]
     assert row["quality.masked_fraction"] == rec["quality"]["masked_fraction"]
     assert row["pv_nm"] == rec["pv_nm"] and row["zernike_ordering"] == "noll"
+    # each figure's expanded uncertainty U stands in the column beside it
+    keys = list(row)
+    for figure in ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm"):
+        assert row[f"u_{figure}"] == rec["uncertainty"][figure] > 0
+        assert keys.index(f"u_{figure}") == keys.index(figure) + 1
+    assert not any(k.startswith("uncertainty.") for k in keys)
 
 
 # --- the height map ----------------------------------------------------------------------

@@ -219,7 +219,8 @@ def test_random_photos_cover_the_hard_range_with_the_disk_in_frame(seed):
 
 
 def test_truth_of_pure_power_has_the_closed_form_pv_to_rms_ratio():
-    # references.md (computed): PV/RMS of power over the full disk is 2 sqrt(3).
+    # PV/RMS of power over the full disk is 2 sqrt(3): Noll's Z4 = sqrt(3)(2 rho^2 - 1)
+    # (Noll, JOSA 66(3), 207, 1976) runs from -sqrt(3) to sqrt(3) with unit RMS.
     a4 = 25.0
     photo = make_fringe_photo(SyntheticSurface({4: a4}), shape=(500, 500), radius_px=220.0, **CLEAN)
     truth = photo.truth()

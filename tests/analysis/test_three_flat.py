@@ -79,8 +79,13 @@ def rms(v):
 
 
 def expected_unseparated(angle_deg):
-    """The rule in references.md: terms with parity -1 stay unknown without a turned
-    photo; with one turned by alpha, those with m alpha a multiple of 360 deg."""
+    """Terms odd under the flip stay unknown without a turned photo; with one turned by
+    alpha, those with m alpha a multiple of 360 deg (the rotation leaves them unchanged).
+
+    The three-flat test's blind spots in Zernike terms as B. S. Fritz, "Absolute
+    calibration of an optical flat", Opt. Eng. 23(4), 379 (1984) describes them, from
+    memory.
+    """
     out = []
     for j in range(4, N_TERMS + 1):
         m = abs(noll_to_nm(j)[1])
@@ -96,8 +101,8 @@ def expected_unseparated(angle_deg):
 
 
 def test_flip_and_rotation_matrices_match_evaluating_the_turned_surface():
-    # references.md / the module's convention: x -> -x maps cos m t -> (-1)^m cos m t and
-    # sin m t -> (-1)^(m+1) sin m t; checked against numpy evaluation of the terms
+    # x -> -x (t -> pi - t) maps cos m t -> (-1)^m cos m t and sin m t -> (-1)^(m+1)
+    # sin m t (trigonometric identities); checked against numpy evaluation of the terms
     x, y = unit_grid(61)
     disk = np.hypot(x, y) <= 1
     basis = zernike_basis(N_TERMS, x[disk], y[disk])

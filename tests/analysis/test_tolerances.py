@@ -63,7 +63,7 @@ def test_full_form_a_b_c_in_fringes_at_546():
         ("B", "irregularity_nm", pytest.approx(FRINGE_546)),
         ("C", "symmetric_irregularity_nm", pytest.approx(0.5 * FRINGE_546)),
     ]
-    assert FRINGE_546 == pytest.approx(273.035)  # references.md: 273.04 nm per fringe
+    assert FRINGE_546 == pytest.approx(273.035)  # half of 546.07 nm (ISO 10110-5's fringe)
 
 
 def test_dash_means_not_toleranced():
@@ -113,7 +113,7 @@ def test_units_may_be_written_explicitly():
 
 
 def test_plain_limits_and_their_wavelengths():
-    # lambda/10 PV at 632.8 nm is 63.28 nm (references.md, common practice)
+    # lambda/10 PV at 632.8 nm is 63.28 nm (arithmetic; the usual grade, common practice)
     assert limits_nm("pv<=0.1w") == [("pv", "pv_nm", pytest.approx(63.28))]
     # waves follow the test wavelength unless a spec wavelength is stated
     assert limits_nm("pv<=0.1w", test_wavelength_nm=546.07) == [

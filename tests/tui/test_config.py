@@ -34,6 +34,9 @@ def test_round_trip_through_the_file(tmp_path):
         units="fringes",
         removed_terms=(4, 5, 6),
         colour="mono",
+        decision="guarded",
+        wavelength_uncertainty_nm=0.05,
+        reference_uncertainty_nm=6.0,
     )
     assert save_settings(s, path) == path
     loaded, notice = load_settings(path)
@@ -41,6 +44,10 @@ def test_round_trip_through_the_file(tmp_path):
     # a plain TOML reader sees the same values (tomllib, Python's standard library)
     table = tomllib.loads(path.read_text(encoding="utf-8"))["station"]
     assert table["wavelength_nm"] == 589.3 and table["removed_terms"] == [4, 5, 6]
+    assert table["decision"] == "guarded" and table["reference_uncertainty_nm"] == 6.0
+    # the rule and the uncertainties stay as they are when the file does not give them
+    assert StationSettings().decision == "simple"
+    assert StationSettings().reference_uncertainty_nm == 0.0
 
 
 def test_unset_diameter_is_left_out_and_read_back_as_none(tmp_path):
@@ -77,6 +84,8 @@ def test_broken_or_out_of_range_file_falls_back_with_a_note(tmp_path):
     assert settings == StationSettings() and "Zernike terms" in notice
     path.write_text('[station]\ninvert = "yes"\n', encoding="utf-8")
     assert "invert" in load_settings(path)[1]
+    path.write_text('[station]\nreference_uncertainty_nm = "six"\n', encoding="utf-8")
+    assert "bad value" in load_settings(path)[1]
 
 
 def test_unknown_keys_are_ignored():
@@ -94,6 +103,9 @@ def test_unknown_keys_are_ignored():
         ({"units": "furlongs"}, "units"),
         ({"colour": "sepia"}, "colour"),
         ({"removed_terms": (2,)}, "removed terms"),
+        ({"decision": "lenient"}, "decision rule"),
+        ({"reference_uncertainty_nm": -1.0}, "reference flat uncertainty"),
+        ({"wavelength_uncertainty_nm": float("inf")}, "wavelength uncertainty"),
     ],
 )
 def test_validation_names_what_to_change(change, words):
@@ -102,8 +114,9 @@ def test_validation_names_what_to_change(change, words):
 
 
 def test_heights_in_waves_and_fringes():
-    # one fringe is half a wavelength of height; at He-Ne one fringe = 316.40 nm and
-    # lambda/10 = 63.28 nm (references.md, facts of the trade, common practice)
+    # one fringe is half a wavelength of height in reflection (double pass: D. Malacara,
+    # ed., Optical Shop Testing, 3rd ed., Wiley, 2007, ch. 1, from memory); at He-Ne one
+    # fringe = 316.40 nm and lambda/10 = 63.28 nm (arithmetic)
     assert convert(316.4, "fringes", 632.8) == pytest.approx(1.0)
     assert convert(63.28, "waves", 632.8) == pytest.approx(0.1)
     assert convert(273.035, "fringes", 546.07) == pytest.approx(1.0)

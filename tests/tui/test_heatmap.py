@@ -175,12 +175,14 @@ def test_unknown_mode_is_refused():
 
 # ---- legend -------------------------------------------------------------------------------
 def test_legend_values_in_nm_and_waves():
-    # lambda/10 at He-Ne 632.8 nm is 63.28 nm (references.md, common practice)
+    # lambda/10 at He-Ne 632.8 nm is 63.28 nm (arithmetic; lambda/10 is the trade's usual
+    # flatness grade, common practice)
     lines = legend_lines(-63.28, 63.28, wavelength_nm=632.8, n=5, mode="truecolor")
     text = [line.plain for line in lines]
     assert "+63.3 nm" in text[0] and "+0.100 λ" in text[0]
     assert "-63.3 nm" in text[4] and "-0.100 λ" in text[4]
-    assert "+0.0 nm" in text[2]
+    # zero is written without a sign: neither "+0.0" nor "-0.0" (analysis/formatting.py)
+    assert " 0.0 nm" in text[2] and " 0.000 λ" in text[2] and "+0.0" not in text[2]
     assert text[-1].strip() == "no data"
     np.testing.assert_allclose(legend_ticks(-63.28, 63.28, 5), [63.28, 31.64, 0, -31.64, -63.28])
 

@@ -102,6 +102,11 @@ def test_csv_inverted(photo_set, capsys):
     assert float(row["z4_nm"]) == pytest.approx(-40.0, abs=1.5)
     assert float(row["power_nm"]) > 0 and float(row["radius_of_curvature_m"]) > 0
     assert row["settings.invert"] == "True"
+    # each figure's expanded uncertainty (k = 2) in the column beside it
+    header = out.splitlines()[0].split(",")
+    for figure in ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm"):
+        assert header[header.index(figure) + 1] == f"u_{figure}"
+        assert float(row[f"u_{figure}"]) > 0
 
 
 @pytest.mark.slow

@@ -1,7 +1,7 @@
 """Presets chosen by photo name: one folder holding parts shot on benches with different lamps.
 
-The wavelengths are those of the usual test sources (common practice; references.md):
-He-Ne 632.8 nm and sodium D 589.3 nm.
+The wavelengths are those of the usual test sources: He-Ne 632.8 nm (common practice)
+and sodium D 589.3 nm (ISO 7944:1998, Reference wavelengths, from memory).
 """
 
 from __future__ import annotations

@@ -27,8 +27,10 @@ def photos(tmp_path_factory):
     good = folder / "BW-FL-0412.png"
     bad = folder / "BW-FL-0413.png"
     write_photo(make_fringe_photo(SyntheticSurface({4: 20.0}), shape=(360, 480), seed=1), good)
-    # spherical a11 = 60 nm: PV 3.354 x 60 = 201 nm > 150 nm (references.md: PV/RMS of
-    # spherical is 3.3541); the good photo, power only: 2 sqrt(3) x 20 = 69 nm, passes both
+    # spherical a11 = 60 nm: PV 3.354 x 60 = 201 nm > 150 nm (Noll's Z11 =
+    # sqrt(5)(6 rho^4 - 6 rho^2 + 1), Noll, JOSA 66(3), 207, 1976, spans 1.5 sqrt(5) over the
+    # disk); the good photo, power only: 2 sqrt(3) x 20 = 69 nm (Z4 = sqrt(3)(2 rho^2 - 1)
+    # spans 2 sqrt(3)), passes both
     write_photo(make_fringe_photo(SyntheticSurface({4: 10.0, 11: 60.0}), shape=(360, 480),
                                   seed=2), bad)
     return good, bad
@@ -65,6 +67,35 @@ def test_measure_exit_status_follows_the_tolerance(photos, tmp_path, capsys):
     status, out, _ = run_cli(capsys, "measure", good, "-w", "632.8", "--no-log", "--json")
     assert status == 0 and "record_id" not in json.loads(out)
     assert len(inspection_log.query(log)) == before == 4
+
+
+def test_guarded_decision_exits_5_when_inconclusive_and_the_worst_status_wins(photos, tmp_path,
+                                                                              capsys):
+    good, bad = photos
+    # a stated reference-flat uncertainty of 40 nm (k = 2) makes every figure's U at least
+    # 40 nm: U = k * sqrt(sum of u_i^2) >= k * 40 / 2 (JCGM 100:2008, 5.1.2 and 6.2.1).
+    # The good photo's PVr is about 69 nm (power only, 2 sqrt(3) x 20 nm; Noll 1976), so
+    # "pvr<=75nm" lies within U of it: inconclusive under the guarded rule (ISO 14253-1)
+    common = ["-w", "632.8", "--spec", "pvr<=75nm", "--decision", "guarded",
+              "--reference-uncertainty", "40", "--no-log", "--json"]
+    status, out, err = run_cli(capsys, "measure", good, *common)
+    assert status == 5, err
+    rec = json.loads(out)
+    spec = rec["spec"]
+    assert spec["verdict"] == "inconclusive" and spec["decision_rule"] == "guarded"
+    assert spec["limits"][0]["uncertainty_nm"] >= 40.0
+    assert rec["uncertainty"]["pvr_nm"] == spec["limits"][0]["uncertainty_nm"]
+    assert rec["uncertainty_budget"]["reference_uncertainty_nm"] == 40.0
+    # the bad photo's PVr, about 201 nm (spherical 60 nm x 3.354: Noll's
+    # Z11 = sqrt(5)(6 rho^4 - 6 rho^2 + 1) spans 1.5 sqrt(5) over the disk), minus U is
+    # still beyond 75 nm: it fails (1), which outranks inconclusive (5); a missing file
+    # (2) outranks both
+    status, out, err = run_cli(capsys, "measure", good, bad, *common)
+    assert status == 1, err
+    assert [json.loads(line)["spec"]["verdict"] for line in out.splitlines()] == [
+        "inconclusive", "fail"]
+    status, out, err = run_cli(capsys, "measure", good, tmp_path / "missing.png", *common)
+    assert status == 2 and len(out.splitlines()) == 1
 
 
 @pytest.fixture(scope="module")
@@ -127,6 +158,31 @@ def test_trend_lines_against_a_hand_placement():
     assert set(body[rows[40.0]]) == {"-"}
     assert lines[-1].strip().startswith("2026-11-01") and lines[-1].rstrip().endswith("00:00")
     assert all(len(line) <= 60 for line in lines)
+
+
+def test_an_inconclusive_record_is_marked_and_counted_as_not_passed(tmp_path, capsys,
+                                                                    monkeypatch):
+    t0 = datetime(2026, 11, 1, tzinfo=UTC)
+    points = [(t0, 10.0, "inconclusive"), (t0 + timedelta(days=1), 10.0, "pass")]
+    lines = cmd_records.trend_lines(points, width=40, height=5)
+    assert "?" in "".join(lines) and "o" in "".join(lines)
+    # where an inconclusive and a fail share a cell, the fail stays visible
+    lines = cmd_records.trend_lines([(t0, 10.0, "inconclusive"),
+                                     (t0 + timedelta(minutes=1), 10.0, "fail"),
+                                     (t0 + timedelta(days=10), 20.0, "pass")],
+                                    width=40, height=5)
+    assert "x" in "".join(lines) and "?" not in "".join(lines)
+    log = tmp_path / "log.sqlite"
+    for day, verdict in ((1, "pass"), (2, "inconclusive"), (3, "fail")):
+        inspection_log.record_measurement(
+            log, {"pvr_nm": 60.0 + day, "spec": {"tolerance": "pvr<=62nm", "verdict": verdict}},
+            part="BW-FL-0412", logged_utc=f"2026-11-0{day}T08:00:00Z")
+    monkeypatch.setenv("COLUMNS", "80")
+    status, out, _ = run_cli(capsys, "trend", "--log", log)
+    assert status == 0 and "pass rate 1/3 (33.3 %)" in out and "? inconclusive" in out
+    status, out, _ = run_cli(capsys, "history", "--log", log, "--verdict", "inconclusive",
+                             "--json")
+    assert status == 0 and [json.loads(x)["pvr_nm"] for x in out.splitlines()] == [62.0]
 
 
 def test_report_html_and_png(filled_log, tmp_path, capsys):

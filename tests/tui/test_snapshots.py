@@ -10,7 +10,7 @@ from __future__ import annotations
 import pytest
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings
-from station_fakes import fake_backend, write_photos
+from station_fakes import fake_backend, settle, write_photos
 from textual.widgets import Input
 
 PARTS = ["BW-FL-0412.png", "BW-FL-0413.png", "bad-photo.png"]
@@ -26,13 +26,10 @@ def _app(tmp_path) -> FlatsightStation:
 
 def _keys_then_settle(*keys: str):
     async def run_before(pilot) -> None:
-        await pilot.pause()
-        await pilot.app.workers.wait_for_complete()
-        await pilot.pause()
+        await settle(pilot)
         for key in keys:
             await pilot.press(key)
-            await pilot.app.workers.wait_for_complete()
-            await pilot.pause()
+            await settle(pilot)
         for inp in pilot.app.screen.query(Input):
             inp.cursor_blink = False
         await pilot.pause()

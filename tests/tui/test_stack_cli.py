@@ -121,7 +121,11 @@ def test_stack_errors_are_one_line_with_documented_codes(tmp_path, capsys):
 
 
 def parity(j):
-    """Under x -> -x: cos m t -> (-1)^m cos m t, sin m t -> (-1)^(m+1) sin m t (references.md)."""
+    """Under x -> -x, t -> pi - t: cos m t -> (-1)^m cos m t, sin m t -> (-1)^(m+1) sin m t.
+
+    (The identities cos m(pi - t) and sin m(pi - t), expanded; Noll's terms, JOSA 66(3),
+    207, 1976, carry cos m t or sin m t.)
+    """
     _, m = noll_to_nm(j)
     return (-1) ** abs(m) if m >= 0 else (-1) ** (abs(m) + 1)
 

@@ -14,7 +14,14 @@ from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings
 from flatsight.tui.station_backend import StationBackend
 from flatsight.tui.station_log import StationRecorder
-from station_fakes import FOUND_APERTURE, PHOTO_SHAPE, FakeLibrary, shot_to_shot, write_photos
+from station_fakes import (
+    FOUND_APERTURE,
+    PHOTO_SHAPE,
+    FakeLibrary,
+    settle,
+    shot_to_shot,
+    write_photos,
+)
 
 WAVELENGTH_NM = 632.8
 
@@ -25,13 +32,6 @@ def sync(scenario):
         asyncio.run(scenario(*args, **kwargs))
 
     return test
-
-
-async def settle(pilot, rounds: int = 4):
-    for _ in range(rounds):
-        await pilot.pause()
-        await pilot.app.workers.wait_for_complete()
-    await pilot.pause()
 
 
 def phase_frame(k: int, *, power_waves: float = 1.5, step_deg: float = 90.0) -> np.ndarray:

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import asyncio
 import functools
+import io
 import sqlite3
 
 import numpy as np
@@ -21,7 +22,8 @@ from flatsight.tui.config import StationSettings
 from flatsight.tui.screens.bench import BenchScreen
 from flatsight.tui.screens.preset_screen import PresetScreen
 from flatsight.tui.station_log import StationRecorder
-from station_fakes import fake_backend, write_photos
+from rich.console import Console
+from station_fakes import fake_backend, settle, write_photos
 
 PARTS = ["BW-FL-0412.png", "BW-FL-0413.png"]
 
@@ -32,14 +34,6 @@ def sync(scenario):
         asyncio.run(scenario(*args, **kwargs))
 
     return test
-
-
-async def settle(pilot, rounds: int = 4):
-    # a measurement starts a record worker, which starts a log read: wait for the chain
-    for _ in range(rounds):
-        await pilot.pause()
-        await pilot.app.workers.wait_for_complete()
-    await pilot.pause()
 
 
 def make_app(tmp_path, *, names=PARTS, log=True, presets_file=None, preset=None, **options):
@@ -95,6 +89,42 @@ async def test_each_measurement_is_logged_as_measure_logs_it_with_its_verdict(tm
         await settle(pilot)
         assert [r["part"] for r in query(tmp_path / "log.sqlite")] == [
             "BW-FL-0413", "BW-FL-0412"]
+
+
+@sync
+async def test_guarded_rule_shows_inconclusive_with_each_limit_its_u_and_margin(tmp_path):
+    # the fake surface's PV is that of its map (numpy, below); a limit 1 nm above it lies
+    # within the PV's expanded uncertainty: inconclusive under the guarded rule (ISO
+    # 14253-1, from memory), while the simple rule passes it
+    app, lib = make_app(tmp_path, log=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        bench = app.screen
+        figures = bench.entries[0].measurement.figures
+        limit = round(figures.pv_nm + 1.0, 1)
+        u = figures.uncertainty_nm["pv_nm"]
+        assert u > 1.0
+        bench.recorder.options["spec"] = f"pv<={limit}nm"
+        bench._update_settings(StationSettings(colour="truecolor", decision="guarded",
+                                               reference_uncertainty_nm=4.0), persist=False)
+        await pilot.press("m")
+        await settle(pilot)
+        e = bench.entries[0]
+        assert e.verdict == "inconclusive" and e.spec["decision_rule"] == "guarded"
+        assert queue_lines(app)[0].endswith(" I")
+        assert "INCONCLUSIVE pv<=" in status(app)
+        # the stated reference uncertainty reached the measurement (MeasureSettings)
+        assert lib.measured[-1][1].reference_uncertainty_nm == 4.0
+        await pilot.press("5")
+        await pilot.pause()
+        console = Console(width=200, record=True, file=io.StringIO())
+        console.print(app.screen.query_one("#figures-view")._content())
+        shown = console.export_text()
+        assert "(guarded): INCONCLUSIVE" in shown
+        new_u = e.measurement.figures.uncertainty_nm["pv_nm"]
+        assert f"± {new_u:.1f} nm ≤ {limit:.1f} nm" in shown
+        assert f"margin +{limit - e.measurement.figures.pv_nm:.1f} nm" in shown
+        assert f"± {new_u:.1f} nm" in shown.split("tolerance")[0]  # beside the PV figure
 
 
 @sync
@@ -308,6 +338,16 @@ def test_inspect_passes_log_part_people_and_preset_to_the_station(tmp_path, monk
     assert started["settings"].wavelength_nm == 589.3  # the preset fills the unset option
     code, started = _inspect(tmp_path, monkeypatch, "--no-log")
     assert code == 0 and started["recorder"].log_path is None
+
+
+def test_inspect_takes_the_decision_rule_and_the_uncertainties(tmp_path, monkeypatch):
+    code, started = _inspect(tmp_path, monkeypatch, "--no-log", "--decision", "guarded",
+                             "--wavelength-uncertainty", "0.05", "--reference-uncertainty", "6")
+    assert code == 0
+    assert started["recorder"].options["decision"] == "guarded"
+    s = started["settings"]
+    assert (s.decision, s.wavelength_uncertainty_nm, s.reference_uncertainty_nm) == (
+        "guarded", 0.05, 6.0)
 
 
 @pytest.mark.parametrize("argv, says", [

@@ -23,6 +23,7 @@ from rich.style import Style
 from rich.text import Text
 
 from ...analysis.colormap import NO_DATA_RGB, diverging_rgb
+from ...analysis.formatting import format_number
 
 __all__ = [
     "MONO_RAMP",
@@ -334,7 +335,8 @@ def legend_lines(
             rgb = tuple(int(x) for x in diverging_rgb(np.array([value]), vmin_nm, vmax_nm)[0])
             line.append("  ", styles.get(None, rgb))
             line.append("  ")
-        line.append(f"{value:+7.1f} nm {value / wavelength_nm:+6.3f} λ")
+        line.append(f"{format_number(value, 1, sign=True):>7} nm "
+                    f"{format_number(value / wavelength_nm, 3, sign=True):>6} λ")
         lines.append(line)
     no_data = Text()
     if mode == "mono":

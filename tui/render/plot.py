@@ -7,6 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 from rich.text import Text
 
+from ...analysis.formatting import format_number
 from .heatmap import _StyleCache
 
 __all__ = ["Series", "braille_char", "line_plot", "nice_ticks", "profile"]
@@ -80,8 +81,8 @@ def profile(
 
 
 def _fmt(v: float) -> str:
-    v = float(v) + 0.0
-    return f"{v:.3g}" if abs(v) < 1000 else f"{v:.0f}"
+    v = float(v) + 0.0  # -0.0 + 0.0 is +0.0: no signed zero on an axis
+    return f"{v:.3g}" if abs(v) < 1000 else format_number(v, 0)
 
 
 def line_plot(

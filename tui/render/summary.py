@@ -2,11 +2,21 @@
 
 from __future__ import annotations
 
+from ...analysis.formatting import format_number
 from ...analysis.version import flatsight_version
 from ...analysis.zernike import term_name
 from .units import fmt_height
 
-__all__ = ["figure_rows", "summary_text", "zernike_rows"]
+__all__ = ["UNCERTAINTY_KEYS", "figure_rows", "summary_text", "uncertainty_text", "zernike_rows"]
+
+
+# a figure's name in the station -> its key in Figures.uncertainty_nm
+UNCERTAINTY_KEYS = {
+    "PV": "pv_nm", "RMS": "rms_nm", "PVr": "pvr_nm", "power": "power_nm",
+    "irregularity": "irregularity_nm", "astigmatism": "astigmatism_nm",
+    "sym. irregularity": "symmetric_irregularity_nm",
+    "RMS irregularity": "rms_irregularity_nm", "RMS asymmetric": "rms_asymmetric_nm",
+}
 
 
 def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str, str]]:
@@ -17,7 +27,7 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
 
     power = h(figures.power_nm)
     if units != "fringes":
-        power += f"  ({figures.power_fringes:+.2f} fr)"
+        power += f"  ({format_number(figures.power_fringes, 2, sign=True)} fr)"
     rows = [
         ("PV", h(figures.pv_nm)),
         ("RMS", h(figures.rms_nm)),
@@ -25,7 +35,7 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
         ("power", power),
     ]
     if figures.radius_of_curvature_m is not None:
-        rows.append(("radius", f"{figures.radius_of_curvature_m:+.1f} m"))
+        rows.append(("radius", f"{format_number(figures.radius_of_curvature_m, 1, sign=True)} m"))
     rows += [
         ("irregularity", h(figures.irregularity_nm)),
         ("astigmatism", f"{h(figures.astigmatism_nm)} @ {figures.astigmatism_axis_deg:.0f}°"),
@@ -36,10 +46,19 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
     return rows
 
 
+def uncertainty_text(figures, name: str, *, units: str, wavelength_nm: float) -> str:
+    """``"± 3.1 nm"``: the expanded uncertainty (k = 2) of figure ``name``; empty without one."""
+    u = (getattr(figures, "uncertainty_nm", None) or {}).get(UNCERTAINTY_KEYS.get(name, ""))
+    if u is None:
+        return ""
+    return f"± {fmt_height(u, units, wavelength_nm)}"
+
+
 def zernike_rows(coefficients_nm, *, wavelength_nm: float) -> list[tuple[int, str, str, str]]:
     """``(noll j, trade name, nm, waves)`` for every fitted term."""
     return [
-        (j, term_name(j), f"{c:+.2f}", f"{c / wavelength_nm:+.4f}")
+        (j, term_name(j), format_number(c, 2, sign=True),
+         format_number(c / wavelength_nm, 4, sign=True))
         for j, c in enumerate(coefficients_nm, start=1)
     ]
 
@@ -67,11 +86,11 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
     ]
     if m.settings.diameter_mm:
         out.append(f"diameter       {m.settings.diameter_mm:g} mm")
-    out += ["", "Figures (piston and tilt removed)"]
-    for name, _ in figure_rows(m.figures, units="nm", wavelength_nm=wl):
-        nm = dict(figure_rows(m.figures, units="nm", wavelength_nm=wl))[name]
-        wv = dict(figure_rows(m.figures, units="waves", wavelength_nm=wl))[name]
-        out.append(f"  {name:<18} {nm:<26} {wv}")
+    out += ["", "Figures (piston and tilt removed; ± U is the expanded uncertainty, k = 2)"]
+    waves = dict(figure_rows(m.figures, units="waves", wavelength_nm=wl))
+    for name, nm in figure_rows(m.figures, units="nm", wavelength_nm=wl):
+        u = uncertainty_text(m.figures, name, units="nm", wavelength_nm=wl)
+        out.append(f"  {name:<18} {nm:<26} {u:<12} {waves[name]}".rstrip())
     if figures is not None and set(removed_terms) - {1, 2, 3}:
         names = ", ".join(term_name(j) for j in sorted(set(removed_terms) - {1, 2, 3}))
         out += ["", f"Figures with {names} also removed"]

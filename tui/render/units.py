@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import math
 
+from ...analysis.formatting import format_number
+
 __all__ = ["UNIT_LABELS", "convert", "fmt_height", "next_units"]
 
 UNIT_ORDER = ("nm", "waves", "fringes")
 UNIT_LABELS = {"nm": "nm", "waves": "λ", "fringes": "fr"}
+UNIT_DIGITS = {"nm": 1, "waves": 3, "fringes": 2}  # decimals that show 0.1 nm or so
 
 
 def convert(height_nm: float, units: str, wavelength_nm: float) -> float:
@@ -28,12 +31,8 @@ def fmt_height(
     if height_nm is None or not math.isfinite(height_nm):
         return "—"
     v = convert(height_nm, units, wavelength_nm)
-    sign = "+" if signed else ""
-    if units == "nm":
-        return f"{v:{sign}.1f} nm"
-    if units == "waves":
-        return f"{v:{sign}.3f} λ"
-    return f"{v:{sign}.2f} fr"
+    digits, label = UNIT_DIGITS[units], UNIT_LABELS[units]
+    return f"{format_number(v, digits, sign=signed)} {label}"
 
 
 def next_units(units: str) -> str:

@@ -288,7 +288,9 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
         if self.chosen_preset is not None and before is not None:
             # a preset picked in the station is for this session: remember the bench's own
             new = replace(new, wavelength_nm=before.wavelength_nm,
-                          diameter_mm=before.diameter_mm, n_terms=before.n_terms)
+                          diameter_mm=before.diameter_mm, n_terms=before.n_terms,
+                          wavelength_uncertainty_nm=before.wavelength_uncertainty_nm,
+                          reference_uncertainty_nm=before.reference_uncertainty_nm)
         if persist and self.config_path is not None:
             try:
                 save_settings(new, self.config_path)

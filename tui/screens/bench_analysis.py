@@ -23,6 +23,11 @@ __all__ = ["AnalysisProgress", "AnalysisRunner", "Job", "PhotoLoaded", "RERUN_DE
 RERUN_DELAY_S = 0.4  # let a burst of aperture keys settle before measuring again
 
 
+def _first_set(*values):
+    """The first value that is not None (0 is a value: a stated zero uncertainty)."""
+    return next(v for v in values if v is not None)
+
+
 @dataclass(frozen=True)
 class Job:
     token: int
@@ -79,10 +84,17 @@ class AnalysisRunner:
             diameter_mm=own.get("diameter_mm") or s.diameter_mm,
             aperture=e.aperture,
             exclusions=tuple(e.exclusions),
+            wavelength_uncertainty_nm=float(
+                _first_set(own.get("wavelength_uncertainty_nm"), s.wavelength_uncertainty_nm)),
+            reference_uncertainty_nm=float(
+                _first_set(own.get("reference_uncertainty_nm"), s.reference_uncertainty_nm)),
         )
 
     def start_analysis(self, index: int) -> None:
-        """Measure photo ``index`` now, cancelling whatever is running."""
+        """Measure photo ``index`` now, cancelling whatever is running or waiting to run."""
+        if self._rerun_timer is not None:  # a re-run this one makes redundant
+            self._rerun_timer.stop()
+            self._rerun_timer = None
         if self._cancel is not None:
             self._cancel.set()
             for job in self._jobs.values():

@@ -9,12 +9,14 @@ from pathlib import Path
 from textual import work
 from textual.worker import Worker, WorkerState
 
+from ..report_text import VERDICT_WORDS
 from ..station_backend import describe_error
 from ..station_log import entry_options, read_log, record_result
 from ..station_state import QueueEntry
 from ..widgets.trend_view import TREND_FIGURES
 
 __all__ = ["RecordActions"]
+
 
 
 class RecordActions:
@@ -46,6 +48,8 @@ class RecordActions:
         """Judge and log entry ``index``'s fresh measurement (in a worker: SQLite may wait)."""
         e = self.entries[index]
         options = entry_options(self.recorder, self.photo_preset(e), e.path)
+        if options.decision is None:  # neither the command line nor the preset: the station's
+            options.decision = self.settings.decision
         self._record(index, copy.copy(e), options)  # a copy: the entry may change meanwhile
 
     @work(thread=True, exit_on_error=False, group="record")
@@ -68,6 +72,7 @@ class RecordActions:
         if outcome is None or e.measurement is not measurement:
             return  # no records in this build, or the photo was measured again meanwhile
         e.verdict, e.record_id, e.log_error = outcome.verdict, outcome.record_id, outcome.error
+        e.spec = outcome.record.get("spec")
         if outcome.error:
             self.notify(outcome.error, severity="error", timeout=10)
         part = self.part_of(e)
@@ -81,14 +86,18 @@ class RecordActions:
             self.reload_log()
 
     def verdict_text(self, e: QueueEntry) -> str:
-        """`` · pass`` / `` · FAIL`` and the record id, for the status line."""
+        """`` · pass``, `` · FAIL`` or `` · INCONCLUSIVE`` and the record id, for the status line.
+
+        The figures view (5) gives each limit with its margin and U.
+        """
         if e.verdict is None and e.record_id is None and not e.log_error:
             return ""
         out = ""
         if e.verdict is not None:
             spec = self.photo_preset(e)
             text = self.recorder.options.get("spec") or (spec.tolerance if spec else None)
-            out += f" · {'pass' if e.verdict == 'pass' else 'FAIL'} {text or ''}".rstrip()
+            word = VERDICT_WORDS.get(e.verdict, e.verdict)
+            out += f" · {word} {text or ''}".rstrip()
         if e.record_id is not None:
             out += f" · record {e.record_id}"
         elif e.log_error:
@@ -167,7 +176,9 @@ class RecordActions:
         self.chosen_preset = preset
         if preset is not None:
             changes = {"wavelength_nm": preset.wavelength_nm, "diameter_mm": preset.diameter_mm,
-                       "n_terms": preset.zernike_terms}
+                       "n_terms": preset.zernike_terms,
+                       "wavelength_uncertainty_nm": preset.wavelength_uncertainty_nm,
+                       "reference_uncertainty_nm": preset.reference_uncertainty_nm}
             new = replace(new, **{k: v for k, v in changes.items() if v is not None})
         for e in self.entries:
             if e.state != "error" or e.pixels is not None:

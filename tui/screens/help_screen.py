@@ -49,8 +49,9 @@ class HelpScreen(ModalScreen[None]):
                 Text(
                     "ctrl+p finds any action by name. Mouse: click a tab or a photo; a "
                     "click on the fringes moves the outline being edited. Queue: P pass, "
-                    "F fail against the tolerance (bold: measured now; plain: the part's "
-                    "last verdict in the inspection log); ▸ marked for g or n.",
+                    "F fail, I inconclusive (guarded rule: within U of a limit) against the "
+                    "tolerance (bold: measured now; plain: the part's last verdict in the "
+                    "inspection log); ▸ marked for g or n.",
                     style="dim",
                 )
             )

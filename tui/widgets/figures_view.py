@@ -8,9 +8,11 @@ from rich.text import Text
 from textual.containers import VerticalScroll
 from textual.widgets import Static
 
+from ...analysis.formatting import printable
 from ...analysis.zernike import term_name
-from ..render.summary import figure_rows, zernike_rows
+from ..render.summary import figure_rows, uncertainty_text, zernike_rows
 from ..render.units import fmt_height
+from ..report_text import limit_lines, verdict_text
 from ..safe_text import literal
 from ..station_state import QueueEntry, ViewContext
 
@@ -59,12 +61,14 @@ class FiguresView(VerticalScroll, can_focus=True):
         main = Table(box=None, show_header=False, padding=(0, 1), expand=False)
         main.add_column("figure", style="bold")
         main.add_column("value", justify="right")
+        main.add_column("U", justify="right", style="dim")
         for name, value in figure_rows(figures, units=ctx.units, wavelength_nm=wl):
-            main.add_row(name, value)
+            main.add_row(name, value,
+                         uncertainty_text(figures, name, units=ctx.units, wavelength_nm=wl))
         title = Text.assemble((e.name, "bold"), (f"   λ {wl:g} nm, {ctx.units}", "dim"))
         removed = sorted(set(figures.removed_terms) - {1, 2, 3})
         names = ["piston", "tilt", *dict.fromkeys(term_name(j).split(" ")[0] for j in removed)]
-        note = Text(f"terms out: {', '.join(names)}   (u: units)", style="dim")
+        note = Text(f"terms out: {', '.join(names)}; ± U (k = 2)   (u: units)", style="dim")
         zt = Table(box=None, padding=(0, 1), header_style="bold", expand=False)
         zt.add_column("j", justify="right")
         zt.add_column("term")
@@ -78,6 +82,12 @@ class FiguresView(VerticalScroll, can_focus=True):
             style="dim",
         )
         parts = [title, note, main]
+        if e.spec:
+            rule = e.spec.get("decision_rule") or "simple"
+            parts += [Text.assemble("tolerance ", printable(e.spec.get("tolerance") or ""),
+                                    f" ({rule}): ", verdict_text(e.spec.get("verdict"),
+                                                                 upper=True)),
+                      *limit_lines(e.spec)]
         if m.warnings:
             parts += [literal("! " + w, "#ffc440") for w in m.warnings]
         parts += [Text(""), fit, zt]

@@ -16,14 +16,16 @@ __all__ = ["PhotoQueue", "VERDICT_TAGS", "entry_prompt"]
 VERDICT_TAGS = {
     "pass": ("P", "bold #7fd67f", "#4f8f4f"),
     "fail": ("F", "bold #ffffff on #b0304a", "#ff6e8a"),
+    "inconclusive": ("I", "bold #1a1a1a on #ffc440", "#ffc440"),
 }
 
 
 def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: int) -> Text:
     """One queue line: state glyph, mark, photo name (cut to fit), PV, verdict tag.
 
-    The verdict tag is P (pass) or F (fail): bold for this session's measurement, plain
-    for the part's last verdict in the inspection log.
+    The verdict tag is P (pass), F (fail) or I (inconclusive under the guarded decision
+    rule): bold for this session's measurement, plain for the part's last verdict in the
+    inspection log.
     """
     glyph, _, style = STATE_LABELS[entry.state]
     if entry.state in ("ok", "warning") and entry.measurement is not None:

@@ -25,8 +25,8 @@ def auto_figure(rows: list[dict]) -> str:
 
 
 def pass_rate(rows: list[dict]) -> tuple[int, int]:
-    """``(passed, judged)`` over the records that had a tolerance."""
-    judged = [r for r in rows if r.get("verdict") in ("pass", "fail")]
+    """``(passed, judged)`` over the records that had a tolerance (inconclusive: not passed)."""
+    judged = [r for r in rows if r.get("verdict") in ("pass", "fail", "inconclusive")]
     return sum(r["verdict"] == "pass" for r in judged), len(judged)
 
 
@@ -72,13 +72,14 @@ class TrendView(StationView):
             text.highlight_regex(r"-+", "#ffc440")
             text.highlight_regex(r"o", "#7fd67f")
             text.highlight_regex(r"x", "bold #ff6e8a")
+            text.highlight_regex(r"\?", "bold #ffc440")
             out.append(label + bar, style="dim")
             out.append_text(text)
             out.append("\n")
         passed, judged = pass_rate(rows)
         rate = (f"pass rate {passed}/{judged} ({100.0 * passed / judged:.0f} %)"
                 if judged else "pass rate: no record had a tolerance")
-        out.append("o pass  x fail  * no tolerance\n", style="dim")
+        out.append("o pass  x fail  ? inconclusive  * no tolerance\n", style="dim")
         out.append(f"--- {note}\n"[: max(10, w)], style="dim")
         out.append(rate, style="bold")
         return out

@@ -1,0 +1,131 @@
+"""How ``measure`` prints a record: figures with their U, verdicts, widths, names as written.
+
+The records come from the library's own ``measurement_to_record`` over a stand-in
+measurement (station_fakes: a known Zernike surface, no Fourier analysis), so they carry
+every field a real record does.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+
+import pytest
+from flatsight.analysis.tolerances import evaluate, parse_tolerance, spec_section
+from flatsight.tui.report_text import Reporter
+from rich.console import Console
+from station_fakes import fake_backend, write_photos
+
+
+@pytest.fixture(scope="module")
+def record(tmp_path_factory):
+    from flatsight.analysis.pipeline import MeasureSettings
+
+    folder = tmp_path_factory.mktemp("photos")
+    photo = write_photos(folder, ["BW-FL-0412.png"])[0]
+    backend, _ = fake_backend()
+    m = backend.measure(photo, MeasureSettings(wavelength_nm=632.8, diameter_mm=100.0))
+    return backend.to_record(m)
+
+
+def judged(record, tolerance, decision):
+    out = dict(record)
+    out["spec"] = spec_section(evaluate(parse_tolerance(tolerance), out, decision=decision))
+    return out
+
+
+def printed(records, *, width, detail):
+    buf = io.StringIO()
+    reporter = Reporter(mode="table", detail=detail, stream=buf)
+    reporter.console = Console(file=buf, width=width, highlight=False, color_system=None)
+    for r in records:
+        reporter.emit(r)
+    reporter.finish()
+    return buf.getvalue()
+
+
+def test_detail_gives_each_figure_with_its_u(record):
+    out = printed([record], width=80, detail=True)
+    assert "± U nm" in out and "expanded uncertainty (k = 2)" in out
+    pv_line = next(line for line in out.splitlines() if line.startswith("PV "))
+    assert f"{record['pv_nm']:.1f}" in pv_line
+    assert f"{record['uncertainty']['pv_nm']:.1f}" in pv_line
+    for label in ("C (symmetric irreg.)", "RMSi", "RMSa"):
+        assert label in out
+
+
+def test_an_inconclusive_verdict_names_the_rule_the_limit_and_the_margin(record):
+    pv, u = record["pv_nm"], record["uncertainty"]["pv_nm"]
+    limit = round(pv + u / 2, 1)  # within U of the value: inconclusive (ISO 14253-1, guarded)
+    out = printed([judged(record, f"pv<={limit}nm", "guarded")], width=80, detail=True)
+    assert f"tolerance pv<={limit}nm (guarded decision rule): INCONCLUSIVE" in out
+    line = [line for line in out.splitlines() if line.startswith("PV ")][-1]  # the limit's
+    assert line.split()[-1] == "INCONCLUSIVE"
+    assert f"≤ {limit:.1f} nm" in line
+    assert f"+{limit - pv:.1f} nm" in line  # the margin: limit minus value (ISO 14999-4)
+    assert "pass when value + U is within the limit" in " ".join(out.split())
+    out = printed([judged(record, f"pv<={limit}nm", "simple")], width=80, detail=True)
+    assert "(simple decision rule): PASS" in out
+
+
+@pytest.mark.parametrize("width", [80, 120])
+def test_batch_table_fits_and_never_cuts_a_number(record, width):
+    others = []
+    for k, name in enumerate(["BW-FL-0412_mercury.jpg", "a-rather-long-photo-name-from-a-"
+                              "camera_0001.png"]):
+        r = dict(record, photo=f"shots/{name}", pv_nm=1234.5 + k,
+                 power_nm=-987.6, uncertainty={**record["uncertainty"], "pv_nm": 123.4})
+        others.append(judged(r, "pv<=1250nm", "guarded"))
+    out = printed([record, *others], width=width, detail=False)
+    lines = out.splitlines()
+    assert max(len(line) for line in lines) <= width
+    assert "…" not in out
+    for number in ("1234.5", "1235.5", "-987.6", "±123.4", "INCONCLUSIVE",
+                   f"±{record['uncertainty']['rms_nm']:.1f}"):
+        assert number in out, number
+    assert ("PVr" in out and "waves" in out) == (width >= 100)  # the extra column when wide
+    # below the table, what decided each verdict that is not a pass: limit and margin
+    flat = " ".join(out.split())
+    assert ("BW-FL-0412_mercury.jpg: PV: INCONCLUSIVE 1234.5 ± 123.4 nm ≤ 1250.0 nm, "
+            "margin +15.5 nm") in flat
+
+
+def test_a_narrow_terminal_gets_blocks_not_cut_numbers(record):
+    r = dict(record, pv_nm=1234.5, uncertainty={**record["uncertainty"], "pv_nm": 123.4})
+    out = printed([record, r], width=44, detail=False)
+    assert "…" not in out and "1234.5 ±123.4" in out
+    assert max(len(line) for line in out.splitlines()) <= 44
+
+
+def test_no_signed_zero_anywhere(record):
+    # a fitted term a hair below zero is written 0.00, never -0.00 (analysis/formatting.py)
+    z = dict(record["zernike"])
+    z["coefficients_nm"] = [-1e-9, -0.0001, -0.004, *z["coefficients_nm"][3:]]
+    r = dict(record, zernike=z, power_nm=-0.01, power_waves=-0.00001, power_fringes=-0.00003,
+             rms_asymmetric_nm=-0.0)
+    for detail in (True, False):
+        out = printed([judged(r, "power<=1nm", "guarded")], width=100, detail=detail)
+        assert not re.search(r"-0\.0+(?![0-9])", out), out
+
+
+def test_names_are_printed_literally(record):
+    # a file name or part is shown as written: Rich markup is not obeyed, control
+    # characters are shown escaped (analysis/formatting.py, printable)
+    r = dict(record, photo="shots/[bold]BW-FL[red]\x1b[2J.png", part="[red]BW-FL-0412")
+    for detail in (True, False):
+        out = printed([r], width=130, detail=detail)
+        assert "[bold]BW-FL[red]\\x1b[2J.png" in out
+        assert "\x1b" not in out
+    assert "[red]BW-FL-0412" in printed([r], width=100, detail=True)
+
+
+def test_a_watch_line_names_the_limit_that_decided(record):
+    from pathlib import Path
+
+    from flatsight.tui.cmd_watch import _line
+
+    r = dict(record, part="BW-FL-0412", uncertainty={**record["uncertainty"], "pv_nm": 5.0})
+    limit = round(r["pv_nm"] + 2.0, 1)  # within U = 5 nm: inconclusive (guarded)
+    line = _line(judged(r, f"pv<={limit}nm", "guarded"), Path("BW-FL-0412.png"))
+    assert line.endswith("INCONCLUSIVE (pv margin +2.0 nm, U 5.0 nm)")
+    assert _line(judged(r, "pv<=10000nm", "guarded"), Path("x.png")).rstrip().endswith("PASS")
