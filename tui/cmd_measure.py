@@ -34,7 +34,13 @@ gently (press lightly at the wedge's thin end, following your shop's procedure);
 if the fringes travel toward the bottom (right) of the photo instead of the top
 (left), the wedge runs the other way: add --invert.
 
-PHOTO may be a file (PNG, JPEG, TIFF), a folder (its photos) or a glob."""
+PHOTO may be a file (PNG, JPEG, TIFF), a folder (its photos) or a glob.
+
+Part: each photo is its own part, named by its file stem (BW-FL-0412_hene.png is
+part BW-FL-0412_hene), as in the station and in watch. --part ID names the part of
+one photo, or of an --average of several photos of one part (without --part, an
+average takes its first photo's stem); with several photos measured one by one it
+is a usage error (exit 2), since it would label every photo as one part."""
 
 EXAMPLES = """\
 examples:
@@ -153,6 +159,11 @@ def run(args: argparse.Namespace) -> int:
     for problem in problems:
         print(f"flatsight measure: error: {shown(problem)}", file=err)
         status = 2
+    if args.part and len(photos) > 1 and not args.average:
+        print(f"flatsight measure: error: --part {shown(args.part)} names one part, but "
+              f"{len(photos)} photos were given; leave --part out (each photo is then "
+              "named by its file stem), measure one photo, or add --average", file=err)
+        return 2
     if args.save_map and len(photos) > 1 and "{name}" not in args.save_map:
         print("flatsight measure: error: with several photos, put {name} in --save-map "
               "(e.g. maps/{name}.npy)", file=err)
@@ -172,9 +183,15 @@ def run(args: argparse.Namespace) -> int:
 
     log_failed = False  # after the log refused a record, the rest are shown unlogged
 
-    def report(item, photo: str, opts: argparse.Namespace) -> int:
-        """Record, save, judge and print one result; returns its exit status."""
+    def report(item, photo: str, opts: argparse.Namespace, part_of: str) -> int:
+        """Record, save, judge and print one result; returns its exit status.
+
+        The part is ``--part``, else the file stem of ``part_of`` (the photo, or an
+        average's first photo), as the station and ``watch`` name parts.
+        """
         nonlocal log_failed
+        if not opts.part:
+            opts = argparse.Namespace(**{**vars(opts), "part": Path(part_of).stem})
         m = item.measurement
         record = measurement_to_record(m, ordering=args.ordering)
         record.update(item.sections)
@@ -227,7 +244,7 @@ def run(args: argparse.Namespace) -> int:
                     collected.append(m)
                     continue
                 for item in combine_with_sections(opts, [m]):
-                    status = max(status, report(item, photo, opts))
+                    status = max(status, report(item, photo, opts, photo))
             except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
                 progress.pause()
                 status = max(status, one_line(exc, photo))
@@ -243,7 +260,7 @@ def run(args: argparse.Namespace) -> int:
         try:
             opts = photo_args(collected[0].photo)[0] if per_photo else args
             for item in combine_with_sections(opts, collected):
-                status = max(status, report(item, name, opts))
+                status = max(status, report(item, name, opts, collected[0].photo))
         except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
             status = max(status, one_line(exc, name))
     reporter.finish()

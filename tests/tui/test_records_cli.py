@@ -178,3 +178,41 @@ def test_finish_record_leaves_its_input_alone(tmp_path):
     assert record == {"photo": "x.png", "wavelength_nm": 632.8, "pv_nm": 12.0}
     assert status == 1 and out["spec"]["verdict"] == "fail" and out["record_id"] == 1
     assert inspection_log.get(tmp_path / "l.sqlite", 1)["pv_nm"] == 12.0
+
+
+def test_measure_names_each_photos_part_after_its_file_as_the_station_does(photos, tmp_path,
+                                                                           capsys):
+    # issue 9 item 2: measure logged no part, so history --part never found CLI records
+    good, bad = photos
+    log = tmp_path / "log.sqlite"
+    status, out, _ = run_cli(capsys, "measure", good, bad, "-w", "632.8", "--log", log,
+                             "--json")
+    assert status == 0
+    assert [json.loads(line)["part"] for line in out.splitlines()] == ["BW-FL-0412",
+                                                                       "BW-FL-0413"]
+    status, out, _ = run_cli(capsys, "history", "--log", log, "--part", "BW-FL-0413",
+                             "--json")
+    assert status == 0 and [json.loads(line)["part"] for line in out.splitlines()] == [
+        "BW-FL-0413"]
+
+
+def test_one_part_for_several_photos_is_a_usage_error_unless_averaged(photos, tmp_path,
+                                                                      capsys):
+    # issue 9 item 2: --part with a batch labelled every photo with one part, silently
+    good, bad = photos
+    log = tmp_path / "log.sqlite"
+    status, out, err = run_cli(capsys, "measure", good, bad, "-w", "632.8", "--log", log,
+                               "--part", "BW-FL-0412")
+    assert status == 2 and out == ""
+    assert len(err.strip().splitlines()) == 1 and "--part" in err and "--average" in err
+    assert not log.exists()
+    status, out, _ = run_cli(capsys, "measure", good, good, "-w", "632.8", "--log", log,
+                             "--part", "BW-FL-0412", "--average", "--json")
+    assert status == 0 and json.loads(out)["part"] == "BW-FL-0412"
+
+
+def test_an_average_without_part_takes_its_first_photos(photos, tmp_path, capsys):
+    good, _ = photos
+    status, out, _ = run_cli(capsys, "measure", good, good, "-w", "632.8", "--no-log",
+                             "--average", "--json")
+    assert status == 0 and json.loads(out)["part"] == "BW-FL-0412"
