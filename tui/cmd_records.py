@@ -335,6 +335,13 @@ def run_report(args: argparse.Namespace) -> int:
     except OSError as exc:
         return _fail("report", SettingsError(f"cannot write {out}: {exc.strerror or exc}"))
     verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
-    print(shown(f"wrote {out} (record {args.record_id}, {rec.get('part') or 'no part'}, "
-                f"{verdict})"))
+    # say what the certificate was made from: a record read from the wrong log, or an
+    # old record of the same part, is then seen at once
+    log = _log_path(args)
+    which = f"{log}" if args.log else f"{log} (the default log; --log PATH for another)"
+    when = (rec.get("logged_utc") or "")[:16].replace("T", " ")
+    photo = Path(rec.get("photo") or "").name or "no photo"
+    print(shown(f"wrote {out} from record {args.record_id} of {which}: part "
+                f"{rec.get('part') or '(none)'}, photo {photo}, logged {when or '?'} UTC, "
+                f"{verdict}"))
     return 0

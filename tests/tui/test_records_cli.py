@@ -216,3 +216,19 @@ def test_an_average_without_part_takes_its_first_photos(photos, tmp_path, capsys
     status, out, _ = run_cli(capsys, "measure", good, good, "-w", "632.8", "--no-log",
                              "--average", "--json")
     assert status == 0 and json.loads(out)["part"] == "BW-FL-0412"
+
+
+def test_report_says_which_log_record_part_and_photo_it_used(filled_log, tmp_path, capsys,
+                                                            monkeypatch):
+    # issue 9 item 3: without --log, report silently read the default log and wrote a
+    # certificate for a part from an earlier day
+    monkeypatch.setattr(inspection_log, "default_log_path", lambda: filled_log)
+    html_out = tmp_path / "cert.html"
+    status, out, _ = run_cli(capsys, "report", "2", "--output", html_out)
+    assert status == 0
+    rec = inspection_log.get(filled_log, 2)
+    assert str(filled_log) in out and "default log" in out
+    assert "record 2" in out and "part BW-FL-0413" in out and "photo BW-FL-0413.png" in out
+    assert rec["logged_utc"][:16].replace("T", " ") in out
+    status, out, _ = run_cli(capsys, "report", "2", "--log", filled_log, "--output", html_out)
+    assert status == 0 and str(filled_log) in out and "default log" not in out
