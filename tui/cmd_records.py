@@ -68,8 +68,9 @@ def add_parser(subparsers) -> None:
     _log_option(t)
     t.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
     t.add_argument("--part", metavar="ID", help="only this part")
-    t.add_argument("--figure", default="pvr_nm", choices=TREND_FIGURES,
-                   help="figure to plot (default pvr_nm)")
+    t.add_argument("--figure", default=None, choices=TREND_FIGURES,
+                   help="figure to plot (default: the one the latest record's tolerance "
+                        "limits first, as in the station; pvr_nm without a tolerance)")
     t.add_argument("--height", type=height_type, default=12,
                    help="plot rows (4 to 500, default 12)")
     t.set_defaults(records_command="trend", run=run_trend)
@@ -267,6 +268,18 @@ def _limits_for(rec: dict, figure: str) -> tuple[list[float], str]:
                    f"({tight.get('name')} of {spec.get('tolerance')})")
 
 
+def limited_figure(rows: list[dict], figures=TREND_FIGURES) -> str:
+    """The figure the newest record's tolerance limits first (power for ISO 3/A(B)), else PVr.
+
+    ``rows`` newest first, as :func:`~flatsight.analysis.inspection_log.query` gives them.
+    """
+    for row in rows:
+        for limit in (row.get("spec") or {}).get("limits", []):
+            if limit.get("figure") in figures:
+                return limit["figure"]
+    return "pvr_nm"
+
+
 def run_trend(args: argparse.Namespace) -> int:
     """``flatsight trend``: one figure over time, its tolerance line, the pass rate."""
     from ..analysis.inspection_log import query
@@ -275,21 +288,26 @@ def run_trend(args: argparse.Namespace) -> int:
         rows = query(_log_path(args), part=args.part, since=args.since)
     except FlatsightError as exc:
         return _fail("trend", exc)
+    chosen = args.figure is None
+    figure = limited_figure(rows) if chosen else args.figure
     rows = rows[::-1]  # oldest first
-    points = [(_parse_time(r["logged_utc"]), float(r[args.figure]), r.get("verdict"))
-              for r in rows if isinstance(r.get(args.figure), int | float)]
+    points = [(_parse_time(r["logged_utc"]), float(r[figure]), r.get("verdict"))
+              for r in rows if isinstance(r.get(figure), int | float)]
     from rich.console import Console
     from rich.text import Text
 
     console = Console(highlight=False)
     if not points:
-        console.print(f"no records with {args.figure} match", style="dim")
+        console.print(f"no records with {figure} match", style="dim")
         return 0
-    limits, limit_note = _limits_for(rows[-1], args.figure)
+    limits, limit_note = _limits_for(rows[-1], figure)
     width = min(console.width if console.is_terminal else shutil.get_terminal_size().columns,
                 120)
-    console.print(literal(f"{args.figure} over time: {len(points)} records"
+    console.print(literal(f"{figure} over time: {len(points)} records"
                           + (f", part {args.part}" if args.part else "")), style="bold")
+    if chosen and limits:
+        console.print("(the figure the latest record's tolerance limits first; --figure "
+                      "for another)", style="dim")
     for line in trend_lines(points, width=max(40, width), height=args.height,
                             limits_nm=limits):
         label, bar, body = line.partition("│")

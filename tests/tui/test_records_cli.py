@@ -232,3 +232,15 @@ def test_report_says_which_log_record_part_and_photo_it_used(filled_log, tmp_pat
     assert rec["logged_utc"][:16].replace("T", " ") in out
     status, out, _ = run_cli(capsys, "report", "2", "--log", filled_log, "--output", html_out)
     assert status == 0 and str(filled_log) in out and "default log" not in out
+
+
+def test_trend_starts_on_the_figure_the_tolerance_limits(filled_log, capsys, monkeypatch):
+    # issue 9 item 11: trend defaulted to pvr_nm even when the tolerance limits another
+    # figure; the station starts on the limited one. SPEC's first limit is ISO 10110-5's
+    # sagitta (power) error A, 3/1(-)
+    monkeypatch.setenv("COLUMNS", "80")
+    status, out, _ = run_cli(capsys, "trend", "--log", filled_log)
+    assert status == 0
+    assert out.splitlines()[0].startswith("power_nm over time")
+    assert out.splitlines()[1].startswith("(the figure the latest record's tolerance limits")
+    assert "no tolerance on this figure" not in out
