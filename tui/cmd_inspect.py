@@ -30,9 +30,10 @@ log, --log PATH, or none with --no-log. The part is --part, or else the photo's
 file stem (BW-FL-0412_hene.png is part BW-FL-0412_hene); the queue shows each
 part's verdict, P pass or F fail (bold: measured now; plain: the log's last).
 
-Settings changed in the station (wavelength, sign, diameter, terms, units) are
-remembered in station.toml in your user config folder; options given here win
-for this run and are remembered too.
+Settings changed in the station (wavelength, sign, terms, units) are remembered
+in station.toml in your user config folder; options given here win for this run
+and are remembered too. The diameter is the part's: give it with --diameter (or a
+preset) each run; it is never carried over to the next.
 
 Sign: Flatsight takes the air wedge to be wider toward the top of the photo, so
 the fringes travel up when the gap is gently closed (push test); if yours travel
