@@ -529,3 +529,19 @@ async def test_the_real_library_end_to_end(photo_set):
         await settle(pilot)
         shown = plain(bench.query_one("#surface-view"))
         assert "H" in shown and "L" in shown and "PV" in shown
+
+
+@sync
+async def test_at_start_the_arrow_keys_go_to_the_queue_not_the_aperture(tmp_path):
+    # issue 9 item 8: the focus started in the fringe view, so ↓ and → moved the aperture
+    # (and each nudge measured and logged the part again)
+    app, lib = make_app(tmp_path, names=PARTS[:2])
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        bench = app.screen
+        assert app.focused is bench.query_one("#queue")
+        await pilot.press("right", "down")
+        await settle(pilot, RERUN_DELAY_S + 0.2)
+        assert bench.current == 1
+        assert all(e.aperture is None for e in bench.entries)
+        assert all(settings.aperture is None for _, settings in lib.measured)
