@@ -7,7 +7,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from .options import EXIT_CODES, diameter_type, expand_photos, wavelength_type
+from .options import STATION_EXIT_CODES, diameter_type, expand_photos, wavelength_type
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -54,7 +54,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
         "inspect",
         help=HELP,
         description=DESCRIPTION,
-        epilog=EXAMPLES + "\n" + EXIT_CODES,
+        epilog=EXAMPLES + "\n" + STATION_EXIT_CODES,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument(

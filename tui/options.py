@@ -12,7 +12,8 @@ from .safe_text import shown
 __all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle", "wavelength_type",
            "circle_type", "diameter_type", "terms_type", "angle_type", "number_type",
            "whole_number_type", "seconds_type", "count_type",
-           "check_map_path", "MapNames", "EXIT_CODES"]
+           "check_map_path", "MapNames", "EXIT_CODES",
+           "NO_TOLERANCE_EXIT_CODES", "STATION_EXIT_CODES"]
 
 #: The largest coordinate or radius taken in pixels: no photo Flatsight reads is wider.
 MAX_PIXELS_ACROSS = 1_000_000
@@ -33,6 +34,20 @@ EXIT_CODES = """exit status:
   4  internal error (please report it with the photo)
   130 interrupted (ctrl+c)
 In a batch the highest status applies."""
+
+# commands that take no --spec (stack, absolute): no verdict, so no status 1
+NO_TOLERANCE_EXIT_CODES = """exit status:
+  0  measured
+  2  usage error, or a photo could not be read
+  3  the photos were read but could not be analysed
+  4  internal error (please report it with the photos)
+  130 interrupted (ctrl+c)"""
+
+# the station: verdicts are shown in it and logged, not given as the exit status
+STATION_EXIT_CODES = """exit status:
+  0  the station was closed (ctrl+q), whatever the verdicts: they are in the log
+  2  usage error, or none of the photos given could be found
+  4  internal error (please report it with the photo)"""
 
 
 def parse_wavelength(text: str) -> float:
