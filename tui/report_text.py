@@ -199,22 +199,32 @@ class Reporter:
     def finish(self) -> None:
         if self.mode != "table" or not self._rows:
             return
-        t = Table(header_style="bold", show_edge=False)
-        name_width = max(len(Path(r["photo"]).name) for r in self._rows)
-        t.add_column("photo", no_wrap=True, min_width=min(name_width, 40))
-        for col, just in [ ("λ nm", "right"), ("PV nm", "right"),
-                          ("RMS nm", "right"), ("PVr nm", "right"), ("PVr waves", "right"),
-                          ("power nm", "right"), ("irreg. nm", "right"), ("verdict", "left"),
-                          ("warn.", "right")]:
-            t.add_column(col, justify=just)
+        from rich import box
+
+        # no rules between columns and two-line headers: ten columns fit in 80
+        t = Table(header_style="bold", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
+                  padding=(0, 0, 0, 1))
+        rows = []
         for r in self._rows:
-            spec = r.get("spec") or {}
-            verdict = spec.get("verdict", "")
+            verdict = (r.get("spec") or {}).get("verdict", "")
+            rows.append((r, verdict, [
+                f"{r['wavelength_nm']:g}", _fmt(r["pv_nm"]), _fmt(r["rms_nm"]),
+                _fmt(r["pvr_nm"]), _fmt(r["pvr_waves"], 3), _fmt(r["power_nm"]),
+                _fmt(r["irregularity_nm"]), verdict, str(len(r.get("warnings", [])))]))
+        # a narrow terminal folds the photo's name, never a number or a verdict: a cut
+        # number (`58…`) reads as another number
+        t.add_column("photo", overflow="fold", min_width=12)
+        for k, (col, just) in enumerate([
+                ("λ\nnm", "right"), ("PV\nnm", "right"), ("RMS\nnm", "right"),
+                ("PVr\nnm", "right"), ("PVr\nwaves", "right"), ("power\nnm", "right"),
+                ("irreg.\nnm", "right"), ("verdict", "left"), ("warn.", "right")]):
+            widest = max([len(cells[k]) for _, _, cells in rows] + [len(w) for w in
+                                                                    col.split("\n")])
+            t.add_column(col, justify=just, no_wrap=True, min_width=widest)
+        for r, verdict, cells in rows:
             style = {"pass": "green", "fail": "bold red"}.get(verdict, "")
-            t.add_row(literal(Path(r["photo"]).name), f"{r['wavelength_nm']:g}", _fmt(r["pv_nm"]),
-                      _fmt(r["rms_nm"]), _fmt(r["pvr_nm"]), _fmt(r["pvr_waves"], 3),
-                      _fmt(r["power_nm"]), _fmt(r["irregularity_nm"]),
-                      literal(verdict, style), str(len(r.get("warnings", []))))
+            t.add_row(literal(Path(r["photo"]).name), *cells[:7], literal(verdict, style),
+                      cells[8])
         self.console.print(t)
         for r in self._rows:
             for w in r.get("warnings", []):

@@ -1,0 +1,39 @@
+"""The batch table of ``flatsight measure`` (tui/report_text.py) in a narrow terminal."""
+
+from __future__ import annotations
+
+import io
+import re
+
+from flatsight.tui.report_text import Reporter
+
+
+class Terminal(io.StringIO):
+    """A stream that says it is a terminal, so rich takes its width from COLUMNS."""
+
+    def isatty(self) -> bool:
+        return True
+
+
+def record(name: str, value: float, verdict: str) -> dict:
+    return {"photo": f"/shop/shots/{name}", "wavelength_nm": 546.07, "pv_nm": value,
+            "rms_nm": value / 5, "pvr_nm": value * 0.9, "pvr_waves": value / 546.07,
+            "power_nm": -value / 2, "irregularity_nm": value / 3,
+            "spec": {"verdict": verdict}, "warnings": ["a speck"]}
+
+
+def test_the_batch_table_never_cuts_a_number_at_80_columns(monkeypatch):
+    # issue 9, layout: at 80 columns the table showed `58…`, `-4…`, `fa…`
+    monkeypatch.setenv("COLUMNS", "80")
+    out = Terminal()
+    reporter = Reporter(mode="table", detail=False, stream=out)
+    names = ["BW-FL-0412_mercury.jpg", "BW-WN-0207_mercury-long-name-from-camera.tif"]
+    for name, value, verdict in zip(names, (312.345, 58.2), ("fail", "pass"), strict=True):
+        reporter.emit(record(name, value, verdict))
+    reporter.finish()
+    text = re.sub(r"\x1b\[[0-9;]*m", "", out.getvalue())  # rich's colours off
+    assert "…" not in text
+    assert max(len(line) for line in text.splitlines()) <= 80
+    for whole in ("312.3", "-156.2", "281.1", "0.572", "104.1", "58.2", "-29.1", "fail",
+                  "pass", "546.07"):
+        assert whole in text, whole
