@@ -153,15 +153,14 @@ def run_history(args: argparse.Namespace) -> int:
         return 0
     # who and where only when the terminal has room: the figures matter more at 80 columns
     people = console.width >= 120
-    table = Table(box=box.SIMPLE_HEAD, header_style="bold", pad_edge=False)
+    table = Table(box=box.SIMPLE_HEAD, header_style="bold", pad_edge=False, show_edge=False,
+                  padding=(0, 0, 0, 1))
     columns = [("id", "right"), ("time (UTC)", "left"), ("part", "left")]
     if people:
         columns += [("operator", "left"), ("station", "left")]
     columns += [("PV", "right"), ("PVr", "right"), ("power", "right"),
                 ("irreg.", "right"), ("verdict", "left")]
-    for name, justify in columns:
-        table.add_column(name, justify=justify, overflow="fold",
-                         no_wrap=name in ("time (UTC)", "part"))
+    body = []
     for rec in rows:
         verdict = rec.get("verdict")
         style = {"pass": "bold green", "fail": "bold red"}.get(verdict, "dim")
@@ -172,6 +171,15 @@ def run_history(args: argparse.Namespace) -> int:
             cells += [_cell(rec.get("operator")), _cell(rec.get("station"))]
         cells += [_cell(rec.get("pv_nm")), _cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
                   _cell(rec.get("irregularity_nm")), literal(verdict or "—", style)]
+        body.append(cells)
+    # names fold when the terminal (or a pipe's 80 columns) is narrow; the id, time,
+    # figures and verdict never break, so no number is read split in two
+    names = {"part", "operator", "station"}
+    for k, (name, justify) in enumerate(columns):
+        widest = max(len(str(cells[k])) for cells in body)
+        table.add_column(name, justify=justify, overflow="fold", no_wrap=name not in names,
+                         min_width=min(widest, 10) if name in names else max(widest, len(name)))
+    for cells in body:
         table.add_row(*cells)
     console.print(literal(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)"),
                   style="bold", overflow="fold")

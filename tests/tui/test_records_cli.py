@@ -244,3 +244,28 @@ def test_trend_starts_on_the_figure_the_tolerance_limits(filled_log, capsys, mon
     assert out.splitlines()[0].startswith("power_nm over time")
     assert out.splitlines()[1].startswith("(the figure the latest record's tolerance limits")
     assert "no tolerance on this figure" not in out
+
+
+def test_history_never_splits_a_number_at_80_columns_or_in_a_pipe(filled_log, tmp_path,
+                                                                  capsys, monkeypatch):
+    # issue 9, layout: history wrapped numbers mid-digit at 80 columns and always when
+    # piped (`flatsight history | cat`); a long part name must fold, not the figures
+    import shutil
+
+    log = tmp_path / "log.sqlite"
+    shutil.copy(filled_log, log)
+    rec = inspection_log.get(log, 2)
+    rec.update(pv_nm=12345.678, pvr_nm=11111.111, power_nm=-9876.543,
+               irregularity_nm=2222.222)
+    inspection_log.record_measurement(
+        log, rec, part="BW-FL-0412-a-very-long-part-name-from-the-shop-floor",
+        operator="Ruben Halloway-" + "x" * 40, station="bench-3-" + "y" * 40,
+        logged_utc=rec["logged_utc"])
+    for columns in ("80", "200"):
+        monkeypatch.setenv("COLUMNS", columns)
+        status, out, _ = run_cli(capsys, "history", "--log", log)  # capsys: not a terminal
+        assert status == 0
+        for whole in ("12345.7", "11111.1", "-9876.5", "2222.2",
+                      f"{inspection_log.get(log, 2)['pv_nm']:.1f}"):
+            assert whole in out, (columns, whole, out)
+        assert max(len(line) for line in out.splitlines()[1:]) <= int(columns)
