@@ -117,9 +117,11 @@ class _Progress:
             self._bar.update(self._task, description=f"{stage}")
 
     def pause(self) -> None:
-        # let a result or an error line print cleanly above the bar
+        # take the (transient) bar off the screen before a result or an error line prints:
+        # it lives on stderr, the result goes to stdout, and a bar left in place glues its
+        # last frame to the start of the result; start() brings it back for the next photo
         if self._bar is not None:
-            self._bar.refresh()
+            self._bar.stop()
 
     def stop(self) -> None:
         if self._bar is not None:

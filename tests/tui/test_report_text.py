@@ -37,3 +37,20 @@ def test_the_batch_table_never_cuts_a_number_at_80_columns(monkeypatch):
     for whole in ("312.3", "-156.2", "281.1", "0.572", "104.1", "58.2", "-29.1", "fail",
                   "pass", "546.07"):
         assert whole in text, whole
+
+
+def test_the_progress_bar_is_taken_off_the_screen_before_a_result_prints():
+    # issue 9, layout: `unwrap ━━━ 0/1 0:00:05sample_images/BW-FL-0412_hene.png …`: the
+    # bar (stderr) stayed on the line that the result (stdout) then printed onto
+    err = Terminal()
+    reporter = Reporter(mode="table", detail=True, stream=Terminal())
+    progress = reporter.progress(2, stream=err)
+    progress.start("BW-FL-0412_hene.png", 0)
+    progress.stage("unwrap", 0.5)
+    assert progress._bar.live.is_started
+    progress.pause()  # what measure calls before printing a result or an error line
+    assert not progress._bar.live.is_started
+    progress.start("BW-FL-0412_mercury.jpg", 1)  # and the bar comes back for the next
+    assert progress._bar.live.is_started
+    progress.stop()
+    assert not progress._bar.live.is_started
