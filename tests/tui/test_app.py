@@ -545,3 +545,19 @@ async def test_at_start_the_arrow_keys_go_to_the_queue_not_the_aperture(tmp_path
         assert bench.current == 1
         assert all(e.aperture is None for e in bench.entries)
         assert all(settings.aperture is None for _, settings in lib.measured)
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)])
+@sync
+async def test_no_key_of_the_footer_shows_past_the_palette_hint(tmp_path, size):
+    # issue 9, layout: `^p paletter`, `palettem`, `palette3`: a letter of the key row
+    # showed in the cell after the palette hint, in every view, at both sizes
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    async with app.run_test(size=size) as pilot:
+        await settle(pilot)
+        for view in ("", "1", "3", "6"):
+            if view:
+                await pilot.press(view)
+                await settle(pilot)
+            widget, _ = app.screen.get_widget_at(size[0] - 1, size[1] - 1)
+            assert widget.has_class("-command-palette"), (view, widget)
