@@ -173,6 +173,14 @@ class Reporter:
         if r.get("part"):
             head.append(f"   part {shown(r['part'])}")
         c.print(head)
+        ref = r.get("reference")
+        if ref:
+            # the figures are of the part alone only because this map came off them
+            covered = ref.get("covered_fraction")
+            c.print(literal(f"reference {Path(ref.get('path') or '?').name} subtracted "
+                            f"(map RMS {_fmt(ref.get('map_rms_nm'), 1)} nm"
+                            + (f", covering {100 * covered:.1f} % of the aperture)"
+                               if covered is not None else ")")))
         c.print(figures_table(r))
         c.print()
         c.print(zernike_table(r))

@@ -54,3 +54,17 @@ def test_the_progress_bar_is_taken_off_the_screen_before_a_result_prints():
     assert progress._bar.live.is_started
     progress.stop()
     assert not progress._bar.live.is_started
+
+
+def test_a_subtracted_reference_is_named_in_the_table_output(measured):
+    # issue 9 item 13: `--reference` output did not say a reference was subtracted
+    from flatsight.analysis.record import measurement_to_record
+
+    out = Terminal()
+    reporter = Reporter(mode="table", detail=True, stream=out)
+    r = measurement_to_record(measured)
+    r["reference"] = {"path": "/shop/maps/BW-REF-01.npy", "sha256": "ab" * 32,
+                      "map_rms_nm": 3.125, "covered_fraction": 0.987}
+    reporter.emit(r)
+    text = re.sub(r"\x1b\[[0-9;]*m", "", out.getvalue())
+    assert "reference BW-REF-01.npy subtracted" in text and "98.7 %" in text
