@@ -46,7 +46,7 @@ def figures_table(record: dict) -> Table:
     t.add_column("figure")
     t.add_column("nm", justify="right")
     t.add_column(f"waves @{lam:g}", justify="right")
-    t.add_column("fringes", justify="right")
+    t.add_column(f"fringes @{lam:g}", justify="right")  # at the test wavelength
     report = record.get("report_waves")
     if report:
         t.add_column(f"waves @{report['wavelength_nm']:g}", justify="right")

@@ -68,3 +68,14 @@ def test_a_subtracted_reference_is_named_in_the_table_output(measured):
     reporter.emit(r)
     text = re.sub(r"\x1b\[[0-9;]*m", "", out.getvalue())
     assert "reference BW-REF-01.npy subtracted" in text and "98.7 %" in text
+
+
+def test_the_fringe_column_says_its_wavelength(measured):
+    # issue 9 item 10: fringes are counted at the test wavelength, ISO 3/A(B) limits at
+    # 546.07 nm; the table must say which
+    from flatsight.analysis.record import measurement_to_record
+    from flatsight.tui.report_text import figures_table
+
+    r = measurement_to_record(measured)
+    headers = [str(c.header) for c in figures_table(r).columns]
+    assert f"fringes @{r['wavelength_nm']:g}" in headers
