@@ -10,30 +10,13 @@ from textual.widgets.option_list import Option
 from ..render.units import fmt_height
 from ..station_state import STATE_LABELS, QueueEntry
 
-__all__ = ["PhotoQueue", "VERDICT_TAGS", "entry_prompt", "fit_name"]
+__all__ = ["PhotoQueue", "VERDICT_TAGS", "entry_prompt"]
 
 # verdict -> (tag, style of this session's verdict, style of the log's last one)
 VERDICT_TAGS = {
     "pass": ("P", "bold #7fd67f", "#4f8f4f"),
     "fail": ("F", "bold #ffffff on #b0304a", "#ff6e8a"),
 }
-
-
-def fit_name(name: str, room: int) -> str:
-    """``name`` in ``room`` columns: whole, or its suffix dropped and its middle cut.
-
-    Photos of one part differ at the end of their names (``_hene``/``_mercury``,
-    ``frame-1``/``frame-2``), so the end is kept and the middle gives way.
-    """
-    if len(name) <= room:
-        return name
-    stem, dot, suffix = name.rpartition(".")
-    if dot and stem and len(suffix) <= 5:
-        name = stem  # the suffix says least about which photo this is
-        if len(name) <= room:
-            return name
-    tail = room // 2
-    return name[: room - 1 - tail] + "…" + name[len(name) - tail:]
 
 
 def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: int) -> Text:
@@ -55,11 +38,7 @@ def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: 
     verdict, fresh = entry.shown_verdict
     tag = VERDICT_TAGS.get(verdict)
     room = max(4, width - 3 - len(figure) - (2 if tag else 0) - (1 if entry.marked else 0))
-    if entry.kind != "photo":  # "avg×3 name": the count says what it is; keep it whole
-        count, _, rest = entry.name.partition(" ")
-        name = count + " " + fit_name(rest, max(3, room - len(count) - 1))
-    else:
-        name = fit_name(entry.name, room)
+    name = entry.name if len(entry.name) <= room else entry.name[: room - 1] + "…"
     line = Text()
     line.append(glyph + " ", style=style)
     if entry.marked:
