@@ -22,6 +22,7 @@ __all__ = [
     "LAB_TABLE",
     "NO_DATA_RGB",
     "RGB_TABLE",
+    "sequential_rgb",
     "diverging_rgb",
     "lab_to_srgb",
 ]
@@ -124,3 +125,27 @@ def diverging_rgb(values: np.ndarray, vmin: float, vmax: float) -> np.ndarray:
     out = RGB_TABLE[idx]
     out[missing] = NO_DATA_RGB
     return out
+
+
+def sequential_rgb(values: np.ndarray, vmin: float, vmax: float) -> np.ndarray:
+    """Colours of ``values`` on a sequential map: light at ``vmin``, darkest at ``vmax``.
+
+    For magnitudes that are never negative (a spread, an RMS): the amber half of the
+    diverging map, whose CIELAB lightness falls steadily from its light neutral, so the
+    scale has no middle that reads as zero. Arguments, clipping and the NaN colour as in
+    :func:`diverging_rgb`.
+    """
+    t, missing = _fraction(values, vmin, vmax)
+    half = (TABLE_SIZE - 1) // 2
+    out = RGB_TABLE[half + np.rint(np.where(missing, 0.0, t) * half).astype(int)]
+    out[missing] = NO_DATA_RGB
+    return out
+
+
+def _fraction(values, vmin: float, vmax: float) -> tuple[np.ndarray, np.ndarray]:
+    """``values`` as fractions of ``[vmin, vmax]`` clipped to 0..1, and where they are NaN."""
+    if not vmax > vmin:
+        raise ValueError(f"colour range needs vmin < vmax, got {vmin} and {vmax}")
+    t = (np.asarray(values, dtype=float) - vmin) / (vmax - vmin)
+    missing = ~np.isfinite(t)
+    return np.clip(np.where(missing, 0.0, t), 0.0, 1.0), missing

@@ -8,7 +8,13 @@ import sys
 from pathlib import Path
 
 from ..analysis.formatting import format_number
-from .options import EXIT_CODES, angle_type, diameter_type, terms_type, wavelength_type
+from .options import (
+    NO_TOLERANCE_EXIT_CODES,
+    angle_type,
+    diameter_type,
+    terms_type,
+    wavelength_type,
+)
 from .safe_text import shown
 
 HELP = "absolute three-flat test: each flat's own shape from the pair photos"
@@ -53,7 +59,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
         "absolute",
         help=HELP,
         description=DESCRIPTION,
-        epilog=EXAMPLES + "\n" + EXIT_CODES,
+        epilog=EXAMPLES + "\n" + NO_TOLERANCE_EXIT_CODES,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument("--ab", required=True, metavar="PHOTO", help="A with B turned over on it")

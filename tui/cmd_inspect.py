@@ -7,7 +7,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from .options import diameter_type, expand_photos, wavelength_type
+from .options import STATION_EXIT_CODES, diameter_type, expand_photos, wavelength_type
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -33,10 +33,11 @@ figure within its uncertainty of a limit), bold for the measurement in hand and
 plain for the log's last. The figures view gives each figure with its expanded
 uncertainty U (k = 2).
 
-Settings changed in the station (wavelength, sign, diameter, terms, units) are
-remembered in station.toml in your user config folder, with --decision,
---wavelength-uncertainty and --reference-uncertainty; options given here win
-for this run and are remembered too.
+Settings changed in the station (wavelength, sign, terms, units) are remembered
+in station.toml in your user config folder, with --decision,
+--wavelength-uncertainty and --reference-uncertainty; options given here win for
+this run and are remembered too. The diameter is the part's: give it with
+--diameter (or a preset) each run; it is never carried over to the next.
 
 Sign: Flatsight takes the air wedge to be wider toward the top of the photo, so
 the fringes travel up when the gap is gently closed (push test); if yours travel
@@ -51,21 +52,13 @@ examples:
 """
 
 
-# the station's verdicts are on its screen and in the log, not in its exit status
-EXIT_CODES = """exit status:
-  0  the station was closed (each verdict is in the queue and the inspection log)
-  2  usage error: a bad option, preset, tolerance or settings value, or no photos
-  4  internal error (please report it)
-  130 interrupted (ctrl+c)"""
-
-
 def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     """Add the ``inspect`` subcommand to ``sub``."""
     p = sub.add_parser(
         "inspect",
         help=HELP,
         description=DESCRIPTION,
-        epilog=EXAMPLES + "\n" + EXIT_CODES,
+        epilog=EXAMPLES + "\n" + STATION_EXIT_CODES,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument(

@@ -46,7 +46,13 @@ table shows it as value ± U. With --spec, --decision guarded passes a part only
 when each figure plus its U is within its limit, fails it when the figure minus U
 is beyond, and calls it inconclusive (exit status 5) in between.
 
-PHOTO may be a file (PNG, JPEG, TIFF), a folder (its photos) or a glob."""
+PHOTO may be a file (PNG, JPEG, TIFF), a folder (its photos) or a glob.
+
+Part: each photo is its own part, named by its file stem (BW-FL-0412_hene.png is
+part BW-FL-0412_hene), as in the station and in watch. --part ID names the part of
+one photo, or of an --average of several photos of one part (without --part, an
+average takes its first photo's stem); with several photos measured one by one it
+is a usage error (exit 2), since it would label every photo as one part."""
 
 EXAMPLES = """\
 examples:
@@ -172,6 +178,11 @@ def run(args: argparse.Namespace) -> int:
     for problem in problems:
         print(f"flatsight measure: error: {shown(problem)}", file=err)
         status = 2
+    if args.part and len(photos) > 1 and not args.average:
+        print(f"flatsight measure: error: --part {shown(args.part)} names one part, but "
+              f"{len(photos)} photos were given; leave --part out (each photo is then "
+              "named by its file stem), measure one photo, or add --average", file=err)
+        return 2
     if args.save_map and len(photos) > 1 and "{name}" not in args.save_map:
         print("flatsight measure: error: with several photos, put {name} in --save-map "
               "(e.g. maps/{name}.npy)", file=err)
@@ -191,9 +202,15 @@ def run(args: argparse.Namespace) -> int:
 
     log_failed = False  # after the log refused a record, the rest are shown unlogged
 
-    def report(item, photo: str, opts: argparse.Namespace) -> int:
-        """Record, save, judge and print one result; returns its exit status."""
+    def report(item, photo: str, opts: argparse.Namespace, part_of: str) -> int:
+        """Record, save, judge and print one result; returns its exit status.
+
+        The part is ``--part``, else the file stem of ``part_of`` (the photo, or an
+        average's first photo), as the station and ``watch`` name parts.
+        """
         nonlocal log_failed
+        if not opts.part:
+            opts = argparse.Namespace(**{**vars(opts), "part": Path(part_of).stem})
         m = item.measurement
         record = measurement_to_record(m, ordering=args.ordering)
         record.update(item.sections)
@@ -246,7 +263,7 @@ def run(args: argparse.Namespace) -> int:
                     collected.append(m)
                     continue
                 for item in combine_with_sections(opts, [m]):
-                    status = worst_status(status, report(item, photo, opts))
+                    status = worst_status(status, report(item, photo, opts, photo))
             except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
                 progress.pause()
                 status = worst_status(status, one_line(exc, photo))
@@ -262,7 +279,7 @@ def run(args: argparse.Namespace) -> int:
         try:
             opts = photo_args(collected[0].photo)[0] if per_photo else args
             for item in combine_with_sections(opts, collected):
-                status = worst_status(status, report(item, name, opts))
+                status = worst_status(status, report(item, name, opts, collected[0].photo))
         except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
             status = worst_status(status, one_line(exc, name))
     reporter.finish()

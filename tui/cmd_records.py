@@ -70,8 +70,9 @@ def add_parser(subparsers) -> None:
     _log_option(t)
     t.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
     t.add_argument("--part", metavar="ID", help="only this part")
-    t.add_argument("--figure", default="pvr_nm", choices=TREND_FIGURES,
-                   help="figure to plot (default pvr_nm)")
+    t.add_argument("--figure", default=None, choices=TREND_FIGURES,
+                   help="figure to plot (default: the one the latest record's tolerance "
+                        "limits first, as in the station; pvr_nm without a tolerance)")
     t.add_argument("--height", type=height_type, default=12,
                    help="plot rows (4 to 500, default 12)")
     t.set_defaults(records_command="trend", run=run_trend)
@@ -154,15 +155,14 @@ def run_history(args: argparse.Namespace) -> int:
         return 0
     # who and where only when the terminal has room: the figures matter more at 80 columns
     people = console.width >= 120
-    table = Table(box=box.SIMPLE_HEAD, header_style="bold", pad_edge=False)
+    table = Table(box=box.SIMPLE_HEAD, header_style="bold", pad_edge=False, show_edge=False,
+                  padding=(0, 0, 0, 1))
     columns = [("id", "right"), ("time (UTC)", "left"), ("part", "left")]
     if people:
         columns += [("operator", "left"), ("station", "left")]
     columns += [("PV", "right"), ("PVr", "right"), ("power", "right"),
                 ("irreg.", "right"), ("verdict", "left")]
-    for name, justify in columns:
-        table.add_column(name, justify=justify, overflow="fold",
-                         no_wrap=name in ("time (UTC)", "part"))
+    body = []
     for rec in rows:
         verdict = rec.get("verdict")
         style = {"pass": "bold green", "fail": "bold red",
@@ -174,6 +174,15 @@ def run_history(args: argparse.Namespace) -> int:
             cells += [_cell(rec.get("operator")), _cell(rec.get("station"))]
         cells += [_cell(rec.get("pv_nm")), _cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
                   _cell(rec.get("irregularity_nm")), literal(verdict or "—", style)]
+        body.append(cells)
+    # names fold when the terminal (or a pipe's 80 columns) is narrow; the id, time,
+    # figures and verdict never break, so no number is read split in two
+    names = {"part", "operator", "station"}
+    for k, (name, justify) in enumerate(columns):
+        widest = max(len(str(cells[k])) for cells in body)
+        table.add_column(name, justify=justify, overflow="fold", no_wrap=name not in names,
+                         min_width=min(widest, 10) if name in names else max(widest, len(name)))
+    for cells in body:
         table.add_row(*cells)
     console.print(literal(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)"),
                   style="bold", overflow="fold")
@@ -270,6 +279,18 @@ def _limits_for(rec: dict, figure: str) -> tuple[list[float], str]:
                    f"({tight.get('name')} of {spec.get('tolerance')})")
 
 
+def limited_figure(rows: list[dict], figures=TREND_FIGURES) -> str:
+    """The figure the newest record's tolerance limits first (power for ISO 3/A(B)), else PVr.
+
+    ``rows`` newest first, as :func:`~flatsight.analysis.inspection_log.query` gives them.
+    """
+    for row in rows:
+        for limit in (row.get("spec") or {}).get("limits", []):
+            if limit.get("figure") in figures:
+                return limit["figure"]
+    return "pvr_nm"
+
+
 def run_trend(args: argparse.Namespace) -> int:
     """``flatsight trend``: one figure over time, its tolerance line, the pass rate."""
     from ..analysis.inspection_log import query
@@ -278,21 +299,26 @@ def run_trend(args: argparse.Namespace) -> int:
         rows = query(_log_path(args), part=args.part, since=args.since)
     except FlatsightError as exc:
         return _fail("trend", exc)
+    chosen = args.figure is None
+    figure = limited_figure(rows) if chosen else args.figure
     rows = rows[::-1]  # oldest first
-    points = [(_parse_time(r["logged_utc"]), float(r[args.figure]), r.get("verdict"))
-              for r in rows if isinstance(r.get(args.figure), int | float)]
+    points = [(_parse_time(r["logged_utc"]), float(r[figure]), r.get("verdict"))
+              for r in rows if isinstance(r.get(figure), int | float)]
     from rich.console import Console
     from rich.text import Text
 
     console = Console(highlight=False)
     if not points:
-        console.print(f"no records with {args.figure} match", style="dim")
+        console.print(f"no records with {figure} match", style="dim")
         return 0
-    limits, limit_note = _limits_for(rows[-1], args.figure)
+    limits, limit_note = _limits_for(rows[-1], figure)
     width = min(console.width if console.is_terminal else shutil.get_terminal_size().columns,
                 120)
-    console.print(literal(f"{args.figure} over time: {len(points)} records"
+    console.print(literal(f"{figure} over time: {len(points)} records"
                           + (f", part {args.part}" if args.part else "")), style="bold")
+    if chosen and limits:
+        console.print("(the figure the latest record's tolerance limits first; --figure "
+                      "for another)", style="dim")
     for line in trend_lines(points, width=max(40, width), height=args.height,
                             limits_nm=limits):
         label, bar, body = line.partition("│")
@@ -340,6 +366,13 @@ def run_report(args: argparse.Namespace) -> int:
     except OSError as exc:
         return _fail("report", SettingsError(f"cannot write {out}: {exc.strerror or exc}"))
     verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
-    print(shown(f"wrote {out} (record {args.record_id}, {rec.get('part') or 'no part'}, "
-                f"{verdict})"))
+    # say what the certificate was made from: a record read from the wrong log, or an
+    # old record of the same part, is then seen at once
+    log = _log_path(args)
+    which = f"{log}" if args.log else f"{log} (the default log; --log PATH for another)"
+    when = (rec.get("logged_utc") or "")[:16].replace("T", " ")
+    photo = Path(rec.get("photo") or "").name or "no photo"
+    print(shown(f"wrote {out} from record {args.record_id} of {which}: part "
+                f"{rec.get('part') or '(none)'}, photo {photo}, logged {when or '?'} UTC, "
+                f"{verdict}"))
     return 0

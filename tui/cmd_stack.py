@@ -8,7 +8,7 @@ import sys
 from pathlib import Path
 
 from .options import (
-    EXIT_CODES,
+    NO_TOLERANCE_EXIT_CODES,
     check_map_path,
     circle_type,
     diameter_type,
@@ -70,7 +70,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
         "stack",
         help=HELP,
         description=DESCRIPTION,
-        epilog=EXAMPLES + "\n" + EXIT_CODES,
+        epilog=EXAMPLES + "\n" + NO_TOLERANCE_EXIT_CODES,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument(

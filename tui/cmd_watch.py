@@ -47,7 +47,9 @@ DESCRIPTION = """\
 Watch FOLDER and measure each new photo (PNG, JPEG, TIFF) once the camera has finished
 writing it; log it to the inspection log and print one line with its verdict. The part
 is the photo's file name without its suffix (BW-FL-0412.png is part BW-FL-0412) unless
---part is given. Bad files get a one-line error and the watch goes on; if the folder
+--part is given. With --presets FILE (and no --preset), each photo takes the bench
+settings, tolerance and people of the preset its name matches in the file's [photos]
+table, as measure does. Bad files get a one-line error and the watch goes on; if the folder
 disappears, the watch says so and waits for it to come back.
 
 Each line ends with the verdict against --spec: PASS, FAIL, or INCONCLUSIVE under
@@ -335,11 +337,34 @@ class Tally:
         return sum(self.counts.values())
 
 
+def photo_options(path: Path, args: argparse.Namespace) -> argparse.Namespace:
+    """The options for one photo: with ``--presets FILE`` (and no ``--preset``), the
+    preset its name matches in the file's ``[photos]`` table fills what the command line
+    left unset, as in ``measure``."""
+    from ..analysis.errors import SettingsError
+    from .record_options import apply_preset, tolerance_from_args
+
+    presets = getattr(args, "photo_presets", None)
+    if presets is None:
+        return args
+    a = apply_preset(args, preset=presets.for_photo(path))
+    if a.wavelength is None:
+        raise SettingsError("no test wavelength: no [photos] pattern in the presets file "
+                            "matches its name; give --wavelength NM or add a pattern")
+    try:
+        a.wavelength = wavelength_type(str(a.wavelength))
+    except argparse.ArgumentTypeError as exc:
+        raise SettingsError(f"its preset's wavelength: {exc}") from None
+    tolerance_from_args(a)
+    return a
+
+
 def _handle(path: Path, args: argparse.Namespace, tally: Tally) -> None:
     from ..analysis.errors import FlatsightError
     from .record_options import judge_and_log
 
     try:
+        args = photo_options(path, args)
         record = measure_photo(path, args)
         per_photo = argparse.Namespace(**vars(args))
         per_photo.part = args.part or path.stem
@@ -373,10 +398,18 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         args = apply_preset(args)
-        if args.wavelength is None:
+        by_name = bool(args.presets and not args.preset)
+        if by_name:
+            from ..analysis.presets import load_presets_file
+
+            # read once; a bad presets file fails before any photo
+            args.photo_presets = load_presets_file(args.presets)
+        if args.wavelength is None and not by_name:
             raise SettingsError("give the test wavelength: --wavelength NM (or a --preset "
-                                "that sets wavelength_nm)")
-        args.wavelength = wavelength_type(str(args.wavelength))
+                                "that sets wavelength_nm, or --presets FILE whose [photos] "
+                                "table gives each photo its bench)")
+        if args.wavelength is not None:
+            args.wavelength = wavelength_type(str(args.wavelength))
         tolerance_from_args(args)
         folder = Path(args.folder).expanduser()
         if not folder.is_dir():

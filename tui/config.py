@@ -117,12 +117,18 @@ def _toml_value(v) -> str:
     return f'"{s}"'
 
 
+# settings that belong to the part on the bench, not to the bench: never carried to the
+# next session (a 50 mm part's diameter would give the next 100 mm flat a wrong radius of
+# curvature without a word); --diameter, a preset or the settings screen give it per run
+NOT_REMEMBERED = ("diameter_mm",)
+
+
 def settings_to_toml(s: StationSettings) -> str:
-    """The settings as TOML text (``diameter_mm`` left out when unset: TOML has no null)."""
+    """The settings as TOML text; the part's diameter is left out (:data:`NOT_REMEMBERED`)."""
     lines = ["# Flatsight station settings; written by `flatsight inspect`.", "[station]"]
     for f in fields(s):
         value = getattr(s, f.name)
-        if value is None:
+        if value is None or f.name in NOT_REMEMBERED:
             continue
         lines.append(f"{f.name} = {_toml_value(value)}")
     return "\n".join(lines) + "\n"
@@ -137,13 +143,12 @@ def settings_from_toml(text: str) -> StationSettings:
         table = tomllib.loads(text).get("station", {})
     except tomllib.TOMLDecodeError as exc:
         raise SettingsError(f"settings file is not valid TOML ({exc})") from None
-    known = {f.name for f in fields(StationSettings)}
+    known = {f.name for f in fields(StationSettings)} - set(NOT_REMEMBERED)
     values = {k: v for k, v in table.items() if k in known}
     try:
         if "removed_terms" in values:
             values["removed_terms"] = tuple(int(j) for j in values["removed_terms"])
-        for key in ("wavelength_nm", "diameter_mm", "wavelength_uncertainty_nm",
-                    "reference_uncertainty_nm"):
+        for key in ("wavelength_nm", "wavelength_uncertainty_nm", "reference_uncertainty_nm"):
             if key in values:
                 values[key] = float(values[key])
         if "n_terms" in values:

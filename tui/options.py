@@ -13,7 +13,8 @@ __all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle"
            "circle_type", "diameter_type", "terms_type", "angle_type", "number_type",
            "whole_number_type", "seconds_type", "count_type",
            "check_map_path", "MapNames", "EXIT_CODES", "TOLERANCE_EXIT_CODES",
-           "STATUS_SEVERITY", "worst_status", "parse_uncertainty", "uncertainty_type"]
+           "STATUS_SEVERITY", "worst_status", "parse_uncertainty", "uncertainty_type",
+           "NO_TOLERANCE_EXIT_CODES", "STATION_EXIT_CODES"]
 
 #: The largest coordinate or radius taken in pixels: no photo Flatsight reads is wider.
 MAX_PIXELS_ACROSS = 1_000_000
@@ -61,6 +62,20 @@ def worst_status(*statuses: int) -> int:
     """
     rank = {status: i for i, status in enumerate(STATUS_SEVERITY)}
     return max(statuses, key=lambda s: rank.get(s, len(STATUS_SEVERITY)))
+
+# commands that take no --spec (stack, absolute): no verdict, so no status 1
+NO_TOLERANCE_EXIT_CODES = """exit status:
+  0  measured
+  2  usage error, or a photo could not be read
+  3  the photos were read but could not be analysed
+  4  internal error (please report it with the photos)
+  130 interrupted (ctrl+c)"""
+
+# the station: verdicts are shown in it and logged, not given as the exit status
+STATION_EXIT_CODES = """exit status:
+  0  the station was closed (ctrl+q), whatever the verdicts: they are in the log
+  2  usage error, or none of the photos given could be found
+  4  internal error (please report it with the photo)"""
 
 
 def parse_wavelength(text: str) -> float:

@@ -16,7 +16,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from .safe_text import csv_row, shown
+from .safe_text import csv_row, literal, shown
 
 __all__ = ["Reporter", "figures_table", "limit_lines", "limits_table", "verdict_text",
            "warning_text", "zernike_table"]
@@ -84,7 +84,7 @@ def figures_table(record: dict) -> Table:
     t.add_column("nm", justify="right", no_wrap=True)
     t.add_column("± U nm", justify="right", no_wrap=True)
     t.add_column(f"waves @{lam:g}", justify="right", no_wrap=True)
-    t.add_column("fringes", justify="right", no_wrap=True)
+    t.add_column(f"fringes @{lam:g}", justify="right", no_wrap=True)  # test wavelength
     report = record.get("report_waves")
     if report:
         t.add_column(f"waves @{report['wavelength_nm']:g}", justify="right", no_wrap=True)
@@ -203,9 +203,11 @@ class _Progress:
             self._bar.update(self._task, description=f"{stage}")
 
     def pause(self) -> None:
-        # let a result or an error line print cleanly above the bar
+        # take the (transient) bar off the screen before a result or an error line prints:
+        # it lives on stderr, the result goes to stdout, and a bar left in place glues its
+        # last frame to the start of the result; start() brings it back for the next photo
         if self._bar is not None:
-            self._bar.refresh()
+            self._bar.stop()
 
     def stop(self) -> None:
         if self._bar is not None:
@@ -257,6 +259,14 @@ class Reporter:
         if r.get("part"):
             head.append(f"   part {shown(r['part'])}")
         c.print(head)
+        ref = r.get("reference")
+        if ref:
+            # the figures are of the part alone only because this map came off them
+            covered = ref.get("covered_fraction")
+            c.print(literal(f"reference {Path(ref.get('path') or '?').name} subtracted "
+                            f"(map RMS {_fmt(ref.get('map_rms_nm'), 1)} nm"
+                            + (f", covering {100 * covered:.1f} % of the aperture)"
+                               if covered is not None else ")")))
         c.print(figures_table(r))
         if r.get("uncertainty"):
             c.print(Text(U_NOTE, style="dim"))

@@ -17,22 +17,29 @@ from ..analysis.errors import MeasurementCancelled, SettingsError
 __all__ = ["combined_record", "measure_average", "measure_sequence"]
 
 
-def measure_average(backend, sources: Sequence[Path], settings, *, progress=None, cancel=None):
-    """Measure each photo with its own aperture, then align, sign-check and average them."""
+def measure_average(backend, sources: Sequence[Path], settings, *, progress=None, cancel=None,
+                    per_photo: Sequence = ()):
+    """Measure each photo with its own aperture, then align, sign-check and average them.
+
+    ``per_photo`` gives each photo its own settings (the wavelength, diameter and terms
+    of the bench it was taken on), as ``measure --average --presets`` does; without it
+    every photo is measured with ``settings``. The averaged figures use ``settings``.
+    """
     from ..analysis.averaging import average_measurements
 
     if len(sources) < 2:
         raise SettingsError("averaging needs at least two photos of the same part")
     n = len(sources)
     # each photo finds its own aperture: the part sits a little differently every time
-    own = replace(settings, aperture=None, exclusions=())
+    own = [replace(s, aperture=None, exclusions=())
+           for s in (per_photo if len(per_photo) == n else [settings] * n)]
     measurements = []
     for k, path in enumerate(sources):
         if cancel is not None and cancel.is_set():
             raise MeasurementCancelled("stopped by the operator")
         if progress is not None:
             progress(f"photo {k + 1} of {n}", k / (n + 1))
-        measurements.append(backend.measure(path, own, progress=None, cancel=cancel))
+        measurements.append(backend.measure(path, own[k], progress=None, cancel=cancel))
     if progress is not None:
         progress("averaging", n / (n + 1))
     return average_measurements(measurements, settings=settings)

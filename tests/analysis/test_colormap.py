@@ -135,3 +135,20 @@ def test_zero_sits_in_the_middle_of_an_asymmetric_range():
 def test_bad_range_is_refused():
     with pytest.raises(ValueError, match="vmin < vmax"):
         diverging_rgb(np.zeros(3), 1.0, 1.0)
+
+
+def test_the_sequential_map_darkens_steadily_from_zero_to_the_top():
+    # issue 9, layout: the spread (a non-negative std. dev.) was drawn on the diverging
+    # map, white at mid-scale, as if half of it were negative. A sequential map: one
+    # hue, CIELAB lightness falling monotonically (common practice for magnitudes; from
+    # memory: Moreland, "Why we use bad color maps", 2016)
+    from flatsight.analysis.colormap import sequential_rgb
+
+    values = np.linspace(0.0, 10.0, 41)
+    rgb = sequential_rgb(values, 0.0, 10.0).astype(float)
+    # relative luminance by the sRGB/Rec. 709 weights (IEC 61966-2-1), on the encoded
+    # values: enough to order them
+    luma = rgb @ np.array([0.2126, 0.7152, 0.0722])
+    assert np.all(np.diff(luma) < 0)
+    assert luma[0] > 200 and luma[-1] < 120
+    assert tuple(sequential_rgb(np.array([np.nan]), 0.0, 1.0)[0]) == NO_DATA_RGB

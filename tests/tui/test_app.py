@@ -15,7 +15,7 @@ from flatsight.analysis.record import measurement_to_record
 from flatsight.analysis.version import flatsight_version
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings, load_settings
-from flatsight.tui.screens.bench import BenchScreen
+from flatsight.tui.screens.bench import RERUN_DELAY_S, BenchScreen
 from flatsight.tui.screens.help_screen import HelpScreen
 from flatsight.tui.screens.open_screen import OpenScreen
 from flatsight.tui.screens.settings_screen import SettingsScreen
@@ -537,3 +537,35 @@ async def test_the_real_library_end_to_end(photo_set):
         await settle(pilot)
         shown = plain(bench.query_one("#surface-view"))
         assert "H" in shown and "L" in shown and "PV" in shown
+
+
+@sync
+async def test_at_start_the_arrow_keys_go_to_the_queue_not_the_aperture(tmp_path):
+    # issue 9 item 8: the focus started in the fringe view, so ↓ and → moved the aperture
+    # (and each nudge measured and logged the part again)
+    app, lib = make_app(tmp_path, names=PARTS[:2])
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        bench = app.screen
+        assert app.focused is bench.query_one("#queue")
+        await pilot.press("right", "down")
+        await settle(pilot, RERUN_DELAY_S + 0.2)
+        assert bench.current == 1
+        assert all(e.aperture is None for e in bench.entries)
+        assert all(settings.aperture is None for _, settings in lib.measured)
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)])
+@sync
+async def test_no_key_of_the_footer_shows_past_the_palette_hint(tmp_path, size):
+    # issue 9, layout: `^p paletter`, `palettem`, `palette3`: a letter of the key row
+    # showed in the cell after the palette hint, in every view, at both sizes
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    async with app.run_test(size=size) as pilot:
+        await settle(pilot)
+        for view in ("", "1", "3", "6"):
+            if view:
+                await pilot.press(view)
+                await settle(pilot)
+            widget, _ = app.screen.get_widget_at(size[0] - 1, size[1] - 1)
+            assert widget.has_class("-command-palette"), (view, widget)

@@ -6,6 +6,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
 from flatsight.analysis.version import flatsight_version
 from flatsight.tui.cli import main
 
@@ -79,3 +80,16 @@ def test_a_stopped_write_leaves_no_temporary_file(measured, tmp_path):
     assert proc.returncode == 128 + signal.SIGTERM, err
     assert "Traceback" not in err
     assert list(out.iterdir()) == []  # neither a half certificate nor a hidden temporary file
+
+
+@pytest.mark.parametrize("command", ["inspect", "stack", "absolute"])
+def test_help_lists_only_the_exit_statuses_the_command_gives(command, capsys):
+    # issue 9 item 6: inspect promised 1 when out of tolerance but quits with 0, and stack
+    # and absolute, which take no --spec, listed the tolerance statuses
+    status = main([command, "--help"])
+    out = capsys.readouterr().out
+    assert status == 0
+    statuses = out.split("exit status:", 1)[1]
+    assert "out of tolerance" not in statuses and "  1  " not in statuses
+    if command == "inspect":
+        assert "whatever the verdicts" in statuses

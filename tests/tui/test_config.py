@@ -40,7 +40,7 @@ def test_round_trip_through_the_file(tmp_path):
     )
     assert save_settings(s, path) == path
     loaded, notice = load_settings(path)
-    assert loaded == s and notice is None
+    assert loaded == replace(s, diameter_mm=None) and notice is None  # a part's, not kept
     # a plain TOML reader sees the same values (tomllib, Python's standard library)
     table = tomllib.loads(path.read_text(encoding="utf-8"))["station"]
     assert table["wavelength_nm"] == 589.3 and table["removed_terms"] == [4, 5, 6]
@@ -54,6 +54,18 @@ def test_unset_diameter_is_left_out_and_read_back_as_none(tmp_path):
     text = settings_to_toml(StationSettings(diameter_mm=None))
     assert "diameter_mm" not in text
     assert settings_from_toml(text).diameter_mm is None
+
+
+def test_the_diameter_is_not_carried_to_the_next_session(tmp_path):
+    # issue 9 item 9: a 50 mm part's diameter came back for a 100 mm flat opened the next
+    # day, with a wrong radius of curvature and no notice; it belongs to the part
+    path = tmp_path / "station.toml"
+    save_settings(StationSettings(diameter_mm=50.0), path)
+    assert "diameter" not in path.read_text(encoding="utf-8")
+    # a file written before this rule: its diameter is not taken either
+    path.write_text("[station]\nwavelength_nm = 546.07\ndiameter_mm = 50.0\n", "utf-8")
+    loaded, notice = load_settings(path)
+    assert loaded.diameter_mm is None and loaded.wavelength_nm == 546.07 and notice is None
 
 
 def test_write_is_atomic_and_leaves_no_temporary_files(tmp_path):

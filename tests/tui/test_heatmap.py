@@ -199,3 +199,24 @@ def test_mono_legend_shows_the_ramp_characters():
     lines = legend_lines(-1.0, 1.0, wavelength_nm=632.8, n=len(MONO_RAMP), mode="mono")
     shown = "".join(line.plain.strip()[0] for line in lines[: len(MONO_RAMP)])
     assert shown == MONO_RAMP[::-1]
+
+
+def test_a_spread_is_drawn_and_keyed_on_the_sequential_map():
+    # issue 9, layout: the spread view used the diverging map (white at mid-scale)
+    import numpy as np
+    from flatsight.analysis.colormap import sequential_rgb
+    from flatsight.tui.render.heatmap import legend_lines, render_heatmap
+
+    spread = np.tile(np.linspace(0.0, 8.0, 40), (40, 1))
+    hm = render_heatmap(spread, width=20, height=10, mode="truecolor", vmin=0.0, vmax=8.0,
+                        mark_extremes=False, sequential=True)
+    colours = {span.style.bgcolor.triplet for line in hm.lines for span in line.spans
+               if span.style and getattr(span.style, "bgcolor", None)}
+    colours |= {span.style.color.triplet for line in hm.lines for span in line.spans
+                if span.style and getattr(span.style, "color", None)}
+    allowed = {tuple(int(c) for c in rgb) for rgb in sequential_rgb(np.linspace(0, 8, 2001),
+                                                                    0.0, 8.0)}
+    assert colours and {tuple(c) for c in colours} <= allowed
+    legend = legend_lines(0.0, 8.0, wavelength_nm=632.8, n=5, sequential=True)
+    top = legend[0].spans[0].style.bgcolor.triplet
+    assert tuple(top) == tuple(int(c) for c in sequential_rgb(np.array([8.0]), 0.0, 8.0)[0])

@@ -350,9 +350,10 @@ def test_a_full_disk_mid_batch_still_shows_every_result(quick_measure, photo_set
         return con
 
     monkeypatch.setattr(sqlite3, "connect", second_write_finds_the_disk_full)
-    long_part = "BW-FL-" + "0" * 20000  # a record bigger than any free room in the pages
+    # a record bigger than any free room in the pages (--part names one photo's part only)
+    long_name = "Ruben Halloway " + "0" * 20000
     status, out, err = run_cli(capsys, "measure", *photos, *W, "--log", log, "--json",
-                               "--part", long_part)
+                               "--operator", long_name)
     monkeypatch.undo()
     assert status == 2
     line = assert_one_line_error(err, "cannot write the log", "the disk is full")

@@ -234,3 +234,94 @@ def test_finish_record_leaves_its_input_alone(tmp_path):
     assert record == {"photo": "x.png", "wavelength_nm": 632.8, "pv_nm": 12.0}
     assert status == 1 and out["spec"]["verdict"] == "fail" and out["record_id"] == 1
     assert inspection_log.get(tmp_path / "l.sqlite", 1)["pv_nm"] == 12.0
+
+
+def test_measure_names_each_photos_part_after_its_file_as_the_station_does(photos, tmp_path,
+                                                                           capsys):
+    # issue 9 item 2: measure logged no part, so history --part never found CLI records
+    good, bad = photos
+    log = tmp_path / "log.sqlite"
+    status, out, _ = run_cli(capsys, "measure", good, bad, "-w", "632.8", "--log", log,
+                             "--json")
+    assert status == 0
+    assert [json.loads(line)["part"] for line in out.splitlines()] == ["BW-FL-0412",
+                                                                       "BW-FL-0413"]
+    status, out, _ = run_cli(capsys, "history", "--log", log, "--part", "BW-FL-0413",
+                             "--json")
+    assert status == 0 and [json.loads(line)["part"] for line in out.splitlines()] == [
+        "BW-FL-0413"]
+
+
+def test_one_part_for_several_photos_is_a_usage_error_unless_averaged(photos, tmp_path,
+                                                                      capsys):
+    # issue 9 item 2: --part with a batch labelled every photo with one part, silently
+    good, bad = photos
+    log = tmp_path / "log.sqlite"
+    status, out, err = run_cli(capsys, "measure", good, bad, "-w", "632.8", "--log", log,
+                               "--part", "BW-FL-0412")
+    assert status == 2 and out == ""
+    assert len(err.strip().splitlines()) == 1 and "--part" in err and "--average" in err
+    assert not log.exists()
+    status, out, _ = run_cli(capsys, "measure", good, good, "-w", "632.8", "--log", log,
+                             "--part", "BW-FL-0412", "--average", "--json")
+    assert status == 0 and json.loads(out)["part"] == "BW-FL-0412"
+
+
+def test_an_average_without_part_takes_its_first_photos(photos, tmp_path, capsys):
+    good, _ = photos
+    status, out, _ = run_cli(capsys, "measure", good, good, "-w", "632.8", "--no-log",
+                             "--average", "--json")
+    assert status == 0 and json.loads(out)["part"] == "BW-FL-0412"
+
+
+def test_report_says_which_log_record_part_and_photo_it_used(filled_log, tmp_path, capsys,
+                                                            monkeypatch):
+    # issue 9 item 3: without --log, report silently read the default log and wrote a
+    # certificate for a part from an earlier day
+    monkeypatch.setattr(inspection_log, "default_log_path", lambda: filled_log)
+    html_out = tmp_path / "cert.html"
+    status, out, _ = run_cli(capsys, "report", "2", "--output", html_out)
+    assert status == 0
+    rec = inspection_log.get(filled_log, 2)
+    assert str(filled_log) in out and "default log" in out
+    assert "record 2" in out and "part BW-FL-0413" in out and "photo BW-FL-0413.png" in out
+    assert rec["logged_utc"][:16].replace("T", " ") in out
+    status, out, _ = run_cli(capsys, "report", "2", "--log", filled_log, "--output", html_out)
+    assert status == 0 and str(filled_log) in out and "default log" not in out
+
+
+def test_trend_starts_on_the_figure_the_tolerance_limits(filled_log, capsys, monkeypatch):
+    # issue 9 item 11: trend defaulted to pvr_nm even when the tolerance limits another
+    # figure; the station starts on the limited one. SPEC's first limit is ISO 10110-5's
+    # sagitta (power) error A, 3/1(-)
+    monkeypatch.setenv("COLUMNS", "80")
+    status, out, _ = run_cli(capsys, "trend", "--log", filled_log)
+    assert status == 0
+    assert out.splitlines()[0].startswith("power_nm over time")
+    assert out.splitlines()[1].startswith("(the figure the latest record's tolerance limits")
+    assert "no tolerance on this figure" not in out
+
+
+def test_history_never_splits_a_number_at_80_columns_or_in_a_pipe(filled_log, tmp_path,
+                                                                  capsys, monkeypatch):
+    # issue 9, layout: history wrapped numbers mid-digit at 80 columns and always when
+    # piped (`flatsight history | cat`); a long part name must fold, not the figures
+    import shutil
+
+    log = tmp_path / "log.sqlite"
+    shutil.copy(filled_log, log)
+    rec = inspection_log.get(log, 2)
+    rec.update(pv_nm=12345.678, pvr_nm=11111.111, power_nm=-9876.543,
+               irregularity_nm=2222.222)
+    inspection_log.record_measurement(
+        log, rec, part="BW-FL-0412-a-very-long-part-name-from-the-shop-floor",
+        operator="Ruben Halloway-" + "x" * 40, station="bench-3-" + "y" * 40,
+        logged_utc=rec["logged_utc"])
+    for columns in ("80", "200"):
+        monkeypatch.setenv("COLUMNS", columns)
+        status, out, _ = run_cli(capsys, "history", "--log", log)  # capsys: not a terminal
+        assert status == 0
+        for whole in ("12345.7", "11111.1", "-9876.5", "2222.2",
+                      f"{inspection_log.get(log, 2)['pv_nm']:.1f}"):
+            assert whole in out, (columns, whole, out)
+        assert max(len(line) for line in out.splitlines()[1:]) <= int(columns)

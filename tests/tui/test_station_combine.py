@@ -156,3 +156,43 @@ async def test_an_average_is_saved_beside_its_first_photo_under_its_own_name(tmp
     assert (tmp_path / "BW-FL-0412-0.avg2.height.npy").exists()
     assert not (tmp_path / "BW-FL-0412-0.flatsight.json").exists()  # the photo's own untouched
     assert sorted(p.name for p in tmp_path.iterdir() if p.is_dir()) == []
+
+
+TWO_LAMPS = """
+[presets.bench-2-hene]
+wavelength_nm = 632.8
+
+[presets.bench-1-mercury]
+wavelength_nm = 546.07
+
+[photos]
+"*_hene.*" = "bench-2-hene"
+"*_mercury.*" = "bench-1-mercury"
+"""
+
+
+@sync
+async def test_an_average_measures_each_photo_at_its_own_benchs_wavelength(tmp_path):
+    # issue 9 item 1: the average used the first marked photo's wavelength for all
+    lib = FakeLibrary()
+    presets = tmp_path / "presets.toml"
+    presets.write_text(TWO_LAMPS, encoding="utf-8")
+    photos = write_photos(tmp_path, ["BW-FL-0412_mercury.png", "BW-FL-0412_hene.png"])
+    backend = StationBackend(measure=lib.measure, load_pixels=lib.load_pixels,
+                             remove_terms=with_terms_removed, to_record=measurement_to_record,
+                             save_height_map=save_height_map)
+    app = FlatsightStation(
+        photos, settings=StationSettings(colour="truecolor", wavelength_nm=WAVELENGTH_NM),
+        backend=backend, config_path=None, presets_file=presets,
+        recorder=StationRecorder(tmp_path / "log.sqlite", {"spec": "pv<=500nm"}))
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        for _ in range(2):
+            await pilot.press("space", "right_square_bracket")
+            await settle(pilot)
+        lib.measured.clear()
+        await pilot.press("g")
+        await settle(pilot)
+        assert app.screen.entries[-1].state == "ok"
+        used = {name: s.wavelength_nm for name, s in lib.measured}
+        assert used == {"BW-FL-0412_mercury.png": 546.07, "BW-FL-0412_hene.png": 632.8}

@@ -18,6 +18,7 @@ import pytest
 from flatsight.analysis import inspection_log
 from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo, write_photo
 from flatsight.tui import cmd_watch
+from test_presets_per_photo import PRESETS  # the same two benches as measure's test
 
 
 def parser():
@@ -357,3 +358,38 @@ def test_results_are_shown_when_the_log_cannot_be_written(tmp_path, quick_measur
     assert len([ln for ln in lines if "cannot write the log" in ln]) == 1
     assert lines[-1].endswith("2 not logged")
     assert sorted(p.name for p in maps.iterdir()) == ["BW-FL-0412-2.npy", "BW-FL-0412.npy"]
+
+
+
+
+def test_watch_takes_each_photos_bench_from_the_presets_photos_table(tmp_path, photo_set,
+                                                                   measured, monkeypatch,
+                                                                   capsys):
+    # issue 9 item 7: watch ignored [photos] and asked for --wavelength, unlike measure.
+    # He-Ne 632.8 nm and sodium D 589.3 nm (common practice; references.md)
+    import dataclasses
+
+    import flatsight.analysis.pipeline as pipeline
+
+    used = {}
+
+    def quick(photo, settings, **_):
+        used[os.path.basename(photo)] = settings.wavelength_nm
+        return dataclasses.replace(measured, photo=str(photo), settings=settings)
+
+    monkeypatch.setattr(pipeline, "measure", quick)
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    for name in ("BW-FL-0001_hene.png", "BW-FL-0002_sodium.png", "BW-FL-0003.png"):
+        shutil.copy(photo_set.good_png, folder / name)
+    presets = tmp_path / "presets.toml"
+    presets.write_text(PRESETS, encoding="utf-8")
+    log = tmp_path / "log.sqlite"
+    status, out, err = run_watch(capsys, folder, "--presets", presets, "--log", log,
+                                 "--existing", "--settle", "0", "--interval", "0.01",
+                                 "--max-files", "3", "--timeout", "60")
+    assert status == 0, out + err
+    assert used == {"BW-FL-0001_hene.png": 632.8, "BW-FL-0002_sodium.png": 589.3}
+    assert [ln for ln in out.splitlines() if "BW-FL-0003.png: error: no test wavelength"]
+    stations = {r["part"]: r["station"] for r in inspection_log.query(log)}
+    assert stations == {"BW-FL-0001_hene": "bench-2", "BW-FL-0002_sodium": "bench-1"}

@@ -22,7 +22,7 @@ from rich.color import Color
 from rich.style import Style
 from rich.text import Text
 
-from ...analysis.colormap import NO_DATA_RGB, diverging_rgb
+from ...analysis.colormap import NO_DATA_RGB, diverging_rgb, sequential_rgb
 from ...analysis.formatting import format_number
 
 __all__ = [
@@ -220,6 +220,7 @@ def render_heatmap(
     vmax: float | None = None,
     mark_extremes: bool = True,
     inside: np.ndarray | None = None,
+    sequential: bool = False,
 ) -> Heatmap:
     """Draw a height map into at most ``width x height`` terminal cells.
 
@@ -238,6 +239,9 @@ def render_heatmap(
     inside : (M, N) bool ndarray, optional
         The clear aperture: NaN pixels inside it (masked specks, exclusions) get the
         "no data" colour, NaN pixels outside stay blank.
+    sequential : bool
+        Draw on the sequential map (light at ``vmin``, dark at ``vmax``), for a magnitude
+        that is never negative such as the spread between photos.
     """
     if mode not in MODES:
         raise ValueError(f"unknown colour mode {mode!r}; use one of {', '.join(MODES)}")
@@ -278,7 +282,8 @@ def render_heatmap(
             lines.append(Text("".join(row)))
         return Heatmap(lines, vmin, vmax, high, low, high_nm, low_nm, cols)
 
-    rgb = diverging_rgb(grid, vmin, vmax)
+    # a magnitude that is never negative (a spread) goes on the sequential map
+    rgb = (sequential_rgb if sequential else diverging_rgb)(grid, vmin, vmax)
     finite = np.isfinite(grid)
     if inside is not None:
         # masked pixels inside the aperture are drawn, in the no-data colour
@@ -318,6 +323,7 @@ def legend_lines(
     wavelength_nm: float,
     n: int = 7,
     mode: str = "truecolor",
+    sequential: bool = False,
 ) -> list[Text]:
     """Colour (or character) swatches with their heights in nm and in waves.
 
@@ -332,7 +338,8 @@ def legend_lines(
         if mode == "mono":
             line.append(f" {mono_char(np.array([value]), vmin_nm, vmax_nm)[0]}  ")
         else:
-            rgb = tuple(int(x) for x in diverging_rgb(np.array([value]), vmin_nm, vmax_nm)[0])
+            colours = sequential_rgb if sequential else diverging_rgb
+            rgb = tuple(int(x) for x in colours(np.array([value]), vmin_nm, vmax_nm)[0])
             line.append("  ", styles.get(None, rgb))
             line.append("  ")
         line.append(f"{format_number(value, 1, sign=True):>7} nm "

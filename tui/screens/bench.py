@@ -112,6 +112,7 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
         self._cancel: threading.Event | None = None
         self._jobs: dict[Worker, Job] = {}
         self._rerun_timer = None
+        self._tab_chosen = False
         self._removed_cache: tuple | None = None
         self.first_figures_s: float | None = None
         self.started_s = time.perf_counter()
@@ -130,7 +131,9 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
 
     def on_mount(self) -> None:
         self.redraw()
-        self.query_one(FringeView).focus()
+        # the queue first: ↑ ↓ then pick photos; the arrows move the aperture only once
+        # the operator goes into the fringe view (1 or tab), never by surprise
+        self.query_one(PhotoQueue).focus()
         self.reload_log()  # each part's last verdict for the queue, and the trend
         if self.entries:
             self.start_analysis(0)  # no key needed: the first photo is measured at once
@@ -265,6 +268,9 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
     @on(TabbedContent.TabActivated)
     def _tab_activated(self, event: TabbedContent.TabActivated) -> None:
         pane = event.pane
+        if not self._tab_chosen:  # the first tab shown at start: the queue keeps the focus
+            self._tab_chosen = True
+            return
         if pane is not None and pane.id in VIEWS:
             self.query_one(f"#{pane.id}-view").focus()
 

@@ -38,6 +38,8 @@ class Job:
     load: bool
     kind: str = "photo"
     sources: tuple[Path, ...] = ()
+    # an average: each photo's own settings (its bench's wavelength, diameter and terms)
+    source_settings: tuple[MeasureSettings, ...] = ()
 
 
 class AnalysisProgress(Message):
@@ -90,6 +92,14 @@ class AnalysisRunner:
                 _first_set(own.get("reference_uncertainty_nm"), s.reference_uncertainty_nm)),
         )
 
+    def source_settings(self, e: QueueEntry) -> tuple[MeasureSettings, ...]:
+        """For an average: the settings each of its photos is measured with on its own."""
+        if e.kind != "average":
+            return ()
+        singles = {x.path: x for x in self.entries if x.kind == "photo"}
+        return tuple(self.measure_settings(singles[p]) if p in singles
+                     else self.measure_settings(e) for p in e.sources)
+
     def start_analysis(self, index: int) -> None:
         """Measure photo ``index`` now, cancelling whatever is running or waiting to run."""
         if self._rerun_timer is not None:  # a re-run this one makes redundant
@@ -112,6 +122,7 @@ class AnalysisRunner:
             load=e.pixels is None,
             kind=e.kind,
             sources=e.sources,
+            source_settings=self.source_settings(e),
         )
         self._cancel = job.cancel
         self._jobs[self._analyse(job)] = job
@@ -132,10 +143,12 @@ class AnalysisRunner:
         if job.kind != "photo":
             from .. import station_combine
 
-            combine = (station_combine.measure_average if job.kind == "average"
-                       else station_combine.measure_sequence)
-            return combine(self.backend, job.sources, job.settings, progress=progress,
-                           cancel=job.cancel)
+            if job.kind == "average":
+                return station_combine.measure_average(
+                    self.backend, job.sources, job.settings, progress=progress,
+                    cancel=job.cancel, per_photo=job.source_settings)
+            return station_combine.measure_sequence(self.backend, job.sources, job.settings,
+                                                    progress=progress, cancel=job.cancel)
         return self.backend.measure(job.path, job.settings, progress=progress, cancel=job.cancel)
 
     def on_photo_loaded(self, message: PhotoLoaded) -> None:

@@ -36,11 +36,11 @@ class SpreadView(StationView):
         top = float(finite.max()) if finite.size else 1.0
         hm = render_heatmap(
             spread, width=max(4, w - LEGEND_WIDTH - 1), height=max(1, h - 1), mode=ctx.colour,
-            vmin=0.0, vmax=max(top, 1e-9), mark_extremes=False,
+            vmin=0.0, vmax=max(top, 1e-9), mark_extremes=False, sequential=True,
         )
         wl = ctx.wavelength_nm
         legend = legend_lines(hm.vmin_nm, hm.vmax_nm, wavelength_nm=wl,
-                              n=max(3, min(7, h - 9)), mode=ctx.colour)
+                              n=max(3, min(7, h - 9)), mode=ctx.colour, sequential=True)
         legend += [
             Text.assemble(("photos ", "bold"), str(avg.n_photos)),
             Text.assemble(("spread RMS ", "bold"), fmt_height(avg.rms_spread_nm, ctx.units, wl)),

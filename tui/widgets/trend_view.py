@@ -17,11 +17,9 @@ TREND_FIGURES = ("auto", "pvr_nm", "pv_nm", "rms_nm", "power_nm", "irregularity_
 
 def auto_figure(rows: list[dict]) -> str:
     """The figure the newest record's tolerance limits first (power for ISO 3/A(B)), else PVr."""
-    for row in rows:
-        for limit in (row.get("spec") or {}).get("limits", []):
-            if limit.get("figure") in TREND_FIGURES:
-                return limit["figure"]
-    return "pvr_nm"
+    from ..cmd_records import limited_figure  # one rule for the station and `flatsight trend`
+
+    return limited_figure(rows, TREND_FIGURES)
 
 
 def pass_rate(rows: list[dict]) -> tuple[int, int]:
