@@ -15,7 +15,7 @@ from flatsight.analysis.record import measurement_to_record
 from flatsight.analysis.version import flatsight_version
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings, load_settings
-from flatsight.tui.screens.bench import RERUN_DELAY_S, BenchScreen
+from flatsight.tui.screens.bench import BenchScreen
 from flatsight.tui.screens.help_screen import HelpScreen
 from flatsight.tui.screens.open_screen import OpenScreen
 from flatsight.tui.screens.settings_screen import SettingsScreen
@@ -549,7 +549,7 @@ async def test_at_start_the_arrow_keys_go_to_the_queue_not_the_aperture(tmp_path
         bench = app.screen
         assert app.focused is bench.query_one("#queue")
         await pilot.press("right", "down")
-        await settle(pilot, RERUN_DELAY_S + 0.2)
+        await settle(pilot)
         assert bench.current == 1
         assert all(e.aperture is None for e in bench.entries)
         assert all(settings.aperture is None for _, settings in lib.measured)

@@ -167,9 +167,10 @@ def test_the_batch_table_never_cuts_a_number_at_80_columns(monkeypatch):
     text = re.sub(r"\x1b\[[0-9;]*m", "", out.getvalue())  # rich's colours off
     assert "…" not in text
     assert max(len(line) for line in text.splitlines()) <= 80
-    for whole in ("312.3", "-156.2", "281.1", "0.572", "104.1", "58.2", "-29.1", "fail",
+    # (PVr in waves joins the table from 100 columns on; at 80 it is left out whole)
+    for whole in ("312.3", "-156.2", "281.1", "104.1", "58.2", "-29.1", "fail",
                   "pass", "546.07"):
-        assert whole in text, whole
+        assert whole in text.lower(), whole  # a fail is written FAIL
 
 
 def test_the_progress_bar_is_taken_off_the_screen_before_a_result_prints():
