@@ -57,6 +57,7 @@ __all__ = [
     "MapFigures",
     "PISTON_TILT",
     "compute_figures",
+    "prepare_map",
     "radius_of_curvature_m",
     "to_fringes",
     "to_waves",
@@ -363,26 +364,33 @@ class MapFigures:
             "rms_asymmetric_nm": _rms(asym),
         }
 
+    @cached_property
+    def _fringe_fit(self) -> tuple[np.ndarray, float]:
+        """The Fringe-36 coefficients and the RMS of what they leave."""
+        coef = self.fringe_inverse @ self.measured_nm
+        resid = self.measured_nm - self.fringe_basis[self.measured] @ coef
+        return coef, _rms(resid)
+
     def pvr(self, removed: tuple[int, ...]) -> float:
         """Evans's PVr of the measured heights (Fringe-36 fit, noise-corrected residual)."""
-        fb = self.fringe_basis
-        coef = self.fringe_inverse @ self.measured_nm
-        resid = self.measured_nm - fb[self.measured] @ coef
+        coef, resid_rms = self._fringe_fit
         # Fringe 1..3 are piston and tilt, 4 is power: drop what the caller removes
         keep = [i for i in range(PVR_TERMS) if not _fringe_removed(i + 1, removed)]
-        fit_pv = _ptp(fb[:, keep] @ coef[keep])
-        resid_rms = np.sqrt(max(_rms(resid) ** 2 - self.noise_nm**2, 0.0))
-        return fit_pv + 3.0 * resid_rms
+        fit_pv = _ptp(self.fringe_basis[:, keep] @ coef[keep])
+        return fit_pv + 3.0 * np.sqrt(max(resid_rms**2 - self.noise_nm**2, 0.0))
 
     def figures(self, *, wavelength_nm: float, diameter_mm: float | None,
                 removed_terms: tuple[int, ...] = PISTON_TILT,
-                report_fit: ZernikeFit | None = None) -> Figures:
-        """Every figure with ``removed_terms`` (always at least piston and tilt) taken out."""
+                report_fit: ZernikeFit | None = None, raw_pv: bool = True) -> Figures:
+        """Every figure with ``removed_terms`` (always at least piston and tilt) taken out.
+
+        ``raw_pv=False`` leaves the unfiltered map's PV out (NaN), as the Monte Carlo
+        copies need none.
+        """
         a = (np.asarray(report_fit.coefficients_nm, float) if report_fit is not None
              else self.coefficients_nm)
         removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
         peaks = self.peak_figures(self.filtered_nm, removed)
-        raw = self.raw_nm
         a4 = a[3] if a.size >= 4 else 0.0
         power = -2.0 * SQRT3 * a4 if 4 not in removed else 0.0
         a5 = a[4] if a.size >= 6 and 5 not in removed else 0.0
@@ -404,7 +412,7 @@ class MapFigures:
             rms_irregularity_nm=peaks["rms_irregularity_nm"],
             rms_asymmetric_nm=peaks["rms_asymmetric_nm"],
             removed_terms=removed,
-            pv_raw_nm=_ptp(raw - self.terms(removed)),
+            pv_raw_nm=_ptp(self.raw_nm - self.terms(removed)) if raw_pv else float("nan"),
             noise_nm=self.noise_nm,
         )
 
@@ -415,13 +423,21 @@ def _fringe_removed(j_fringe: int, removed: tuple[int, ...]) -> bool:
     return any(noll_to_nm(j) == (n, m) for j in removed)
 
 
+def prepare_map(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray,
+                fit: ZernikeFit, *, resolution_px: float | None = None) -> MapFigures:
+    """The map prepared for :func:`compute_figures` (keep it to figure the map again)."""
+    return MapFigures.of(height_nm, valid, xu, yu, resolution_px=resolution_px,
+                         n_terms=max(FIGURE_TERMS, fit.n_terms))
+
+
 def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray,
                     fit: ZernikeFit, *, wavelength_nm: float, diameter_mm: float | None = None,
                     removed_terms: tuple[int, ...] = PISTON_TILT,
                     resolution_px: float | None = None,
                     height_sigma_nm: np.ndarray | None = None,
                     wavelength_uncertainty_nm: float = 0.0,
-                    reference_uncertainty_nm: float = 0.0, photos: int = 1) -> Figures:
+                    reference_uncertainty_nm: float = 0.0, photos: int = 1,
+                    prepared: MapFigures | None = None) -> Figures:
     """Figures of a height map with their expanded uncertainties (see the module docstring).
 
     Parameters
@@ -449,11 +465,15 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
         What the operator states (see ``uncertainty``).
     photos : int
         How many photos were averaged into the map.
+    prepared : MapFigures, optional
+        The same map already prepared (:func:`prepare_map`): figures with other terms
+        removed then reuse its fits and its Monte Carlo copies instead of redoing them.
     """
     from .uncertainty import expanded_uncertainty, noise_effects
 
-    prepared = MapFigures.of(height_nm, valid, xu, yu, resolution_px=resolution_px,
-                             n_terms=max(FIGURE_TERMS, fit.n_terms))
+    if prepared is None:
+        prepared = prepare_map(height_nm, valid, xu, yu, fit,
+                               resolution_px=resolution_px)
     figures = prepared.figures(wavelength_nm=wavelength_nm, diameter_mm=diameter_mm,
                                removed_terms=removed_terms, report_fit=fit)
     scale = None

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import threading
 import time
+import weakref
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
@@ -13,7 +14,7 @@ import numpy as np
 from .aperture import Aperture, Exclusion
 from .demodulation import MapGeometry, Spectrum, demodulate
 from .errors import SettingsError, UnanalysablePhotoError
-from .figures import PISTON_TILT, Figures, compute_figures
+from .figures import PISTON_TILT, Figures, MapFigures, compute_figures, prepare_map
 from .unwrapping import phase_to_height_nm, unwrap
 from .zernike import ZernikeFit, fit_zernike, zernike_basis
 
@@ -288,9 +289,15 @@ def _resolution_px(resolution_cycles_per_aperture: float, xu: np.ndarray) -> flo
 
 
 def _replace(m: Measurement, **changes) -> Measurement:
+    """``m`` with ``changes``; the copy keeps ``m``'s prepared map if it has the same map."""
     from dataclasses import replace
 
-    return replace(m, **changes)
+    copy = replace(m, **changes)
+    prepared = _recalled_map(m)
+    if prepared is not None and not {"height_nm", "valid", "geometry", "aperture",
+                                     "zernike", "quality"} & changes.keys():
+        _remember_map(copy, prepared)
+    return copy
 
 
 def measurement_from_phase(
@@ -356,13 +363,14 @@ def measurement_from_height(
     qf = dict(quality_fields or {})
     resolution_px = _resolution_px(float(qf.get("resolution_cycles_per_aperture", 0.0)),
                                    xu)
+    prepared = prepare_map(height_nm, valid, xu, yu, fit, resolution_px=resolution_px)
     figures = compute_figures(
         height_nm, valid, xu, yu, fit, wavelength_nm=settings.wavelength_nm,
         diameter_mm=settings.diameter_mm, resolution_px=resolution_px,
         height_sigma_nm=height_sigma_nm,
         wavelength_uncertainty_nm=settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=settings.reference_uncertainty_nm,
-        photos=int(qf.get("photos", 1)))
+        photos=int(qf.get("photos", 1)), prepared=prepared)
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
@@ -398,14 +406,32 @@ def measurement_from_height(
                      "fringe contrast, or average several photos",)
     if spectrum is None:
         spectrum = Spectrum(np.zeros((1, 1), np.float32), (0.0, 0.0), 0.0, 0.0)
-    return Measurement(
+    return _remember_map(Measurement(
         photo=photo, settings=settings, aperture=aperture, geometry=geometry,
         height_nm=surface, valid=valid, modulation=np.asarray(modulation, dtype=np.float32),
         zernike=fit, figures=figures, quality=quality, spectrum=spectrum,
         warnings=warnings, photo_sha256=photo_sha256,
         height_sigma_nm=(None if height_sigma_nm is None
                          else np.where(disk, height_sigma_nm, np.nan).astype(np.float32)),
-    )
+    ), prepared)
+
+
+# The last measurement's map as prepared for its figures (fits, bases, Monte Carlo copies):
+# the station toggles terms on the photo it shows, so keeping that one map makes each
+# toggle a re-evaluation instead of a new analysis. One map only: a prepared map is
+# about as large as twenty height maps, too much to keep for every photo of a queue.
+_last_map: tuple[weakref.ref, MapFigures] | None = None
+
+
+def _remember_map(m: Measurement, prepared: MapFigures) -> Measurement:
+    global _last_map
+    _last_map = (weakref.ref(m), prepared)
+    return m
+
+
+def _recalled_map(m: Measurement) -> MapFigures | None:
+    last = _last_map
+    return last[1] if last is not None and last[0]() is m else None
 
 
 def with_terms_removed(
@@ -426,14 +452,18 @@ def with_terms_removed(
     removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
     full = np.full(m.height_nm.shape, np.nan)
     full[valid] = h
+    resolution_px = _resolution_px(m.quality.resolution_cycles_per_aperture, xu)
+    prepared = _recalled_map(m)
+    if prepared is None:
+        prepared = prepare_map(full, valid, xu, yu, m.zernike, resolution_px=resolution_px)
+        _remember_map(m, prepared)
     figures = compute_figures(
         full, valid, xu, yu, m.zernike, wavelength_nm=m.settings.wavelength_nm,
         diameter_mm=m.settings.diameter_mm, removed_terms=removed,
-        resolution_px=_resolution_px(m.quality.resolution_cycles_per_aperture, xu),
-        height_sigma_nm=m.height_sigma_nm,
+        resolution_px=resolution_px, height_sigma_nm=m.height_sigma_nm,
         wavelength_uncertainty_nm=m.settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=m.settings.reference_uncertainty_nm,
-        photos=m.quality.photos)
+        photos=m.quality.photos, prepared=prepared)
     idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
     out = np.full(m.height_nm.shape, np.nan)
     out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]

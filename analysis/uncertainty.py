@@ -37,6 +37,7 @@ Monte Carlo method.
 
 from __future__ import annotations
 
+import hashlib
 import math
 
 import numpy as np
@@ -101,6 +102,29 @@ def _extrapolate(observed: float, means: list[float]) -> float:
     return min(max(math.sqrt(max(float(icpt), 0.0)), 0.5 * observed), observed)
 
 
+def _noisy_copies(prepared, noise_scale: np.ndarray | None, seed: int) -> list[list]:
+    """The map with noise added at each level of :data:`_ADDED`, kept on ``prepared``.
+
+    The copies depend only on the map and its noise, not on which terms a figure
+    removes, so the station's term toggles figure them again without new noise, new
+    smoothing or new fits (the same draws, so the figures do not flicker either).
+    """
+    key = (seed, None if noise_scale is None else
+           hashlib.sha1(np.ascontiguousarray(noise_scale, dtype=float)).hexdigest())
+    memo = prepared.__dict__.get("_noisy_copies")
+    if memo is not None and memo[0] == key:
+        return memo[1]
+    rng = np.random.default_rng(seed)
+    fields = _noise_fields(prepared.disk.shape, prepared.disk, prepared.measured,
+                           0.5 * (prepared.resolution_px or 1.0), rng)
+    scale = prepared.noise_nm if noise_scale is None else prepared.noise_nm * noise_scale
+    copies = [[prepared.perturbed(fields[k] * scale * added) for k in range(_REALISATIONS)]
+              for added in _ADDED]
+    # one noise model per map, replaced whole (a toggle in another thread reads either)
+    prepared.__dict__["_noisy_copies"] = (key, copies)
+    return copies
+
+
 def noise_effects(prepared, figures, *, removed: tuple[int, ...],
                   noise_scale: np.ndarray | None, wavelength_nm: float,
                   seed: int = 0) -> tuple[dict[str, float], dict[str, float]]:
@@ -126,17 +150,13 @@ def noise_effects(prepared, figures, *, removed: tuple[int, ...],
     corrected: dict[str, float] = {}
     if noise <= 0:
         return spread, corrected
-    rng = np.random.default_rng(seed)
-    fields = _noise_fields(prepared.disk.shape, prepared.disk, prepared.measured,
-                           0.5 * (prepared.resolution_px or 1.0), rng)
-    scale = noise if noise_scale is None else noise * noise_scale
+    copies = _noisy_copies(prepared, noise_scale, seed)
     means: dict[str, list[float]] = {name: [] for name in UNCERTAIN_FIGURES}
-    for level, added in enumerate(_ADDED):
+    for level, level_copies in enumerate(copies):
         samples = {name: [] for name in UNCERTAIN_FIGURES}
-        for k in range(_REALISATIONS):
-            f = prepared.perturbed(fields[k] * scale * added).figures(
-                wavelength_nm=wavelength_nm, diameter_mm=None, removed_terms=removed,
-                report_fit=None)
+        for copy in level_copies:
+            f = copy.figures(wavelength_nm=wavelength_nm, diameter_mm=None,
+                             removed_terms=removed, report_fit=None, raw_pv=False)
             for name in UNCERTAIN_FIGURES:
                 samples[name].append(abs(getattr(f, name)) if name == "power_nm"
                                      else getattr(f, name))

@@ -65,6 +65,41 @@ def test_with_terms_removed_matches_the_figures(good):
     np.testing.assert_allclose(same[m.valid], m.height_nm[m.valid], atol=1e-9)
 
 
+def _figures_afresh(m, removed):
+    """The figures of ``m`` with ``removed`` out, from a map prepared anew (no reuse)."""
+    from flatsight.analysis.figures import compute_figures
+    from flatsight.analysis.pipeline import _resolution_px
+
+    xu, yu = m.geometry.unit_xy(m.aperture)
+    basis = zernike_basis(m.zernike.n_terms, xu[m.valid], yu[m.valid])
+    full = np.full(m.height_nm.shape, np.nan)
+    full[m.valid] = m.height_nm[m.valid] + basis[:, :3] @ m.zernike.coefficients_nm[:3]
+    return compute_figures(
+        full, m.valid, xu, yu, m.zernike, wavelength_nm=m.settings.wavelength_nm,
+        removed_terms=tuple(sorted({1, 2, 3} | set(removed))),
+        resolution_px=_resolution_px(m.quality.resolution_cycles_per_aperture, xu),
+        height_sigma_nm=m.height_sigma_nm)
+
+
+def test_term_toggles_reuse_the_map_and_give_what_a_fresh_analysis_gives(good, photo_set):
+    # The station toggles terms on the photo it shows; the toggles reuse that photo's
+    # prepared map and Monte Carlo copies. Whatever the order of toggles, and after
+    # another photo was measured in between, every figure and its U must be exactly
+    # what preparing the map afresh gives.
+    _, m = good
+    other = measure(photo_set.good_png, MeasureSettings(wavelength_nm=546.07))
+    for removed in [(4,), (4, 5, 6), (), (4,), (11,)]:
+        _, f = with_terms_removed(m, removed)
+        fresh = _figures_afresh(m, removed)
+        for name in ("pv_nm", "rms_nm", "pvr_nm", "irregularity_nm",
+                     "symmetric_irregularity_nm", "rms_irregularity_nm", "pv_raw_nm"):
+            assert getattr(f, name) == pytest.approx(getattr(fresh, name), rel=1e-9), name
+        assert f.uncertainty_nm == pytest.approx(fresh.uncertainty_nm, rel=1e-9)
+        # the other photo (another wavelength, so other heights) is not confused with it
+        _, g = with_terms_removed(other, removed)
+        assert g.pv_nm == pytest.approx(_figures_afresh(other, removed).pv_nm, rel=1e-9)
+
+
 def test_height_map_coordinates_and_fit():
     # A height map laid on a grid by hand: tilt rising toward the photo's top must come
     # out as +a3 (DEVELOPERS.md: Zernike y points to the top of the photo)
