@@ -1,14 +1,15 @@
-"""`flatsight measure --jobs N`: photos measured in parallel processes.
+"""`flatsight measure --jobs N` and `watch --jobs N`: photos measured in parallel processes.
 
 What a batch promises whatever the number of processes: the results print in the order
-the photos were given, every photo is logged once, a bad photo is reported in its turn
-and the rest are measured, and ctrl+c shows (and keeps) everything finished. Speed is
-measured by benchmarks/bench_jobs.py, not here.
+the photos were given (watch: the order they arrived), every photo is logged once, a bad
+photo is reported in its turn and the rest are measured, and ctrl+c shows (and keeps)
+everything finished. Speed is measured by benchmarks/bench_jobs.py, not here.
 """
 
 from __future__ import annotations
 
 import json
+import re
 import sys
 from pathlib import Path
 
@@ -98,3 +99,48 @@ def test_ctrl_c_with_several_processes_shows_and_keeps_everything_finished(photo
     records = [Path(r["photo"]).name for r in inspection_log.query(log)]
     assert records and sorted(records) == sorted(shown)  # every logged result was shown
     assert len(records) < len(photos)  # and the rest were stopped, not finished
+
+
+def test_watch_measures_photos_that_arrive_together_in_parallel(photo_set, capsys,
+                                                                tmp_path):
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    photos = _batch(photo_set, folder, 4)
+    (folder / "BW-FL-0599.png").write_text("Brindlewick Optical Works: not a photo\n")
+    lines = {}
+    for jobs in (1, 2):
+        log = tmp_path / f"log-{jobs}.sqlite"
+        status = main(["watch", str(folder), *W, "--existing", "--settle", "0",
+                       "--interval", "0.01", "--max-files", "5", "--timeout", "600",
+                       "--jobs", str(jobs), "--log", str(log)])
+        out = capsys.readouterr().out
+        assert status == 0, out
+        named = [ln for ln in out.splitlines() if "BW-FL-0" in ln]
+        # one line per photo (the bad file an error line), each photo logged once
+        assert len(named) == 5, out
+        assert sum("BW-FL-0599" in ln and "error" in ln for ln in named) == 1
+        logged = sorted(Path(r["photo"]).name for r in inspection_log.query(log))
+        assert logged == sorted(p.name for p in photos)
+        # the same lines, in the same order, whether measured here or in workers
+        # (without the time stamp, nor the record id: each is logged as it finishes)
+        lines[jobs] = [re.sub(r"#\d+\s*$", "", ln.split("  ", 1)[1]) for ln in named]
+        assert "5 photos" in out.splitlines()[-1]
+    assert lines[1] == lines[2]
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to a child process")
+def test_ctrl_c_in_watch_with_several_processes_shows_everything_logged(photo_set,
+                                                                       tmp_path):
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    photos = _batch(photo_set, folder, 24)
+    log = tmp_path / "log.sqlite"
+    status, out, err = interrupt_once_logged(
+        ["watch", folder, *W, "--existing", "--settle", "0", "--interval", "0.01",
+         "--jobs", "2", "--log", log], log, records=2)
+    assert status == 130, err
+    assert "Traceback" not in err and "ctrl+c" in out.splitlines()[-1]
+    records = [Path(r["photo"]).stem for r in inspection_log.query(log)]
+    shown = [p.stem for p in photos if p.stem in out]  # watch's lines name the part
+    assert records and sorted(records) == sorted(shown)
+    assert len(records) < len(photos)
