@@ -20,7 +20,6 @@ from .errors import UnanalysablePhotoError
 __all__ = ["CROP_MARGIN", "Carrier", "Spectrum", "bin_pixels", "crop_aperture", "find_carrier",
            "radius_grid", "spectrum_view"]
 
-_WORKERS = max(1, min(4, __import__('os').cpu_count() or 1))
 CROP_MARGIN = 0.32  # crop half-size beyond the radius, as a fraction of it
 
 

@@ -21,7 +21,19 @@ from .errors import MeasurementCancelled
 __all__ = ["WORKERS", "check_cancel", "find_specks", "flat_top", "fringe_envelope",
            "gerchberg_extend"]
 
-WORKERS = max(1, min(4, os.cpu_count() or 1))
+
+
+def _fft_threads() -> int:
+    """Threads for each FFT: ``FLATSIGHT_FFT_THREADS`` when set (a batch measured in
+    several processes gives each its share of the cores), else the cores, at most 4."""
+    try:
+        given = int(os.environ.get("FLATSIGHT_FFT_THREADS", "0"))
+    except ValueError:
+        given = 0
+    return given if 1 <= given <= 64 else max(1, min(4, os.cpu_count() or 1))
+
+
+WORKERS = _fft_threads()
 
 
 def check_cancel(cancel: threading.Event | None) -> None:

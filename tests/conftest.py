@@ -202,3 +202,6 @@ def quick_measure(measured, monkeypatch):
         return dataclasses.replace(measured, photo=str(photo))
 
     monkeypatch.setattr(pipeline, "measure", quick)
+    # the stand-in lives in this process: a batch measures one photo at a time here, as
+    # with --jobs 1, instead of in worker processes that would run the real analysis
+    monkeypatch.setattr("flatsight.tui.parallel.available_cores", lambda: 1)

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 import sys
+from contextlib import closing
+from dataclasses import dataclass
 from pathlib import Path
 
 from .multi_options import add_multi_options
@@ -17,6 +19,7 @@ from .options import (
     terms_type,
     wavelength_type,
 )
+from .parallel import jobs_type
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -58,6 +61,7 @@ EXAMPLES = """\
 examples:
   flatsight measure sample_images/BW-FL-0412_hene.png --wavelength hene
   flatsight measure shots/*.tif --wavelength 546.07 --json > results.jsonl
+  flatsight measure shots/ --wavelength 546.07 --jobs 2   # two photos at a time
   flatsight measure part.png --wavelength 632.8 --aperture 640,480,410 --diameter 100
   flatsight measure part.png --wavelength sodium --spec '3/2(0.5)' --part BW-FL-0412
   flatsight measure part.png -w hene --spec '3/2(1)' --decision guarded
@@ -100,6 +104,10 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
                         "several photos put {name} in FILE for each photo's name")
     p.add_argument("--detail", action="store_true",
                    help="the full table for every photo, even in a batch")
+    p.add_argument("-j", "--jobs", type=jobs_type, metavar="N", default=None,
+                   help="photos measured at once, each in a process of its own (default: "
+                        "the cores this process may use); results still print in the "
+                        "order given, and each is logged as soon as it is finished")
     add_multi_options(p)
     add_record_options(p)
     p.set_defaults(run=run)
@@ -125,6 +133,15 @@ def _settings(args: argparse.Namespace):
     )
 
 
+@dataclass(frozen=True)
+class Shown:
+    """A result logged and ready to print, with the exit status its verdict gives."""
+
+    record: dict
+    measurement: object
+    status: int
+
+
 def run(args: argparse.Namespace) -> int:
     from flatsight.analysis.errors import (
         SettingsError,
@@ -136,6 +153,7 @@ def run(args: argparse.Namespace) -> int:
 
     from .multi_options import check_multi_options, combine_with_sections
     from .options import worst_status
+    from .parallel import available_cores, measure_in_parallel
     from .record_options import apply_preset, judge_and_log, tolerance_from_args
     from .report_text import Reporter
 
@@ -232,8 +250,7 @@ def run(args: argparse.Namespace) -> int:
                   "from here on are shown but not logged (free the log or give another "
                   "--log PATH, or --no-log)", file=err)
             verdict_status = 2
-        reporter.emit(record, m)
-        return verdict_status
+        return Shown(record, m, verdict_status)
 
     def one_line(exc: Exception, photo: str) -> int:
         if isinstance(exc, UnanalysablePhotoError):
@@ -250,26 +267,86 @@ def run(args: argparse.Namespace) -> int:
         print(f"flatsight measure: error: {shown(exc)}", file=err)
         return 2
 
+    def finish(photo: str, opts, outcome) -> list:
+        """Log a finished photo at once; return what it shows (records, error lines)."""
+        if isinstance(outcome, Exception):
+            return [outcome]
+        if args.average:
+            return [outcome]  # averaged (and logged) once all are in
+        try:
+            return [report(item, photo, opts, photo)
+                    for item in combine_with_sections(opts, [outcome])]
+        except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
+            return [exc]
+
+    # each photo's options and settings, worked out before anything is measured
+    prepared: list[tuple[str, argparse.Namespace | None, object]] = []
+    for photo in photos:
+        try:
+            prepared.append((photo, *(photo_args(photo) if per_photo else (args, settings))))
+        except (SettingsError, argparse.ArgumentTypeError, ValueError) as exc:
+            prepared.append((photo, None, SettingsError(str(exc))))
+    workers = min(args.jobs or available_cores(), len(photos))
+
     progress = reporter.progress(len(photos), stream=err)
     collected = []  # with --average: every good measurement, reported once at the end
+    ready: dict[int, list] = {}  # finished (and logged) results waiting for their turn
+    shown_upto = 0
+
+    def show_ready() -> None:
+        """Print the finished results whose turn has come, in the order given."""
+        nonlocal shown_upto, status
+        while shown_upto in ready:
+            photo = prepared[shown_upto][0]
+            for out in ready.pop(shown_upto):
+                if isinstance(out, Shown):
+                    reporter.emit(out.record, out.measurement)
+                    status = worst_status(status, out.status)
+                elif isinstance(out, Exception):
+                    progress.pause()
+                    status = worst_status(status, one_line(out, photo))
+                else:
+                    collected.append(out)
+            shown_upto += 1
+
     try:
-        for i, photo in enumerate(photos):
-            progress.start(photo, i)
-            try:
-                opts, photo_settings = photo_args(photo) if per_photo else (args, settings)
-                m = measure(photo, photo_settings, progress=progress.stage)
+        if workers <= 1:
+            for i, (photo, opts, photo_settings) in enumerate(prepared):
+                progress.start(photo, i)
+                outcome = photo_settings
+                if opts is not None:
+                    try:
+                        outcome = measure(photo, photo_settings, progress=progress.stage)
+                    except (UnreadablePhotoError, UnanalysablePhotoError,
+                            SettingsError) as exc:
+                        outcome = exc
                 progress.pause()
-                if args.average:
-                    collected.append(m)
-                    continue
-                for item in combine_with_sections(opts, [m]):
-                    status = worst_status(status, report(item, photo, opts, photo))
-            except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
-                progress.pause()
-                status = worst_status(status, one_line(exc, photo))
+                ready[i] = finish(photo, opts, outcome)
+                show_ready()
+        else:
+            # settings that failed are reported in their turn; the rest go to the workers
+            todo = [(i, p, s) for i, (p, o, s) in enumerate(prepared) if o is not None]
+            for i, (_, opts, problem) in enumerate(prepared):
+                if opts is None:
+                    ready[i] = [problem]
+            show_ready()
+            done = 0
+            progress.start(f"measuring, {workers} at once", 0)
+            with closing(measure_in_parallel([(p, s) for _, p, s in todo], workers)) as runs:
+                for fin in runs:
+                    i = todo[fin.index][0]
+                    ready[i] = finish(fin.photo, prepared[i][1], fin.outcome)
+                    done += 1
+                    progress.pause()
+                    show_ready()
+                    progress.start(f"measuring, {workers} at once", done)
     except KeyboardInterrupt:
-        # ctrl+c: the table shows what was finished (and logged), as --json and --csv do
+        # ctrl+c: everything finished is logged already; show it all, in the order given,
+        # skipping the photos still unfinished ahead of it, as --json and --csv do
         progress.stop()
+        for i in sorted(ready):
+            shown_upto = i
+            show_ready()
         reporter.finish()
         raise
     finally:
@@ -279,7 +356,9 @@ def run(args: argparse.Namespace) -> int:
         try:
             opts = photo_args(collected[0].photo)[0] if per_photo else args
             for item in combine_with_sections(opts, collected):
-                status = worst_status(status, report(item, name, opts, collected[0].photo))
+                out = report(item, name, opts, collected[0].photo)
+                reporter.emit(out.record, out.measurement)
+                status = worst_status(status, out.status)
         except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
             status = worst_status(status, one_line(exc, name))
     reporter.finish()

@@ -31,6 +31,7 @@ from .options import (
     terms_type,
     wavelength_type,
 )
+from .parallel import jobs_type
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -95,6 +96,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="stop after N photos (for scripts and tests)")
     w.add_argument("--timeout", type=seconds_type, default=None, metavar="S",
                    help="stop after S seconds")
+    w.add_argument("-j", "--jobs", type=jobs_type, metavar="N", default=None,
+                   help="photos that arrive together are measured N at once, each in a "
+                        "process of its own (default: the cores this process may use)")
     w.set_defaults(run=run)
     return w
 
@@ -233,16 +237,14 @@ class FolderWatcher:
         return sorted(ready)
 
 
-def measure_photo(path: Path, args: argparse.Namespace) -> dict:
-    """Measure one photo with the watch's settings; the record of ``measure --json``."""
+def watch_settings(args: argparse.Namespace):
+    """The MeasureSettings the watch's options (one photo's, presets applied) give."""
     from ..analysis.aperture import Aperture, Exclusion
-    from ..analysis.errors import SettingsError
-    from ..analysis.pipeline import MeasureSettings, measure
-    from ..analysis.record import measurement_to_record, save_height_map
+    from ..analysis.pipeline import MeasureSettings
     from .record_options import uncertainty_settings
 
     aperture = getattr(args, "aperture", None)
-    settings = MeasureSettings(
+    return MeasureSettings(
         wavelength_nm=float(args.wavelength),
         n_terms=int(args.terms) if args.terms is not None else 36,
         invert=bool(args.invert),
@@ -251,7 +253,20 @@ def measure_photo(path: Path, args: argparse.Namespace) -> dict:
         exclusions=tuple(Exclusion(*c) for c in getattr(args, "exclude", []) or []),
         **uncertainty_settings(args),
     )
-    m = measure(str(path), settings)
+
+
+def measure_photo(path: Path, args: argparse.Namespace) -> dict:
+    """Measure one photo with the watch's settings; the record of ``measure --json``."""
+    from ..analysis.pipeline import measure
+
+    return photo_record(measure(str(path), watch_settings(args)), path, args)
+
+
+def photo_record(m, path: Path, args: argparse.Namespace) -> dict:
+    """The ``measure --json`` record of a measurement, its height map saved if asked."""
+    from ..analysis.errors import SettingsError
+    from ..analysis.record import measurement_to_record, save_height_map
+
     record = measurement_to_record(m)
     template = getattr(args, "save_map", None)
     if template:
@@ -360,26 +375,98 @@ def photo_options(path: Path, args: argparse.Namespace) -> argparse.Namespace:
 
 
 def _handle(path: Path, args: argparse.Namespace, tally: Tally) -> None:
+    def measured() -> tuple[argparse.Namespace, dict]:
+        opts = photo_options(path, args)
+        return opts, measure_photo(path, opts)
+
+    _tell(path, _judged(path, measured), tally)
+
+
+def _judged(path: Path, measured) -> tuple:
+    """Judge and log what ``measured()`` gives: ``(record, log_error)`` or ``(None, error)``.
+
+    ``measured`` returns the photo's options and its record, or raises.
+    """
     from ..analysis.errors import FlatsightError
     from .record_options import judge_and_log
 
     try:
-        args = photo_options(path, args)
-        record = measure_photo(path, args)
+        args, record = measured()
         per_photo = argparse.Namespace(**vars(args))
         per_photo.part = args.part or path.stem
         record, _, log_error = judge_and_log(per_photo, record)
     except FlatsightError as exc:
-        tally.error(path, f"error: {exc}")
-        return
+        return None, f"error: {exc}"
     except Exception as exc:  # noqa: BLE001 - one bad photo must not stop the station's watch
-        tally.error(path, f"internal error: {type(exc).__name__}: {exc}")
+        return None, f"internal error: {type(exc).__name__}: {exc}"
+    return record, log_error
+
+
+def _tell(path: Path, judged: tuple, tally: Tally) -> None:
+    """Print one photo's line (or its error) and count it."""
+    record, problem = judged
+    if record is None:
+        tally.error(path, problem)
         return
     verdict = (record.get("spec") or {}).get("verdict")
     tally.measured(path, verdict or "measured",
-                   _line(record, path) + ("  not logged" if log_error else ""))
-    if log_error is not None:
-        tally.unlogged(str(log_error))
+                   _line(record, path) + ("  not logged" if problem else ""))
+    if problem is not None:
+        tally.unlogged(str(problem))
+
+
+def _handle_together(paths: list[Path], args: argparse.Namespace, tally: Tally,
+                     workers: int) -> None:
+    """Photos that arrived together, measured in parallel processes.
+
+    Each is judged and logged as soon as it is finished and its line printed in the
+    order the photos arrived; on ctrl+c the finished ones are printed before the watch
+    stops.
+    """
+    from contextlib import closing
+
+    from ..analysis.errors import FlatsightError
+    from .parallel import measure_in_parallel
+
+    todo, told, judged = [], 0, {}
+    for path in paths:
+        try:
+            opts = photo_options(path, args)
+            todo.append((path, opts, watch_settings(opts)))
+        except FlatsightError as exc:
+            todo.append((path, None, exc))
+
+    def tell_ready() -> None:
+        nonlocal told
+        while told in judged:
+            _tell(todo[told][0], judged.pop(told), tally)
+            told += 1
+
+    def finished(i: int, outcome) -> None:
+        path, opts, _ = todo[i]
+
+        def measured():
+            if isinstance(outcome, Exception):
+                raise outcome
+            return opts, photo_record(outcome, path, opts)
+
+        judged[i] = _judged(path, measured)
+
+    try:
+        for i, (_, opts, problem) in enumerate(todo):
+            if opts is None:
+                finished(i, problem)
+        runs = [(i, str(p), s) for i, (p, o, s) in enumerate(todo) if o is not None]
+        with closing(measure_in_parallel([(p, s) for _, p, s in runs], workers)) as done:
+            for fin in done:
+                finished(runs[fin.index][0], fin.outcome)
+                tell_ready()
+        tell_ready()
+    except KeyboardInterrupt:
+        for i in sorted(judged):  # finished, logged: shown before the watch stops
+            told = i
+            tell_ready()
+        raise
 
 
 def _summary(tally: Tally, why: str) -> str:
@@ -394,6 +481,7 @@ def run(args: argparse.Namespace) -> int:
     """``flatsight watch``: 0 after a clean stop, 130 after ctrl+c, 2 for bad options or
     folder, or when a result could not be logged."""
     from ..analysis.errors import SettingsError
+    from .parallel import available_cores
     from .record_options import apply_preset, log_path_from_args, tolerance_from_args
 
     try:
@@ -434,6 +522,7 @@ def run(args: argparse.Namespace) -> int:
         return 2
 
     log_path = log_path_from_args(args)
+    workers = args.jobs or available_cores()
     tally = Tally()
     start = clock()
     missing = None
@@ -444,10 +533,16 @@ def run(args: argparse.Namespace) -> int:
               f"{shown(log_path) if log_path else 'nothing: --no-log'}); ctrl+c to stop",
               flush=True)
         while True:
-            for path in watcher.poll():
-                _handle(path, args, tally)
-                if args.max_files is not None and tally.total() >= args.max_files:
-                    raise _Stop("--max-files reached")
+            arrived = watcher.poll()
+            if args.max_files is not None:
+                arrived = arrived[:max(args.max_files - tally.total(), 0)]
+            if len(arrived) > 1 and workers > 1:
+                _handle_together(arrived, args, tally, workers)
+            else:
+                for path in arrived:
+                    _handle(path, args, tally)
+            if args.max_files is not None and tally.total() >= args.max_files:
+                raise _Stop("--max-files reached")
             for path, problem in watcher.take_problems():
                 tally.error(path, f"error: {problem}")
             if watcher.missing != missing:

@@ -14,15 +14,14 @@ import csv
 import io
 import json
 import os
-import signal
 import sqlite3
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_interrupt import interrupt_once_logged
 from flatsight.analysis import inspection_log
 from flatsight.tui.cli import main
 from PIL import Image
@@ -331,7 +330,6 @@ def test_a_folder_as_the_log_still_shows_every_result(mode, quick_measure, photo
 
 def test_a_full_disk_mid_batch_still_shows_every_result(quick_measure, photo_set, tmp_path,
                                                        capsys, monkeypatch):
-    import sqlite3
 
     from flatsight.analysis import inspection_log
 
@@ -494,28 +492,8 @@ def test_ctrl_c_in_the_table_view_shows_every_finished_result(photo_set, tmp_pat
         photos.append(tmp_path / f"BW-FL-{412 + k:04d}.png")
         photos[-1].write_bytes(photo_set.good_png.read_bytes())
     log = tmp_path / "log.sqlite"
-    code = "import sys; from flatsight.tui.cli import main; sys.exit(main(sys.argv[1:]))"
-    proc = subprocess.Popen([sys.executable, "-c", code, "measure", *map(str, photos), *W,
-                             "--log", str(log)],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    try:
-        deadline = time.monotonic() + 300
-        logged = 0
-        while logged == 0 and proc.poll() is None and time.monotonic() < deadline:
-            time.sleep(0.05)  # polling the log, not timing the process
-            try:
-                con = sqlite3.connect(f"{log.as_uri()}?mode=ro", uri=True)
-                logged = con.execute("SELECT count(*) FROM inspections").fetchone()[0]
-                con.close()
-            except sqlite3.Error:
-                pass  # not made yet
-        assert logged, "no record was logged"
-        proc.send_signal(signal.SIGINT)
-        out, err = proc.communicate(timeout=300)
-    finally:
-        proc.kill()
-        proc.wait()
-    assert proc.returncode == 130, err
+    status, out, err = interrupt_once_logged(["measure", *photos, *W, "--log", log], log)
+    assert status == 130, err
     assert "interrupted" in err and "Traceback" not in err
     shown = [p.name for p in photos if p.name in out]
     records = [Path(r["photo"]).name for r in inspection_log.query(log)]

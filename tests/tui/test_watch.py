@@ -385,8 +385,9 @@ def test_watch_takes_each_photos_bench_from_the_presets_photos_table(tmp_path, p
     presets = tmp_path / "presets.toml"
     presets.write_text(PRESETS, encoding="utf-8")
     log = tmp_path / "log.sqlite"
+    # --jobs 1: the stand-in analysis above lives in this process, not in workers
     status, out, err = run_watch(capsys, folder, "--presets", presets, "--log", log,
-                                 "--existing", "--settle", "0", "--interval", "0.01",
+                                 "--jobs", "1", "--existing", "--settle", "0", "--interval", "0.01",
                                  "--max-files", "3", "--timeout", "60")
     assert status == 0, out + err
     assert used == {"BW-FL-0001_hene.png": 632.8, "BW-FL-0002_sodium.png": 589.3}
