@@ -19,7 +19,7 @@ from rich.text import Text
 
 from .safe_text import csv_row, literal, shown
 
-__all__ = ["Reporter", "figures_table", "limit_finding", "limit_lines", "limits_table",
+__all__ = ["Reporter", "cell_width", "figures_table", "limit_finding", "limit_lines", "limits_table",
            "verdict_text", "warning_text", "zernike_table"]
 
 # (label, record key stem, show in fringes)
@@ -65,7 +65,7 @@ def _u(record: dict, key: str) -> float | None:
     return value if isinstance(value, int | float) else None
 
 
-def _cell_width(cell) -> int:
+def cell_width(cell) -> int:
     """Terminal cells the widest line of a table cell takes."""
     plain = cell.plain if isinstance(cell, Text) else str(cell)
     return max(Text(line).cell_len for line in plain.split("\n"))
@@ -390,7 +390,7 @@ class Reporter:
         columns = self._batch_columns()
         cells = [[make(r) for _, _, make in columns] for r in self._rows]
         # the numbers never fold or shorten: below the width they need, one block a photo
-        widths = [max(_cell_width(header), *(_cell_width(row[i]) for row in cells))
+        widths = [max(cell_width(header), *(cell_width(row[i]) for row in cells))
                   for i, (header, _, _) in enumerate(columns)]
         if sum(widths) + 2 * len(columns) + 10 > self.console.width:
             self._narrow(columns, cells)
@@ -406,6 +406,7 @@ class Reporter:
             self.console.print(t)
         if any(_u(r, "pv_nm") is not None for r in self._rows):
             self.console.print(Text(BATCH_U_NOTE, style="dim"))
+        self._references()
         for r in self._rows:  # what decided each verdict that is not a pass
             spec = r.get("spec") or {}
             if spec.get("verdict") in ("fail", "inconclusive"):
@@ -413,6 +414,15 @@ class Reporter:
         for r in self._rows:
             for w in r.get("warnings", []):
                 self.console.print(warning_text(w, Path(r["photo"]).name))
+
+    def _references(self) -> None:
+        """Which reference map was taken off the figures above, and off how many photos."""
+        paths = [(r.get("reference") or {}).get("path") for r in self._rows]
+        for path in dict.fromkeys(p for p in paths if p):
+            n = paths.count(path)
+            whose = "every photo" if n == len(paths) else f"{n} of the {len(paths)} photos"
+            self.console.print(literal(f"reference {Path(path).name} subtracted from {whose} "
+                                       "(path and SHA-256 in --json)"))
 
     def _findings(self, photo: str, spec: dict) -> None:
         """``photo: FAIL irregularity B ...`` for each limit that did not pass; the photo

@@ -245,6 +245,24 @@ def test_a_subtracted_reference_is_named_in_the_table_output(measured):
     assert "reference BW-REF-01.npy subtracted" in text and "98.7 %" in text
 
 
+def test_a_subtracted_reference_is_named_under_the_batch_table(measured):
+    # issue 9 item 13: the batch table did not say a reference map was subtracted
+    from flatsight.analysis.record import flat_fields, measurement_to_record
+
+    ref = {"path": "/shop/maps/BW-REF-01.npy", "sha256": "ab" * 32, "map_rms_nm": 3.125,
+           "covered_fraction": 0.987}
+    rows = [measurement_to_record(measured) | {"photo": f"shots/BW-FL-04{k}.png",
+                                               "reference": ref} for k in (12, 13)]
+    text = printed(rows, width=80, detail=False)
+    assert "reference BW-REF-01.npy subtracted from every photo" in text
+    assert max(len(line) for line in text.splitlines()) <= 80
+    # CSV and JSON carry which map and its SHA-256 (record.flat_fields flattens sections)
+    assert flat_fields(rows[0])["reference.sha256"] == "ab" * 32
+    assert flat_fields(rows[0])["reference.path"] == ref["path"]
+    text = printed([rows[0], measurement_to_record(measured)], width=80, detail=False)
+    assert "subtracted from 1 of the 2 photos" in text
+
+
 def test_the_fringe_column_says_its_wavelength(measured):
     # issue 9 item 10: fringes are counted at the test wavelength, ISO 3/A(B) limits at
     # 546.07 nm; the table must say which
