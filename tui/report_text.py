@@ -19,8 +19,8 @@ from rich.text import Text
 
 from .safe_text import csv_row, literal, shown
 
-__all__ = ["Reporter", "cell_width", "figures_table", "limit_finding", "limit_lines", "limits_table",
-           "verdict_text", "warning_text", "zernike_table"]
+__all__ = ["Reporter", "cell_width", "figures_table", "limit_finding", "limit_lines",
+           "limits_table", "verdict_text", "warning_text", "zernike_table"]
 
 # (label, record key stem, show in fringes)
 FIGURE_ROWS = [
