@@ -404,7 +404,7 @@ def run_report(args: argparse.Namespace) -> int:
         if suffix == ".png":
             atomic_write_bytes(out, map_png(rec))
         else:
-            atomic_write_text(out, certificate_html(rec))
+            atomic_write_text(out, certificate_html(rec, log=str(_log_path(args).absolute())))
     except FlatsightError as exc:
         return _fail("report", exc)
     except OSError as exc:

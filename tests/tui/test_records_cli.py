@@ -191,6 +191,7 @@ def test_report_html_and_png(filled_log, tmp_path, capsys):
     assert status == 0 and "fail" in out
     page = html_out.read_text(encoding="utf-8")
     assert ">FAIL<" in page and "BW-FL-0413" in page and "data:image/png;base64," in page
+    assert f"<th>Record</th><td>2 in {filled_log.absolute()}</td>" in page  # its provenance
     png_out = tmp_path / "map.png"
     status, _, _ = run_cli(capsys, "report", "1", "--log", filled_log, "-o", png_out)
     assert status == 0 and png_out.read_bytes().startswith(b"\x89PNG")
