@@ -438,8 +438,10 @@ def _facts(record: Mapping, log: str | None, map_source: str) -> str:
     ]
     body = "".join(f"<tr><th>{_e(k)}</th><td>{_e(v if v is not None else '—')}</td></tr>"
                    for k, v in rows)
-    body += (f"<tr><th>Photo SHA-256</th><td class=\"hash\">"
-             f"{_e(record.get('photo_sha256') or '—')}</td></tr>")
+    sha = record.get("photo_sha256")
+    if not sha:  # an average or a sequence records its photos' names, not their hashes
+        sha = "not recorded for photos combined" if _measured_from(record) else "—"
+    body += (f"<tr><th>Photo SHA-256</th><td class=\"hash\">{_e(sha)}</td></tr>")
     if reference:
         body += (f"<tr><th>Ref. SHA-256</th><td class=\"hash\">"
                  f"{_e(reference.get('sha256') or 'not recorded')}</td></tr>")

@@ -187,6 +187,11 @@ def test_a_pair_is_one_row_with_its_size_and_the_angle_of_a_high_point():
 def test_the_page_names_the_log_the_record_came_from():
     page = certificate.certificate_html(make_record(), log="/srv/shop/inspections.sqlite")
     assert "<th>Record</th><td>17 in /srv/shop/inspections.sqlite</td>" in page
+    # an average names its photos, and says it has no single photo's hash
+    page = certificate.certificate_html(full_record() | {"photo_sha256": None})
+    assert "average of 3 photos: BW-FL-0412_0.png, BW-FL-0412_1.png, BW-FL-0412_2.png" in page
+    assert "not recorded for photos combined" in page
+    assert "map /srv/shop/maps/BW-REF-01.npy subtracted" in page and "ab" * 32 in page
 
 
 def test_no_signed_zero_on_the_page():
