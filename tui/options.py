@@ -42,7 +42,7 @@ TOLERANCE_EXIT_CODES = """exit status:
   0  every photo measured (and within tolerance, when --spec gives one)
   1  a photo measured but out of tolerance
   2  usage error, a photo could not be read, or the log or a --save-map map
-     could not be written (the figures are still shown, and logged if they can be)
+     could not be written (the figures are still shown, and logged if possible)
   3  a photo was read but could not be analysed (no carrier, closed fringes...)
   4  internal error (please report it with the photo)
   5  inconclusive under --decision guarded: a figure lies within its uncertainty
