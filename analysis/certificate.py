@@ -4,8 +4,10 @@ The surface map is re-made from the record alone: from the saved height map when
 record names one (``height_map_path``), otherwise from its Zernike coefficients
 evaluated over the unit disk, and the page says which. Everything the page needs,
 the map included, is inside the HTML file (a base64 PNG, inline CSS), so it can be
-mailed or archived as it is. It prints on A4 and on Letter: the content is narrower
-than either page and no table is split across pages.
+mailed or archived as it is. It prints on one sheet of A4 or of Letter: the Zernike
+table lists the largest terms and the page the first warnings, each saying that the
+record holds the rest, and the terms the figures were taken without are named in words
+and left out of the table.
 
 References
 ----------
@@ -23,6 +25,7 @@ import base64
 import html
 import io
 import json
+import math
 import re
 from collections.abc import Mapping
 from pathlib import Path
@@ -31,7 +34,7 @@ import numpy as np
 
 from .formatting import finite_number, format_number
 from .version import flatsight_version
-from .zernike import noll_to_nm, osa_to_noll, term_name, zernike_basis
+from .zernike import nm_to_noll, noll_to_nm, osa_to_noll, term_name, zernike_basis
 
 __all__ = [
     "MAP_PAD_PX",
@@ -42,8 +45,11 @@ __all__ = [
     "map_colours",
     "map_grid",
     "map_png",
+    "removed_terms",
+    "removed_terms_text",
     "software",
     "surface_map",
+    "zernike_rows",
 ]
 
 MAP_SIZE_PX = 360
@@ -60,17 +66,19 @@ VERDICT_MEANING = {
     "inconclusive": "no limit is proven broken, but at least one figure lies within its "
                     "expanded uncertainty of its limit, so conformity is not proven either",
 }
+ZERNIKE_ROWS_SHOWN = 8  # the largest terms the page lists; the record holds them all
+WARNINGS_SHOWN = 3  # warnings listed on the page; the record holds them all
+PISTON_TILT = (1, 2, 3)
 _FIGURE_ROWS = [
-    ("pv_nm", "PV", "peak to valley, piston and tilt removed"),
-    ("rms_nm", "RMS", "piston and tilt removed (ISO 10110-5 RMSt)"),
-    ("pvr_nm", "PVr", "Evans's robust PV: 36-term fit PV + 3 x residual RMS"),
-    ("power_nm", "power", "sag of the best-fit sphere, + when the centre is high"),
-    ("irregularity_nm", "irregularity", "PV after power is removed (ISO 10110-5 B)"),
-    ("astigmatism_nm", "astigmatism", "PV of the astigmatism terms"),
-    ("symmetric_irregularity_nm", "symmetric irregularity",
-     "PV of the symmetric terms beyond power (ISO 10110-5 C)"),
-    ("rms_irregularity_nm", "RMSi", "RMS after power is removed"),
-    ("rms_asymmetric_nm", "RMSa", "RMS of the non-symmetric part"),
+    ("pv_nm", "PV"),
+    ("rms_nm", "RMS (RMSt)"),
+    ("pvr_nm", "PVr (robust PV)"),
+    ("power_nm", "power (+ convex)"),
+    ("irregularity_nm", "irregularity (B)"),
+    ("astigmatism_nm", "astigmatism"),
+    ("symmetric_irregularity_nm", "symmetric irregularity (C)"),
+    ("rms_irregularity_nm", "RMSi"),
+    ("rms_asymmetric_nm", "RMSa"),
 ]
 
 
@@ -101,6 +109,88 @@ def _noll_coefficients(zernike: Mapping | None) -> np.ndarray:
     return raw
 
 
+def removed_terms(record: Mapping) -> tuple[int, ...]:
+    """The Noll terms the record's figures were taken without: always piston and tilt."""
+    given = (record.get("settings") or {}).get("removed_terms") or ()
+    try:
+        extra = {int(j) for j in given if int(j) >= 1}
+    except (TypeError, ValueError):
+        extra = set()
+    return tuple(sorted(set(PISTON_TILT) | extra))
+
+
+def _family(j: int) -> str:
+    """Term ``j``'s name without its orientation: ``tilt``, ``astigmatism``, ``heptafoil``."""
+    name = term_name(j)
+    return name if noll_to_nm(j)[1] == 0 else name.rsplit(" ", 1)[0]
+
+
+def _spans(js) -> str:
+    """``1–3, 11``: the Noll indices as runs."""
+    runs: list[list[int]] = []
+    for j in sorted(js):
+        if runs and j == runs[-1][-1] + 1:
+            runs[-1].append(j)
+        else:
+            runs.append([j])
+    return ", ".join(f"{r[0]}–{r[-1]}" if len(r) > 2 else ", ".join(map(str, r))
+                     for r in runs)
+
+
+def removed_terms_text(js) -> str:
+    """The removed terms in words: ``piston and tilt (Noll 1–3)``."""
+    names = list(dict.fromkeys(_family(j) for j in sorted(js)))
+    words = names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
+    return f"{words} (Noll {_spans(js)})"
+
+
+def zernike_rows(coefficients_nm, *, removed=PISTON_TILT) -> list[tuple]:
+    """The fitted terms as a customer reads them, largest first, removed terms left out.
+
+    A cosine and sine pair of one order (astigmatism 0° and 45°, the two comas ...) is
+    one row: its combined size ``sqrt(a_c^2 + a_s^2)`` (the pair's RMS over the disk, the
+    terms being orthonormal) and the orientation ``theta0`` of one of its ``|m|`` high
+    points, from ``a_c cos(m theta) + a_s sin(m theta) = A cos(m (theta - theta0))``: an
+    angle in ``[0, 360/|m|)`` degrees, counter-clockwise from the photo's right-hand
+    side, rounded to a whole degree. A rotationally symmetric term keeps its sign.
+
+    Returns
+    -------
+    list of (noll_indices, n, abs_m, name, size_nm, orientation_deg)
+        ``size_nm`` None for a term the fit could not give; ``orientation_deg`` None
+        for symmetric terms and for a pair too small to have a direction.
+    """
+    a = np.asarray(coefficients_nm, dtype=float)
+    gone = set(removed)
+    rows, seen = [], set()
+    for j in range(1, a.size + 1):
+        if j in seen or j in gone:
+            continue
+        n, m = noll_to_nm(j)
+        if m == 0:
+            seen.add(j)
+            value = a[j - 1] if np.isfinite(a[j - 1]) else None
+            rows.append(((j,), n, 0, _family(j), value, None))
+            continue
+        pair = sorted({j, nm_to_noll(n, -m)})
+        kept = [k for k in pair if k <= a.size and k not in gone]
+        seen.update(pair)
+        # a partner left out (removed, or past the fit) counts as zero
+        cos_first = sorted(pair, key=lambda k: -noll_to_nm(k)[1])  # m > 0 is the cosine
+        cos_sin = [a[k - 1] if k in kept else 0.0 for k in cos_first]
+        if not all(np.isfinite(cos_sin)):
+            rows.append((tuple(kept), n, abs(m), _family(j), None, None))
+            continue
+        size = math.hypot(*cos_sin)
+        period = 360.0 / abs(m)
+        angle = None
+        if round(size, 2) > 0:
+            angle = round((math.degrees(math.atan2(cos_sin[1], cos_sin[0])) % 360.0) / abs(m))
+            angle = 0 if angle >= period else angle  # 119.7 on a 120° period is 0
+        rows.append((tuple(kept), n, abs(m), _family(j), size, angle))
+    return sorted(rows, key=lambda r: -abs(r[4]) if r[4] is not None else 0.0)
+
+
 def _load_height_map(path: Path) -> np.ndarray | None:
     """A saved map (``.npy``, or 32-bit float ``.tif`` as ``measure --save-map`` writes)."""
     try:
@@ -115,7 +205,7 @@ def _load_height_map(path: Path) -> np.ndarray | None:
 
 
 def surface_map(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> tuple[np.ndarray, str]:
-    """The surface height (nm, piston and tilt removed) as a square map over the aperture.
+    """The surface height (nm, the record's removed terms taken out) as a square map.
 
     Parameters
     ----------
@@ -138,19 +228,22 @@ def surface_map(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> tuple[np.ndar
             rows = np.flatnonzero(np.isfinite(h).any(axis=1))
             cols = np.flatnonzero(np.isfinite(h).any(axis=0))
             h = h[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1]
-            return h, "Map: the measured height map saved with the record."
+            return h, ("Map: the measured height map saved with the record, piston and "
+                       "tilt (Noll 1–3) removed.")
     a = _noll_coefficients(record.get("zernike"))
     x, y = map_grid(size_px)
     inside = x**2 + y**2 <= 1.0
     h = np.full(x.shape, np.nan)
+    removed = removed_terms(record)
     if a.size:
         a = np.where(np.isfinite(a), a, 0.0)
-        a[:3] = 0.0  # piston and tilt are not part of the surface's form
+        # what the figures were taken without is not part of the surface they describe
+        a[[j - 1 for j in removed if j <= a.size]] = 0.0
         h[inside] = zernike_basis(a.size, x[inside], y[inside]) @ a
     else:
         h[inside] = 0.0
-    return h, (f"Map reconstructed from the Zernike fit ({a.size} Noll terms, piston and "
-               "tilt removed); detail finer than the fit is not shown.")
+    return h, (f"Map reconstructed from the Zernike fit ({a.size} Noll terms) without "
+               f"{removed_terms_text(removed)}; finer detail is not shown.")
 
 
 def _font(size: int):
@@ -226,47 +319,56 @@ _CSS = """
         --none: rgb(95,99,104); }
 * { box-sizing: border-box; }
 html { background: #fff; }
-body { font: 9.5pt/1.35 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; color: #16181b;
-       margin: 0 auto; padding: 10mm 8mm; max-width: 182mm; }
-h1 { font-size: 17pt; margin: 0 0 1mm; }
-h2 { font-size: 11.5pt; margin: 6mm 0 2mm; border-bottom: 0.3mm solid #999;
+body { font: 8pt/1.2 "DejaVu Sans", "Liberation Sans", Arial, sans-serif; color: #16181b;
+       margin: 0 auto; padding: 10mm 8mm; max-width: 186mm; }
+header { display: flex; align-items: baseline; gap: 4mm; flex-wrap: wrap; }
+h1 { font-size: 13pt; margin: 0; }
+h2 { font-size: 8.5pt; margin: 1.5mm 0 0.5mm; border-bottom: 0.25mm solid #999;
      break-after: avoid; page-break-after: avoid; }
-p { margin: 1.5mm 0; }
-.sub { color: #444; margin: 0 0 4mm; }
+p { margin: 0.8mm 0; }
+.sub { color: #444; margin: 0; font-size: 7pt; }
 table { border-collapse: collapse; width: 100%; break-inside: avoid; page-break-inside: avoid; }
-th, td { text-align: left; padding: 0.8mm 2mm; border-bottom: 0.2mm solid #ccc;
+th, td { text-align: left; padding: 0.2mm 1.4mm; border-bottom: 0.2mm solid #ccc;
          vertical-align: top; }
 th { font-weight: 600; background: #f1f2f4; }
-td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; }
-.pair td, .pair th { padding: 0.4mm 1.5mm; }
-.verdict { display: flex; align-items: center; gap: 6mm; padding: 3mm 5mm; color: #fff;
-           border-radius: 1.5mm; margin: 3mm 0 4mm; -webkit-print-color-adjust: exact;
+td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+.verdict { display: flex; align-items: center; gap: 5mm; padding: 1.6mm 4mm; color: #fff;
+           border-radius: 1.2mm; margin: 1mm 0 1.5mm; -webkit-print-color-adjust: exact;
            print-color-adjust: exact; break-inside: avoid; }
-.verdict .word { font-size: 22pt; font-weight: 700; letter-spacing: 0.08em; }
+.verdict .word { font-size: 16pt; font-weight: 700; letter-spacing: 0.08em; }
 .verdict.pass { background: var(--pass); }
 .verdict.fail { background: var(--fail); }
 .verdict.inconclusive { background: var(--inconclusive); }
 .verdict.none { background: var(--none); }
-.top { display: flex; gap: 5mm; align-items: flex-start; break-inside: avoid; }
-.top figure { margin: 0; flex: 0 0 86mm; }
-.top figure img { width: 86mm; height: auto; display: block; }
+.top { display: flex; gap: 4mm; align-items: flex-start; break-inside: avoid; }
+.top figure { margin: 0; flex: 0 0 54mm; }
+.top figure img { width: 54mm; height: auto; display: block; }
+.cols { display: flex; gap: 5mm; align-items: flex-start; }
+.cols > div { flex: 1 1 0; min-width: 0; }
+.cols > div:first-child { flex-grow: 0.9; }
+table.figs td:first-child { white-space: nowrap; }
+table.zern, table.figs { font-size: 7.4pt; }
+table.zern td:nth-child(2) { white-space: nowrap; }
 .keep { break-inside: avoid; page-break-inside: avoid; }
-figcaption { font-size: 8.5pt; color: #444; margin-top: 1mm; }
-.facts { flex: 1; }
-.facts th { width: 26mm; background: none; }
-.hash { font-family: "DejaVu Sans Mono", monospace; font-size: 7.5pt; word-break: break-all; }
-.pair { display: flex; gap: 4mm; break-inside: avoid; }
-.pair table { font-size: 8pt; }
+figcaption { font-size: 6.8pt; color: #444; margin-top: 0.6mm; }
+.facts { flex: 1; font-size: 7.3pt; }
+.facts th { width: 25mm; background: none; white-space: nowrap; }
+.facts td { overflow-wrap: anywhere; }
+.hash { font-family: "DejaVu Sans Mono", monospace; font-size: 6.5pt; word-break: break-all; }
 td.pass { color: var(--pass); font-weight: 700; }
 td.fail { color: var(--fail); font-weight: 700; }
 td.inconclusive { color: var(--inconclusive); font-weight: 700; }
-ul.method { margin: 1mm 0; padding-left: 5mm; }
-ul.method li { margin: 0.6mm 0; }
-.sign { display: flex; gap: 10mm; margin-top: 8mm; break-inside: avoid; }
-.sign div { flex: 1; border-top: 0.3mm solid #333; padding-top: 1mm; font-size: 8.5pt; }
-.small { font-size: 8.5pt; color: #333; }
-@page { margin: 12mm; }
-@media print { body { padding: 0; } }
+.small, .small td, .small th { font-size: 6.5pt; line-height: 1.18; color: #333; }
+.fine { columns: 3; column-gap: 4.5mm; font-size: 6.1pt; line-height: 1.17; color: #333; }
+.fine h2 { column-span: all; }
+.fine p { margin: 0 0 0.8mm; }
+ul.method { margin: 0 0 0.8mm; padding-left: 3mm; }
+ul.method li { margin: 0 0 0.4mm; break-inside: avoid; }
+ul.warn { margin: 0.5mm 0; padding-left: 4mm; }
+.sign { display: flex; gap: 10mm; margin-top: 3mm; break-inside: avoid; }
+.sign div { flex: 1; border-top: 0.3mm solid #333; padding-top: 0.6mm; font-size: 7pt; }
+@page { margin: 9mm; }
+@media print { body { padding: 0; max-width: none; } }
 """
 
 
@@ -293,52 +395,102 @@ def software(record: Mapping) -> str:
     return f"measured with Flatsight {measured}; certificate by Flatsight {writer}"
 
 
-def _facts(record: Mapping) -> str:
+def _measured_from(record: Mapping) -> str | None:
+    """What the figures come from when it is more than one photo: an average or a sequence."""
+    average = record.get("average") or {}
+    frames = [str(p) for p in record.get("frames") or []]
+    if average.get("photos"):
+        kind, paths = f"average of {len(average['photos'])} photos", average["photos"]
+    elif frames:
+        kind, paths = f"phase-shifted sequence of {len(frames)} frames", frames
+    else:
+        return None
+    names = [Path(str(p)).name for p in paths]
+    more = f" and {len(names) - 3} more (all in the record)" if len(names) > 3 else ""
+    return f"{kind}: {', '.join(names[:3])}{more}"
+
+
+def _facts(record: Mapping, log: str | None, map_source: str) -> str:
     ap = record.get("aperture") or {}
     settings = record.get("settings") or {}
+    reference = record.get("reference") or {}
     rows = [
         ("Part", record.get("part")),
         ("Operator", record.get("operator")),
         ("Station", record.get("station")),
         ("Date (UTC)", _when(record.get("logged_utc"))),
-        ("Record", record.get("record_id")),
-        ("Photo", record.get("photo")),
+        ("Record", (f"{record.get('record_id')} in {log}" if log and
+                    record.get("record_id") is not None else record.get("record_id"))),
+    ]
+    # an average or a sequence names its photos; one photo its path
+    rows.append(("Made from", _measured_from(record)) if _measured_from(record)
+                else ("Photo", record.get("photo")))
+    if reference:
+        rows.append(("Reference", f"map {reference.get('path') or '—'} subtracted"))
+    rows += [
         ("Wavelength", f"{_fmt(record.get('wavelength_nm'), 2)} nm"),
         ("Aperture", (f"{_fmt(settings.get('diameter_mm'), 1)} mm diameter"
                       if settings.get("diameter_mm") else
                       f"radius {_fmt(ap.get('radius_px'), 1)} px in the photo")),
         ("Software", software(record)),
+        ("Map", "height in nm, the photo's top up, + high; "
+                + map_source.removeprefix("Map: ").removeprefix("Map ")),
     ]
     body = "".join(f"<tr><th>{_e(k)}</th><td>{_e(v if v is not None else '—')}</td></tr>"
                    for k, v in rows)
-    body += (f"<tr><th>Photo SHA-256</th><td class=\"hash\">"
-             f"{_e(record.get('photo_sha256') or '—')}</td></tr>")
+    sha = record.get("photo_sha256")
+    if not sha:  # an average or a sequence records its photos' names, not their hashes
+        sha = "not recorded for photos combined" if _measured_from(record) else "—"
+    body += (f"<tr><th>Photo SHA-256</th><td class=\"hash\">{_e(sha)}</td></tr>")
+    if reference:
+        body += (f"<tr><th>Ref. SHA-256</th><td class=\"hash\">"
+                 f"{_e(reference.get('sha256') or 'not recorded')}</td></tr>")
     return f'<table class="facts">{body}</table>'
+
+
+def _settings_text(settings: Mapping) -> str:
+    """The measurement's settings in words (the record keeps them as data)."""
+    words = []
+    for key, value in settings.items():
+        if key == "wavelength_nm":
+            words.append(f"test wavelength {_fmt(value, 2)} nm")
+        elif key == "n_terms":
+            words.append(f"{_e(value)} Zernike terms fitted")
+        elif key == "invert":
+            words.append("sign inverted (--invert)" if value else "sign as photographed")
+        elif key == "diameter_mm":
+            words.append(f"diameter {_fmt(value, 1)} mm" if value else "diameter not given")
+        elif key == "report_wavelength_nm":
+            if value:
+                words.append(f"also reported at {_fmt(value, 2)} nm")
+        elif key == "removed_terms":
+            words.append(f"{removed_terms_text(removed_terms({'settings': settings}))} "
+                         "removed from every figure")
+        else:
+            words.append(f"{_e(key)} = {_e(json.dumps(value))}")
+    return "; ".join(words)
 
 
 def _figures_table(record: Mapping) -> str:
     lam = finite_number(record.get("wavelength_nm"))
     uncertainty = record.get("uncertainty") or {}
     rows = []
-    for key, label, meaning in _FIGURE_ROWS:
+    for key, label in _FIGURE_ROWS:
         nm = finite_number(record.get(key))
         waves = nm / lam if nm is not None and lam else None
-        fringes = 2 * waves if waves is not None else None
         u = finite_number(uncertainty.get(key))
         u_text = "—" if u is None else f"± {_fmt(u, 1)}"
         rows.append(f"<tr><td>{_e(label)}</td><td class=\"num\">{_fmt(nm, 1)}</td>"
                     f"<td class=\"num\">{u_text}</td><td class=\"num\">{_fmt(waves, 4)}</td>"
-                    f"<td class=\"num\">{_fmt(fringes, 3)}</td>"
-                    f"<td class=\"small\">{_e(meaning)}</td></tr>")
+                    "</tr>")
     roc = record.get("radius_of_curvature_m")
     if roc is not None:
-        rows.append(f"<tr><td>radius of curvature</td><td class=\"num\" colspan=\"4\">"
-                    f"{_fmt(roc, 1)} m</td><td class=\"small\">of the best-fit sphere, "
-                    "signed like the power</td></tr>")
-    return ("<table><thead><tr><th>figure</th><th class=\"num\">nm</th>"
-            "<th class=\"num\">U (k = 2), nm</th>"
-            f"<th class=\"num\">waves at {_fmt(lam, 2)} nm</th><th class=\"num\">fringes</th>"
-            "<th>meaning</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+        rows.append(f"<tr><td>radius (as power)</td><td class=\"num\" colspan=\"3\">"
+                    f"{_fmt(roc, 1)} m</td></tr>")
+    return ("<table class=\"figs\"><thead><tr><th>figure</th><th class=\"num\">nm</th>"
+            "<th class=\"num\">U (k = 2)<br>nm</th>"
+            f"<th class=\"num\">waves<br>at {_fmt(lam, 2)} nm</th>"
+            "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
 
 
 def _spec_table(spec: Mapping) -> str:
@@ -347,17 +499,16 @@ def _spec_table(spec: Mapping) -> str:
         unit = {"fr": "fringes", "w": "waves", "um": "µm"}.get(lim.get("unit"), lim.get("unit"))
         wl = lim.get("unit_wavelength_nm")
         unit_note = f" at {_fmt(wl, 2)} nm" if wl else ""
-        value = "|measured|" if lim.get("compared") == "magnitude" else "measured"
         name, label = lim.get("name"), lim.get("label")
         title = label if name == label or not name else f"{name}: {label}"
         u = finite_number(lim.get("uncertainty_nm"))
         verdict = lim.get("verdict")
         rows.append(
             f"<tr><td>{_e(title)}</td>"
-            f"<td class=\"num\">≤ {_e(lim.get('limit'))} {_e(unit)}{_e(unit_note)}<br>"
+            f"<td class=\"num\">≤ {_e(lim.get('limit'))} {_e(unit)}{_e(unit_note)} "
             f"<span class=\"small\">= {_fmt(lim.get('limit_nm'), 1)} nm</span></td>"
-            f"<td class=\"num\">{_fmt(lim.get('measured_nm'), 1)} nm<br><span class=\"small\">"
-            f"{_e(value)}</span></td>"
+            f"<td class=\"num\">{_fmt(lim.get('measured_nm'), 1)} nm <span class=\"small\">"
+            f"{'(magnitude)' if lim.get('compared') == 'magnitude' else ''}</span></td>"
             f"<td class=\"num\">{'± ' + _fmt(u, 1) + ' nm' if u is not None else '—'}</td>"
             f"<td class=\"num\">{format_number(lim.get('margin_nm'), 1, sign=True)} nm</td>"
             f"<td class=\"{_e(verdict)}\">{_e(VERDICT_WORDS.get(verdict, verdict))}</td>"
@@ -443,36 +594,54 @@ def _method_items(record: Mapping) -> str:
     note = ("" if recorded else
             "<p class=\"small\">The record does not name its figure method; this is the "
             "method of the Flatsight that wrote the certificate.</p>")
-    return (f"<p class=\"small\">{plain(intro)}</p><ul class=\"method small\">"
+    return (f"<p><b>How the figures are taken.</b> {plain(intro)}</p><ul class=\"method\">"
             + "".join(f"<li>{plain(item)}</li>" for item in items) + "</ul>" + note)
 
 
-def _zernike_tables(record: Mapping) -> str:
+def _zernike_table(record: Mapping) -> str:
+    """The largest fitted terms, removed terms left out, pairs as size and orientation."""
     a = _noll_coefficients(record.get("zernike"))
-    lam = record.get("wavelength_nm")
+    lam = finite_number(record.get("wavelength_nm"))
     if not a.size:
         return "<p>The record holds no Zernike coefficients.</p>"
-    half = (a.size + 1) // 2
-    tables = []
-    for start, stop in ((0, half), (half, a.size)):
-        rows = []
-        for i in range(start, stop):
-            j = i + 1
-            n, m = noll_to_nm(j)
-            waves = a[i] / float(lam) if lam else None
-            rows.append(f"<tr><td class=\"num\">{j}</td><td class=\"num\">{n}</td>"
-                        f"<td class=\"num\">{m}</td><td>{_e(term_name(j))}</td>"
-                        f"<td class=\"num\">{_fmt(a[i], 2)}</td>"
-                        f"<td class=\"num\">{_fmt(waves, 4)}</td></tr>")
-        tables.append("<table><thead><tr><th class=\"num\">j</th><th class=\"num\">n</th>"
-                      "<th class=\"num\">m</th><th>term</th><th class=\"num\">nm</th>"
-                      "<th class=\"num\">waves</th></tr></thead><tbody>" + "".join(rows)
-                      + "</tbody></table>")
-    return f'<div class="pair">{"".join(tables)}</div>'
+    rows = zernike_rows(a, removed=removed_terms(record))
+    shown = rows[:ZERNIKE_ROWS_SHOWN]
+    body = []
+    for js, _, _, name, size, angle in shown:
+        waves = size / lam if size is not None and lam else None
+        body.append(f"<tr><td class=\"num\">{_e(', '.join(map(str, js)))}</td>"
+                    f"<td>{_e(name)}</td><td class=\"num\">{_fmt(size, 2)}</td>"
+                    f"<td class=\"num\">{_fmt(waves, 4)}</td>"
+                    f"<td class=\"num\">{'—' if angle is None else f'{angle}°'}</td></tr>")
+    note = (f"The {len(shown)} largest of {len(rows)} rows; " if len(rows) > len(shown)
+            else "Every fitted term; ")
+    note += (f"all {a.size} are in the record (history --json). A cosine and sine pair "
+             "is one row: its combined RMS, and at what angle (counter-clockwise from the "
+             "photo's right) one of its |m| high points lies.")
+    return ("<table class=\"zern\"><thead><tr><th class=\"num\">Noll</th><th>term</th>"
+            "<th class=\"num\">nm RMS</th><th class=\"num\">waves</th>"
+            "<th class=\"num\">high at</th></tr></thead><tbody>" + "".join(body)
+            + f"</tbody></table><p class=\"small\">{_e(note)}</p>")
 
 
-def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None) -> str:
-    """The certificate of one logged record as a self-contained HTML document.
+def _warnings_html(record: Mapping) -> str:
+    warnings = [str(w) for w in record.get("warnings") or []]
+    if not warnings:
+        return ""
+    items = "".join(f"<li>{_e(w)}</li>" for w in warnings[:WARNINGS_SHOWN])
+    more = len(warnings) - WARNINGS_SHOWN
+    if more > 0:
+        items += f"<li>and {more} more, in the record (flatsight history --json)</li>"
+    return f"<h2>Warnings at measurement</h2><ul class=\"warn small\">{items}</ul>"
+
+
+def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None,
+                     log: str | None = None) -> str:
+    """The certificate of one logged record as a self-contained HTML page of one sheet.
+
+    It prints on one A4 or one Letter sheet: the Zernike table lists the largest terms
+    (:data:`ZERNIKE_ROWS_SHOWN`) and the page the first :data:`WARNINGS_SHOWN` warnings,
+    each saying where the rest are.
 
     Parameters
     ----------
@@ -481,6 +650,8 @@ def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None) -> 
         ``part``, ``operator``, ``station``, ``logged_utc``).
     map_png_bytes : bytes, optional
         The map image; made with :func:`map_png` when not given.
+    log : str, optional
+        The inspection log the record was read from, named beside the record id.
 
     Returns
     -------
@@ -497,14 +668,11 @@ def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None) -> 
                f"it; fringes at {_fmt(spec.get('spec_wavelength_nm'), 2)} nm) under the "
                f"{_e(rule)} decision rule"
                if spec else "no tolerance was given, so no pass or fail is stated")
-    warnings = record.get("warnings") or []
     settings = record.get("settings") or {}
     part = record.get("part") or "part not named"
     zern = record.get("zernike") or {}
     n_terms = len(zern.get("coefficients_nm") or [])
-    warn_html = ("<h2>Warnings at measurement</h2><ul>" + "".join(
-        f"<li>{_e(w)}</li>" for w in warnings) + "</ul>") if warnings else ""
-    settings_html = ", ".join(f"{_e(k)} = {_e(json.dumps(v))}" for k, v in settings.items())
+    removed = removed_terms_text(removed_terms(record))
     b64 = base64.b64encode(png).decode("ascii")
     return f"""<!DOCTYPE html>
 <html lang="en">
@@ -528,46 +696,42 @@ measured {_e(_when(record.get('logged_utc')) or '—')} ·
 <section class="top">
 <figure>
 <img alt="surface height map, colour bar in nanometres" src="data:image/png;base64,{b64}">
-<figcaption>Surface height as the photo is seen (top of the photo up), piston and tilt
-removed; positive is a high point on the part. {_e(map_source)}</figcaption>
 </figure>
-{_facts(record)}
+{_facts(record, log, map_source)}
 </section>
-<h2>Figures</h2>
+<div class="cols">
+<div>
+<h2>Figures ({_e(removed)} removed)</h2>
 {_figures_table(record)}
+</div>
+<div>
+<h2>Zernike terms without {_e(removed)}</h2>
+{_zernike_table(record)}
+</div>
+</div>
 {"<h2>Tolerance</h2>" + _spec_table(spec) if spec else ""}
-<section class="keep">
-<h2>{"Decision rule and uncertainty" if spec else "Uncertainty"}</h2>
+{_warnings_html(record)}
+<section class="fine">
+<h2>Decision rule, uncertainty, method and scope</h2>
 {_decision_html(spec) if spec else ""}
 {_uncertainty_html(record)}
-</section>
-{warn_html}
-<section class="keep">
-<h2>What this measurement covers</h2>
-<p>The figures describe the surface form of the measured face over the analysed aperture,
-from a single photo against a reference flat. The reference flat's own form error is
-included in them, as are air currents, temperature differences and the way the part was
-supported when the photo was taken. They do not cover the other faces, surface
-imperfections (scratches, digs), roughness, dimensions, or anything outside the aperture.
-This certificate is not a substitute for the shop's calibrated instruments or for the
-customer's own acceptance procedure.</p>
-<div class="sign"><div>Inspected by</div><div>Checked by</div><div>Date</div></div>
-</section>
-<h2>Zernike coefficients (Noll order, each the term's RMS)</h2>
-{_zernike_tables(record)}
-<section class="keep">
-<h2>Method</h2>
-<p>One photo of the fringes between the part and a reference flat in monochromatic light
-at {_fmt(record.get('wavelength_nm'), 2)} nm, analysed by Fourier-transform fringe analysis
-(Takeda, Ina &amp; Kobayashi, JOSA 72, 156, 1982); the unwrapped phase gives height as
-phase × wavelength / 4π. A {n_terms}-term Zernike fit in Noll's ordering and normalisation
-(Noll, JOSA 66, 207, 1976) gives power, astigmatism and the symmetric terms; PVr follows
-Evans (Opt. Eng. 48, 043605, 2009). Tolerances are written in ISO 10110-5 notation.</p>
-<p class="small">Settings: {settings_html or '—'}</p>
-</section>
-<h2>How the figures are taken</h2>
+<p><b>Method.</b> One photo of the fringes between the part and a reference flat in
+monochromatic light at {_fmt(record.get('wavelength_nm'), 2)} nm, analysed by
+Fourier-transform fringe analysis (Takeda, Ina &amp; Kobayashi, JOSA 72, 156, 1982); the
+unwrapped phase gives height as phase × wavelength / 4π. A {n_terms}-term Zernike fit in
+Noll's ordering and normalisation (Noll, JOSA 66, 207, 1976) gives power, astigmatism and
+the symmetric terms; PVr follows Evans (Opt. Eng. 48, 043605, 2009). Tolerances are
+written in ISO 10110-5 notation. Settings: {_settings_text(settings) or '—'}.</p>
+<p><b>What this measurement covers.</b> The figures describe the surface form of the
+measured face over the analysed aperture, from a single photo against a reference flat.
+The reference flat's own form error is included in them, as are air currents, temperature
+differences and the way the part was supported when the photo was taken. They do not
+cover the other faces, surface imperfections (scratches, digs), roughness, dimensions, or
+anything outside the aperture. This certificate is not a substitute for the shop's
+calibrated instruments or for the customer's own acceptance procedure.</p>
 {_method_items(record)}
-
+</section>
+<div class="sign"><div>Inspected by</div><div>Checked by</div><div>Date</div></div>
 </body>
 </html>
 """

@@ -239,7 +239,9 @@ def term_name(j: int) -> str:
     if am == 1:
         axis = "x" if m > 0 else "y"
     else:
-        axis = "0°" if m > 0 else f"{90 / am:g}°"
+        # the sine term is the cosine turned by a quarter of its period, 90/|m| degrees,
+        # given to a tenth of a degree (12.9°, never 12.8571°)
+        axis = "0°" if m > 0 else f"{round(90 / am, 1):g}°"
     return f"{prefix}{base} {axis}"
 
 

@@ -12,6 +12,7 @@ from .options import (
     NO_TOLERANCE_EXIT_CODES,
     angle_type,
     diameter_type,
+    save_map,
     terms_type,
     wavelength_type,
 )
@@ -157,6 +158,7 @@ def run(args: argparse.Namespace) -> int:
         )
         return 2
     current = None
+    map_errors: list[str] = []  # --save-maps maps that could not be written
     try:
         settings = MeasureSettings(
             wavelength_nm=float(args.wavelength),
@@ -199,14 +201,12 @@ def run(args: argparse.Namespace) -> int:
         for name, m in result.measurements.items():
             rec = flat_record(m, result.solution.flats[name])
             if args.save_maps:
-                from flatsight.analysis.record import save_height_map
-
                 target = Path(args.save_maps) / f"{name}.npy"
-                try:
-                    save_height_map(m, target)
-                except OSError as exc:
-                    raise SettingsError(f"cannot write {target}: {exc.strerror or exc}") from None
-                rec["height_map_path"] = str(target.resolve())
+                problem = save_map(m, target)
+                if problem is None:
+                    rec["height_map_path"] = str(target.resolve())
+                else:  # the solution is kept and shown; the map alone is missing
+                    map_errors.append(problem)
             doc["flats"][name] = rec
     except (UnreadablePhotoError, SettingsError) as exc:
         print(f"flatsight absolute: error: {shown(exc)}", file=err)
@@ -220,7 +220,10 @@ def run(args: argparse.Namespace) -> int:
         sys.stdout.write(json.dumps(doc, allow_nan=False) + "\n")
     else:
         _print_table(doc)
-    return 0
+    for problem in map_errors:
+        print(f"flatsight absolute: error: {shown(problem)}; the figures are shown without "
+              "the map", file=err)
+    return 2 if map_errors else 0
 
 
 def _print_table(doc: dict) -> None:

@@ -149,10 +149,10 @@ def run(args: argparse.Namespace) -> int:
         UnreadablePhotoError,
     )
     from flatsight.analysis.pipeline import measure
-    from flatsight.analysis.record import measurement_to_record, save_height_map
+    from flatsight.analysis.record import measurement_to_record
 
     from .multi_options import check_multi_options, combine_with_sections
-    from .options import worst_status
+    from .options import save_map, worst_status
     from .parallel import available_cores, measure_in_parallel
     from .record_options import apply_preset, judge_and_log, tolerance_from_args
     from .report_text import Reporter
@@ -232,17 +232,23 @@ def run(args: argparse.Namespace) -> int:
         m = item.measurement
         record = measurement_to_record(m, ordering=args.ordering)
         record.update(item.sections)
+        map_error = None
         if map_names is not None:
             target = map_names.target(photo)
-            try:
-                save_height_map(m, target)
-            except OSError as exc:
-                raise SettingsError(f"cannot write the height map {target}: "
-                                    f"{exc.strerror or exc}") from None
-            record["height_map_path"] = str(Path(target).resolve())
+            map_error = save_map(m, target)
+            if map_error is None:
+                record["height_map_path"] = str(Path(target).resolve())
         if log_failed:
             opts = argparse.Namespace(**{**vars(opts), "no_log": True})
         record, verdict_status, log_error = judge_and_log(opts, record)
+        if map_error is not None:
+            # the figures are worth more than the map: they are kept, and the record
+            # simply names no map (a certificate then draws it from the Zernike fit)
+            progress.pause()
+            kept = "shown and logged" if record.get("record_id") is not None else "shown"
+            print(f"flatsight measure: error: {shown(map_error)}; its figures are {kept} "
+                  "without the map", file=err)
+            verdict_status = worst_status(verdict_status, 2)
         if log_error is not None:
             log_failed = True
             progress.pause()

@@ -28,7 +28,11 @@ TREND_FIGURES = ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm", "as
                  "symmetric_irregularity_nm", "rms_irregularity_nm", "rms_asymmetric_nm")
 CSV_FIELDS = ("record_id", "logged_utc", "part", "operator", "station", "photo",
               "photo_sha256", "wavelength_nm", *TREND_FIGURES, "radius_of_curvature_m",
-              "tolerance", "verdict")
+              "tolerance", "verdict", "source", "photos", "reference_map",
+              "reference_sha256")
+# how history marks a record made of several photos, or with a reference map taken off
+SOURCE_NOTE = ("avg N: the average of N photos of the part (the first one named); seq N: "
+               "a phase-shifted sequence of N frames; ref: a reference map subtracted")
 
 
 # a record id SQLite can hold; plot rows a terminal can show
@@ -109,10 +113,36 @@ def _fail(command: str, exc: FlatsightError) -> int:
 # --- history --------------------------------------------------------------------------------
 
 
+def _source(rec: dict) -> tuple[str, int, str]:
+    """What a record was measured from: ``photo``, ``average`` or ``sequence``, how many
+    photos, and the (first) photo's path."""
+    average = rec.get("average") or {}
+    frames = rec.get("frames") or []
+    if average.get("photos"):
+        return "average", len(average["photos"]), str(average["photos"][0])
+    if frames:
+        return "sequence", len(frames), str(frames[0])
+    return "photo", 1, str(rec.get("photo") or "")
+
+
+def _source_cell(rec: dict) -> str:
+    """``avg 3: BW-FL-0412_hene.png``, ``seq 4: frame1.png``, ``ref: …``: the history's
+    photo column, the file name only (the path is in --json and --csv)."""
+    kind, count, first = _source(rec)
+    mark = {"average": f"avg {count}", "sequence": f"seq {count}"}.get(kind, "")
+    if rec.get("reference"):
+        mark = f"{mark} ref".strip()
+    name = Path(first).name or "—"
+    return f"{mark}: {name}" if mark else name
+
+
 def _csv_row(rec: dict) -> dict:
     spec = rec.get("spec") or {}
     row = {k: rec.get(k) for k in CSV_FIELDS}
     row["tolerance"] = spec.get("tolerance")
+    row["source"], row["photos"], _ = _source(rec)
+    reference = rec.get("reference") or {}
+    row["reference_map"], row["reference_sha256"] = reference.get("path"), reference.get("sha256")
     return csv_row(row)
 
 
@@ -148,38 +178,46 @@ def run_history(args: argparse.Namespace) -> int:
     from rich import box
     from rich.console import Console
     from rich.table import Table
+    from rich.text import Text
+
+    from .report_text import cell_width
 
     console = Console()
     if not rows:
         console.print("no records match", style="dim")
         return 0
-    # who and where only when the terminal has room: the figures matter more at 80 columns
+    # who and where only when the terminal has room, and PV beside the robust PVr from
+    # 100 columns; below that the photo stands under the part, so neither name is cut
     people = console.width >= 120
+    wide = console.width >= 100
     table = Table(box=box.SIMPLE_HEAD, header_style="bold", pad_edge=False, show_edge=False,
                   padding=(0, 0, 0, 1))
-    columns = [("id", "right"), ("time (UTC)", "left"), ("part", "left")]
+    columns = [("id", "right"), ("time (UTC)", "left")]
+    columns += [("part", "left"), ("photo", "left")] if wide else [("part / photo", "left")]
     if people:
         columns += [("operator", "left"), ("station", "left")]
-    columns += [("PV", "right"), ("PVr", "right"), ("power", "right"),
-                ("irreg.", "right"), ("verdict", "left")]
+    columns += [("PV", "right")] if wide else []
+    columns += [("PVr", "right"), ("power", "right"), ("irreg.", "right"), ("verdict", "left")]
     body = []
     for rec in rows:
         verdict = rec.get("verdict")
         style = {"pass": "bold green", "fail": "bold red",
                  "inconclusive": "bold yellow"}.get(verdict, "dim")
         cells = [str(rec["record_id"]),
-                 literal(str(rec.get("logged_utc", ""))[:16].replace("T", " ")),
-                 _cell(rec.get("part"))]
+                 literal(str(rec.get("logged_utc", ""))[:16].replace("T", " "))]
+        part, photo = _cell(rec.get("part")), _cell(_source_cell(rec))
+        cells += [part, photo] if wide else [Text("\n").join([part, photo])]
         if people:
             cells += [_cell(rec.get("operator")), _cell(rec.get("station"))]
-        cells += [_cell(rec.get("pv_nm")), _cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
+        cells += [_cell(rec.get("pv_nm"))] if wide else []
+        cells += [_cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
                   _cell(rec.get("irregularity_nm")), literal(verdict or "—", style)]
         body.append(cells)
     # names fold when the terminal (or a pipe's 80 columns) is narrow; the id, time,
     # figures and verdict never break, so no number is read split in two
-    names = {"part", "operator", "station"}
+    names = {"part", "photo", "part / photo", "operator", "station"}
     for k, (name, justify) in enumerate(columns):
-        widest = max(len(str(cells[k])) for cells in body)
+        widest = max(cell_width(cells[k]) for cells in body)
         table.add_column(name, justify=justify, overflow="fold", no_wrap=name not in names,
                          min_width=min(widest, 10) if name in names else max(widest, len(name)))
     for cells in body:
@@ -187,6 +225,12 @@ def run_history(args: argparse.Namespace) -> int:
     console.print(literal(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)"),
                   style="bold", overflow="fold")
     console.print(table)
+    if any(_source_cell(rec) != Path(_source(rec)[2]).name for rec in rows):
+        console.print(SOURCE_NOTE, style="dim")
+    left_out = ["PV"] * (not wide) + ["operator", "station"] * (not people)
+    if left_out:
+        console.print(f"left out at this width: {', '.join(left_out)} (--json, --csv have "
+                      "all)", style="dim")
     return 0
 
 
@@ -360,7 +404,7 @@ def run_report(args: argparse.Namespace) -> int:
         if suffix == ".png":
             atomic_write_bytes(out, map_png(rec))
         else:
-            atomic_write_text(out, certificate_html(rec))
+            atomic_write_text(out, certificate_html(rec, log=str(_log_path(args).absolute())))
     except FlatsightError as exc:
         return _fail("report", exc)
     except OSError as exc:

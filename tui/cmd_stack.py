@@ -12,6 +12,7 @@ from .options import (
     check_map_path,
     circle_type,
     diameter_type,
+    save_map,
     terms_type,
     wavelength_type,
 )
@@ -221,15 +222,8 @@ def run(args: argparse.Namespace) -> int:
         )
         record = stack_record(result, paths)
         record["warnings"] = notes + record["warnings"]
-        if args.save_map:
-            from flatsight.analysis.record import save_height_map
-
-            try:
-                save_height_map(result.measurement, args.save_map)
-            except OSError as exc:
-                raise SettingsError(
-                    f"cannot write the height map {args.save_map}: {exc.strerror or exc}"
-                ) from None
+        map_error = save_map(result.measurement, args.save_map) if args.save_map else None
+        if args.save_map and map_error is None:
             record["height_map_path"] = str(Path(args.save_map).resolve())
     except (UnreadablePhotoError, SettingsError) as exc:
         print(f"flatsight stack: error: {shown(exc)}", file=err)
@@ -240,8 +234,12 @@ def run(args: argparse.Namespace) -> int:
 
     if args.json:
         sys.stdout.write(json.dumps(record, allow_nan=False) + "\n")
-        return 0
-    _print_table(record)
+    else:
+        _print_table(record)
+    if map_error is not None:  # the figures are shown all the same
+        print(f"flatsight stack: error: {shown(map_error)}; the figures are shown without "
+              "the map", file=err)
+        return 2
     return 0
 
 

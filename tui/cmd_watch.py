@@ -27,6 +27,7 @@ from .options import (
     circle_type,
     count_type,
     diameter_type,
+    save_map,
     seconds_type,
     terms_type,
     wavelength_type,
@@ -58,7 +59,8 @@ Each line ends with the verdict against --spec: PASS, FAIL, or INCONCLUSIVE unde
 
 Stop with ctrl+c (exit status 130), or with --max-files / --timeout: a summary line and
 exit status 0, whatever the verdicts (they are in the lines and the log); 2 for bad
-options, or when a result could not be written to the log (it is still shown).
+options, or when a result could not be written to the log (it is still shown) or its
+--save-map map could not be written (its figures are still shown and logged).
 Photos already in the folder are left alone unless --existing is given; a photo that
 is rewritten later is measured again."""
 
@@ -255,31 +257,33 @@ def watch_settings(args: argparse.Namespace):
     )
 
 
-def measure_photo(path: Path, args: argparse.Namespace) -> dict:
-    """Measure one photo with the watch's settings; the record of ``measure --json``."""
+def measure_photo(path: Path, args: argparse.Namespace) -> tuple[dict, str | None]:
+    """Measure one photo with the watch's settings (see :func:`photo_record`)."""
     from ..analysis.pipeline import measure
 
     return photo_record(measure(str(path), watch_settings(args)), path, args)
 
 
-def photo_record(m, path: Path, args: argparse.Namespace) -> dict:
-    """The ``measure --json`` record of a measurement, its height map saved if asked."""
-    from ..analysis.errors import SettingsError
-    from ..analysis.record import measurement_to_record, save_height_map
+def photo_record(m, path: Path, args: argparse.Namespace) -> tuple[dict, str | None]:
+    """The ``measure --json`` record of a measurement, its height map saved if asked.
+
+    Returns the record, and why its ``--save-map`` map could not be written (None when
+    it was, or when none was asked for): the record then names no map, and keeps its
+    figures.
+    """
+    from ..analysis.record import measurement_to_record
 
     record = measurement_to_record(m)
     template = getattr(args, "save_map", None)
+    map_error = None
     if template:
         # one MapNames for the whole watch, so two photos of one stem get two maps
         names = getattr(args, "map_names", None) or MapNames(template)
         target = Path(names.target(path))
-        try:
-            save_height_map(m, target)
-        except OSError as exc:
-            raise SettingsError(f"cannot write the height map {target}: "
-                                f"{exc.strerror or exc}") from None
-        record["height_map_path"] = str(target.resolve())
-    return record
+        map_error = save_map(m, target)
+        if map_error is None:
+            record["height_map_path"] = str(target.resolve())
+    return record, map_error
 
 
 class _Stop(Exception):
@@ -326,6 +330,7 @@ class Tally:
     failed: set = field(default_factory=set)
     not_logged: int = 0
     log_problem: str | None = None
+    maps_not_written: int = 0
 
     def error(self, path: Path, message: str) -> None:
         if path in self.failed:
@@ -347,6 +352,12 @@ class Tally:
             self.log_problem = problem
             print(f"{_stamp()}  cannot write the log: {shown(problem)}; results are shown "
                   "but not logged until it can be written", flush=True)
+
+    def map_not_written(self, path: Path, problem: str, logged: bool) -> None:
+        self.maps_not_written += 1
+        kept = "logged" if logged else "shown"
+        print(f"{_stamp()}  {shown(path.name)}: error: {shown(problem)}; its figures are "
+              f"{kept} without the map", flush=True)
 
     def total(self) -> int:
         return sum(self.counts.values())
@@ -375,7 +386,7 @@ def photo_options(path: Path, args: argparse.Namespace) -> argparse.Namespace:
 
 
 def _handle(path: Path, args: argparse.Namespace, tally: Tally) -> None:
-    def measured() -> tuple[argparse.Namespace, dict]:
+    def measured() -> tuple[argparse.Namespace, tuple[dict, str | None]]:
         opts = photo_options(path, args)
         return opts, measure_photo(path, opts)
 
@@ -383,34 +394,37 @@ def _handle(path: Path, args: argparse.Namespace, tally: Tally) -> None:
 
 
 def _judged(path: Path, measured) -> tuple:
-    """Judge and log what ``measured()`` gives: ``(record, log_error)`` or ``(None, error)``.
+    """Judge and log what ``measured()`` gives.
 
-    ``measured`` returns the photo's options and its record, or raises.
+    ``measured`` returns the photo's options and ``(record, map_error)``, or raises.
+    Returns ``(record, log_error, map_error)``, or ``(None, error, None)``.
     """
     from ..analysis.errors import FlatsightError
     from .record_options import judge_and_log
 
     try:
-        args, record = measured()
+        args, (record, map_error) = measured()
         per_photo = argparse.Namespace(**vars(args))
         per_photo.part = args.part or path.stem
         record, _, log_error = judge_and_log(per_photo, record)
     except FlatsightError as exc:
-        return None, f"error: {exc}"
+        return None, f"error: {exc}", None
     except Exception as exc:  # noqa: BLE001 - one bad photo must not stop the station's watch
-        return None, f"internal error: {type(exc).__name__}: {exc}"
-    return record, log_error
+        return None, f"internal error: {type(exc).__name__}: {exc}", None
+    return record, log_error, map_error
 
 
 def _tell(path: Path, judged: tuple, tally: Tally) -> None:
     """Print one photo's line (or its error) and count it."""
-    record, problem = judged
+    record, problem, map_error = judged
     if record is None:
         tally.error(path, problem)
         return
     verdict = (record.get("spec") or {}).get("verdict")
     tally.measured(path, verdict or "measured",
                    _line(record, path) + ("  not logged" if problem else ""))
+    if map_error is not None:
+        tally.map_not_written(path, map_error, logged=record.get("record_id") is not None)
     if problem is not None:
         tally.unlogged(str(problem))
 
@@ -474,12 +488,14 @@ def _summary(tally: Tally, why: str) -> str:
     return (f"watch stopped ({why}): {tally.total()} photos, {counts['pass']} pass, "
             f"{counts['fail']} fail, {counts['inconclusive']} inconclusive, "
             f"{counts['measured']} without tolerance, {counts['error']} errors"
-            + (f", {tally.not_logged} not logged" if tally.not_logged else ""))
+            + (f", {tally.not_logged} not logged" if tally.not_logged else "")
+            + (f", {tally.maps_not_written} map{'s' * (tally.maps_not_written > 1)} not "
+               "written" if tally.maps_not_written else ""))
 
 
 def run(args: argparse.Namespace) -> int:
     """``flatsight watch``: 0 after a clean stop, 130 after ctrl+c, 2 for bad options or
-    folder, or when a result could not be logged."""
+    folder, or when a result could not be logged or its map written."""
     from ..analysis.errors import SettingsError
     from .parallel import available_cores
     from .record_options import apply_preset, log_path_from_args, tolerance_from_args
@@ -560,4 +576,4 @@ def run(args: argparse.Namespace) -> int:
         return 130
     except _Stop as stop:
         print(_summary(tally, str(stop)), flush=True)
-    return 2 if tally.not_logged else 0
+    return 2 if tally.not_logged or tally.maps_not_written else 0

@@ -12,7 +12,7 @@ from .safe_text import shown
 __all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle", "wavelength_type",
            "circle_type", "diameter_type", "terms_type", "angle_type", "number_type",
            "whole_number_type", "seconds_type", "count_type",
-           "check_map_path", "MapNames", "EXIT_CODES", "TOLERANCE_EXIT_CODES",
+           "check_map_path", "save_map", "MapNames", "EXIT_CODES", "TOLERANCE_EXIT_CODES",
            "STATUS_SEVERITY", "worst_status", "parse_uncertainty", "uncertainty_type",
            "NO_TOLERANCE_EXIT_CODES", "STATION_EXIT_CODES"]
 
@@ -41,7 +41,8 @@ In a batch the most severe status applies."""
 TOLERANCE_EXIT_CODES = """exit status:
   0  every photo measured (and within tolerance, when --spec gives one)
   1  a photo measured but out of tolerance
-  2  usage error, or a photo could not be read
+  2  usage error, a photo could not be read, or the log or a --save-map map
+     could not be written (the figures are still shown, and logged if possible)
   3  a photo was read but could not be analysed (no carrier, closed fringes...)
   4  internal error (please report it with the photo)
   5  inconclusive under --decision guarded: a figure lies within its uncertainty
@@ -66,7 +67,8 @@ def worst_status(*statuses: int) -> int:
 # commands that take no --spec (stack, absolute): no verdict, so no status 1
 NO_TOLERANCE_EXIT_CODES = """exit status:
   0  measured
-  2  usage error, or a photo could not be read
+  2  usage error, a photo could not be read, or a map could not be saved (the
+     figures are still shown)
   3  the photos were read but could not be analysed
   4  internal error (please report it with the photos)
   130 interrupted (ctrl+c)"""
@@ -193,6 +195,22 @@ def check_map_path(template: str) -> None:
     if suffix not in MAP_SUFFIXES:
         raise SettingsError(f"cannot save a height map as {shown(template)}: name it .npy or "
                             ".tif (32-bit float)")
+
+
+def save_map(measurement, target: str | os.PathLike) -> str | None:
+    """Write ``measurement``'s height map to ``target``; None, or why it could not be.
+
+    A map that cannot be written (a read-only or missing folder, a full disk) must not
+    cost the photo its figures, so the caller keeps the result and prints the reason,
+    one line naming the file.
+    """
+    from flatsight.analysis.record import save_height_map
+
+    try:
+        save_height_map(measurement, target)
+    except OSError as exc:
+        return f"cannot write the height map {target}: {exc.strerror or exc}"
+    return None
 
 
 class MapNames:

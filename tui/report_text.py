@@ -13,13 +13,14 @@ from flatsight.analysis.record import flat_fields
 from flatsight.analysis.zernike import noll_to_osa, term_name
 from rich import box
 from rich.console import Console
+from rich.padding import Padding
 from rich.table import Table
 from rich.text import Text
 
 from .safe_text import csv_row, literal, shown
 
-__all__ = ["Reporter", "figures_table", "limit_lines", "limits_table", "verdict_text",
-           "warning_text", "zernike_table"]
+__all__ = ["Reporter", "cell_width", "figures_table", "limit_finding", "limit_lines",
+           "limits_table", "verdict_text", "warning_text", "zernike_table"]
 
 # (label, record key stem, show in fringes)
 FIGURE_ROWS = [
@@ -64,7 +65,7 @@ def _u(record: dict, key: str) -> float | None:
     return value if isinstance(value, int | float) else None
 
 
-def _cell_width(cell) -> int:
+def cell_width(cell) -> int:
     """Terminal cells the widest line of a table cell takes."""
     plain = cell.plain if isinstance(cell, Text) else str(cell)
     return max(Text(line).cell_len for line in plain.split("\n"))
@@ -143,6 +144,60 @@ def limits_table(spec: dict) -> Table:
     for lim in spec.get("limits", []):
         t.add_row(*_limit_cells(lim))
     return t
+
+
+# a limit's unit as a finding writes it (the tolerance's own spellings)
+UNIT_SHORT = {"fr": "fr", "w": "w", "um": "µm", "nm": "nm"}
+
+
+def _decimals(value: float) -> int:
+    """How many decimals ``value`` is written with (0.5 -> 1, 0.25 -> 2, 63 -> 0)."""
+    return len(f"{abs(float(value)):.6f}".rstrip("0").partition(".")[2])
+
+
+def limit_finding(lim: dict) -> Text:
+    """One judged limit in the tolerance's own unit, with the limit and by how much.
+
+    ``FAIL irregularity B 0.82 ± 0.05 > 0.50 fr (by 0.32 fr, at 546.07 nm)``: the
+    verdict, the limit's name, the measured value with its U, ``>`` or ``≤`` the limit,
+    how far over or inside it lies, and the wavelength of a fringe or wave unit.
+    """
+    short = SHORT_NAMES.get(lim.get("figure"), "")
+    name = str(lim.get("name") or "")
+    if len(name) == 1 and short:  # ISO 10110-5's letters: "irregularity B"
+        title = f"{short} {name}"
+    else:  # RMSt, RMSi, RMSa by their own names; plain limits by the figure's
+        title = name if name.startswith("RMS") or not short else short
+    unit = lim.get("unit") if lim.get("measured") is not None else "nm"
+    if unit == "nm":
+        measured, limit, margin, u = (lim.get(k) for k in (
+            "measured_nm", "limit_nm", "margin_nm", "uncertainty_nm"))
+    else:
+        measured, limit, margin, u = (lim.get(k) for k in (
+            "measured", "limit", "margin", "uncertainty"))
+    word = verdict_text(lim.get("verdict"), upper=True)
+    unit_text = UNIT_SHORT.get(unit, shown(unit or ""))
+    if not isinstance(measured, int | float) or not isinstance(limit, int | float):
+        return Text.assemble(word, f" {shown(title)}: not measured (limit "
+                                   f"{format_number(limit)} {unit_text})")
+    digits = min(4, max(1 if unit == "nm" else 2, _decimals(limit) + 1))
+    value = format_number(measured, digits)
+    if lim.get("compared") == "magnitude":
+        value = f"|{value}|"
+    if isinstance(u, int | float):
+        value += f" ± {format_number(u, digits)}"
+    over = isinstance(margin, int | float) and margin < 0
+    by = abs(margin) if isinstance(margin, int | float) else None
+    by_digits = digits
+    while by is not None and by_digits < 4 and round(by, by_digits) == 0 and by > 0:
+        by_digits += 1  # a hair over the limit still reads as over, not "by 0.00"
+    notes = [f"by {format_number(by, by_digits)} {unit_text}"] if by is not None else []
+    wavelength = lim.get("unit_wavelength_nm")
+    if unit in ("fr", "w") and isinstance(wavelength, int | float):
+        notes.append(f"at {wavelength:g} nm")
+    return Text.assemble(word, f" {shown(title)} {value} {'>' if over else '≤'} "
+                               f"{format_number(limit, digits)} {unit_text}"
+                               + (f" ({', '.join(notes)})" if notes else ""))
 
 
 def limit_lines(spec: dict) -> list[Text]:
@@ -295,6 +350,9 @@ class Reporter:
                              f" ({rule} decision rule): ",
                              verdict_text(spec.get("verdict"), upper=True))
         self.console.print(line)
+        for lim in spec.get("limits", []):
+            if lim.get("verdict") != "pass":
+                self.console.print(Padding(limit_finding(lim), (0, 0, 0, 2), expand=False))
         self.console.print(limits_table(spec))
         if spec.get("decision_rule_text"):
             self.console.print(Text(shown(spec["decision_rule_text"]), style="dim"))
@@ -332,7 +390,7 @@ class Reporter:
         columns = self._batch_columns()
         cells = [[make(r) for _, _, make in columns] for r in self._rows]
         # the numbers never fold or shorten: below the width they need, one block a photo
-        widths = [max(_cell_width(header), *(_cell_width(row[i]) for row in cells))
+        widths = [max(cell_width(header), *(cell_width(row[i]) for row in cells))
                   for i, (header, _, _) in enumerate(columns)]
         if sum(widths) + 2 * len(columns) + 10 > self.console.width:
             self._narrow(columns, cells)
@@ -348,16 +406,37 @@ class Reporter:
             self.console.print(t)
         if any(_u(r, "pv_nm") is not None for r in self._rows):
             self.console.print(Text(BATCH_U_NOTE, style="dim"))
+        self._references()
         for r in self._rows:  # what decided each verdict that is not a pass
             spec = r.get("spec") or {}
             if spec.get("verdict") in ("fail", "inconclusive"):
-                name = shown(Path(r["photo"]).name)
-                for line, lim in zip(limit_lines(spec), spec.get("limits", []), strict=True):
-                    if lim.get("verdict") != "pass":
-                        self.console.print(Text(f"{name}: ") + line)
+                self._findings(Path(r["photo"]).name, spec)
         for r in self._rows:
             for w in r.get("warnings", []):
                 self.console.print(warning_text(w, Path(r["photo"]).name))
+
+    def _references(self) -> None:
+        """Which reference map was taken off the figures above, and off how many photos."""
+        paths = [(r.get("reference") or {}).get("path") for r in self._rows]
+        for path in dict.fromkeys(p for p in paths if p):
+            n = paths.count(path)
+            whose = "every photo" if n == len(paths) else f"{n} of the {len(paths)} photos"
+            self.console.print(literal(f"reference {Path(path).name} subtracted from {whose} "
+                                       "(path and SHA-256 in --json)"))
+
+    def _findings(self, photo: str, spec: dict) -> None:
+        """``photo: FAIL irregularity B ...`` for each limit that did not pass; the photo
+        on a line of its own when a finding would not fit beside it."""
+        name = Text(f"{shown(photo)}:")
+        found = [limit_finding(lim) for lim in spec.get("limits", [])
+                 if lim.get("verdict") != "pass"]
+        if all(name.cell_len + 1 + f.cell_len <= self.console.width for f in found):
+            for f in found:
+                self.console.print(name + " " + f)
+            return
+        self.console.print(name)
+        for f in found:
+            self.console.print(Padding(f, (0, 0, 0, 2), expand=False))
 
     def _narrow(self, columns, cells) -> None:
         """Each photo as its name and ``figure value ±U unit`` pairs packed into lines."""

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from math import factorial
 
 import numpy as np
@@ -193,6 +194,12 @@ def test_term_names_use_the_trade_words():
         "piston", "tilt x", "tilt y", "power", "spherical", "secondary spherical"]
     assert term_name(5).startswith("astigmatism") and term_name(6).startswith("astigmatism")
     assert term_name(7).startswith("coma") and term_name(9).startswith("trefoil")
+    # issue 9 item 12: a sine term's orientation, 90/|m| degrees, read "heptafoil 12.8571°";
+    # to a tenth of a degree it is 12.9° (sin m t = cos m (t - 90°/m), from memory)
+    assert term_name(nm_to_noll(7, -7)) == "heptafoil 12.9°"
+    assert term_name(nm_to_noll(4, -4)) == "tetrafoil 22.5°"
+    assert term_name(nm_to_noll(2, -2)) == "astigmatism 45°"
+    assert not any(re.search(r"\d\.\d\d", term_name(j)) for j in range(1, 67))
 
 
 # --- the fit -----------------------------------------------------------------------------

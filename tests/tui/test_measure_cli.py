@@ -475,6 +475,63 @@ def test_save_map_never_overwrites_a_map_of_the_same_batch(quick_measure, photo_
     assert sorted(p.name for p in maps.iterdir()) == sorted(Path(p).name for p in paths)
 
 
+@pytest.mark.parametrize("mode", ["table", "--json"])
+def test_a_map_that_cannot_be_written_keeps_the_photos_figures(mode, quick_measure, photo_set,
+                                                               tmp_path, capsys):
+    # issue 9: a --save-map write failure dropped that photo's result. Root writes into a
+    # read-only folder, so the failures here stop root too: a "folder" that is a regular
+    # file (ENOTDIR), and a map whose name is taken by a folder (EISDIR on the rename)
+    photos = three_photos(tmp_path, photo_set)
+    maps = tmp_path / "maps"
+    maps.mkdir()
+    (maps / "BW-FL-0413.npy").mkdir()  # the second photo's map cannot be put in place
+    log = tmp_path / "log.sqlite"
+    flags = [mode] if mode != "table" else []
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--log", log, *flags,
+                               "--save-map", maps / "{name}.npy")
+    assert status == 2
+    line = assert_one_line_error(err, "cannot write the height map",
+                                 str(maps / "BW-FL-0413.npy"), "shown and logged")
+    assert "internal error" not in line
+    logged = {Path(r["photo"]).name: r for r in inspection_log.query(log)}
+    assert sorted(logged) == [p.name for p in photos]  # every photo's figures are in the log
+    assert "height_map_path" not in logged["BW-FL-0413.png"]  # the record names no map
+    assert Path(logged["BW-FL-0412.png"]["height_map_path"]).is_file()
+    assert sorted(p.name for p in maps.iterdir() if p.is_file()) == ["BW-FL-0412.npy",
+                                                                      "BW-FL-0588.npy"]
+    if mode == "--json":
+        assert [Path(r["photo"]).name for r in json_lines(out)] == [p.name for p in photos]
+    else:
+        for p in photos:
+            assert p.name in out
+
+    file_not_folder = tmp_path / "not-a-folder"
+    file_not_folder.write_text("a file where the maps folder should be")
+    status, out, err = run_cli(capsys, "measure", photos[0], *W, "--no-log", "--json",
+                               "--save-map", file_not_folder / "map.npy")
+    assert status == 2
+    assert_one_line_error(err, "cannot write the height map", str(file_not_folder / "map.npy"))
+    assert "shown and logged" not in err and "shown without the map" in err
+    assert len(json_lines(out)) == 1 and "height_map_path" not in json_lines(out)[0]
+
+
+def test_a_read_only_map_folder_keeps_the_photos_figures(photo_set, shared_folder,
+                                                         run_as_reader):
+    # the same with a folder the user may not write: as 'nobody' when the tests run as root
+    photo = shared_folder / "BW-FL-0412.png"
+    photo.write_bytes(photo_set.good_png.read_bytes())
+    code = "import sys; from flatsight.tui.cli import main; sys.exit(main(sys.argv[1:]))"
+    done = run_as_reader(shared_folder, code, "measure", str(photo), *W, "--json", "--no-log",
+                         "--save-map", str(shared_folder / "{name}.npy"))
+    assert done.returncode == 2, done.stderr
+    assert_one_line_error(done.stderr, "cannot write the height map",
+                          str(shared_folder / "BW-FL-0412.npy"))
+    records = json_lines(done.stdout)
+    assert len(records) == 1 and records[0]["pv_nm"] > 0
+    assert "height_map_path" not in records[0]
+    assert not (shared_folder / "BW-FL-0412.npy").exists()
+
+
 def test_a_multi_page_tiff_is_measured_from_its_first_page_and_says_so(photo_set, tmp_path,
                                                                       capsys):
     first = Image.open(photo_set.good_png)

@@ -191,6 +191,7 @@ def test_report_html_and_png(filled_log, tmp_path, capsys):
     assert status == 0 and "fail" in out
     page = html_out.read_text(encoding="utf-8")
     assert ">FAIL<" in page and "BW-FL-0413" in page and "data:image/png;base64," in page
+    assert f"<th>Record</th><td>2 in {filled_log.absolute()}</td>" in page  # its provenance
     png_out = tmp_path / "map.png"
     status, _, _ = run_cli(capsys, "report", "1", "--log", filled_log, "-o", png_out)
     assert status == 0 and png_out.read_bytes().startswith(b"\x89PNG")
@@ -321,7 +322,44 @@ def test_history_never_splits_a_number_at_80_columns_or_in_a_pipe(filled_log, tm
         monkeypatch.setenv("COLUMNS", columns)
         status, out, _ = run_cli(capsys, "history", "--log", log)  # capsys: not a terminal
         assert status == 0
-        for whole in ("12345.7", "11111.1", "-9876.5", "2222.2",
-                      f"{inspection_log.get(log, 2)['pv_nm']:.1f}"):
+        # PV (12345.7) is left out whole below 100 columns, and said to be
+        wholes = ["11111.1", "-9876.5", "2222.2", f"{inspection_log.get(log, 2)['pvr_nm']:.1f}"]
+        wholes += ["12345.7"] if columns == "200" else ["left out at this width: PV"]
+        for whole in wholes:
             assert whole in out, (columns, whole, out)
         assert max(len(line) for line in out.splitlines()[1:]) <= int(columns)
+
+
+def test_history_marks_averages_sequences_and_references_and_names_the_photo(
+        filled_log, tmp_path, capsys, monkeypatch):
+    # issue 9 item 13: history did not mark averages or sequences and had no photo column
+    import shutil
+
+    log = tmp_path / "log.sqlite"
+    shutil.copy(filled_log, log)
+    base = inspection_log.get(log, 1)
+    for k in ("record_id", "logged_utc", "part", "operator", "station", "verdict"):
+        base.pop(k, None)
+    average = base | {"photo": "average of 3: a.png, b.png, c.png", "average": {
+        "photos": ["/shop/BW-FL-0412_a.png", "/shop/BW-FL-0412_b.png",
+                   "/shop/BW-FL-0412_c.png"], "n_photos": 3}, "pvr_nm": 12345.678}
+    sequence = base | {"photo": "/shop/seq/frame1.png", "frames": [
+        f"/shop/seq/frame{k}.png" for k in range(1, 5)], "power_nm": -9876.543}
+    referenced = base | {"photo": "/shop/BW-FL-0588.png", "reference": {
+        "path": "/shop/maps/BW-REF-01.npy", "sha256": "cd" * 32}}
+    for rec, part in ((average, "BW-FL-0412"), (sequence, "BW-FL-0413"),
+                      (referenced, "BW-FL-0588")):
+        inspection_log.record_measurement(log, rec, part=part)
+    monkeypatch.setenv("COLUMNS", "80")
+    status, out, _ = run_cli(capsys, "history", "--log", log)  # capsys: a pipe
+    assert status == 0
+    assert max(len(line) for line in out.splitlines()[1:]) <= 80
+    for shown in ("avg 3: BW-FL-0412_a.png", "seq 4: frame1.png", "ref: BW-FL-0588.png",
+                  "BW-FL-0412.png", "12345.7", "-9876.5", "avg N: the average of N photos"):
+        assert shown in out, (shown, out)
+    status, out, _ = run_cli(capsys, "history", "--log", log, "--csv")
+    rows = {r["part"]: r for r in csv.DictReader(io.StringIO(out)) if r["record_id"] > "3"}
+    assert (rows["BW-FL-0412"]["source"], rows["BW-FL-0412"]["photos"]) == ("average", "3")
+    assert (rows["BW-FL-0413"]["source"], rows["BW-FL-0413"]["photos"]) == ("sequence", "4")
+    assert rows["BW-FL-0588"]["reference_sha256"] == "cd" * 32
+    assert rows["BW-FL-0588"]["reference_map"] == "/shop/maps/BW-REF-01.npy"

@@ -86,8 +86,49 @@ def test_batch_table_fits_and_never_cuts_a_number(record, width):
     assert ("PVr" in out and "waves" in out) == (width >= 100)  # the extra column when wide
     # below the table, what decided each verdict that is not a pass: limit and margin
     flat = " ".join(out.split())
-    assert ("BW-FL-0412_mercury.jpg: PV: INCONCLUSIVE 1234.5 ± 123.4 nm ≤ 1250.0 nm, "
-            "margin +15.5 nm") in flat
+    assert ("BW-FL-0412_mercury.jpg: INCONCLUSIVE PV 1234.5 ± 123.4 ≤ 1250.0 nm "
+            "(by 15.5 nm)") in flat
+
+
+@pytest.mark.parametrize("detail", [False, True])
+def test_a_failed_limit_is_named_with_its_limit_and_by_how_much(record, detail):
+    # issue 9 item 12: the table said "tolerance 3/2(1): FAIL" without the limit that
+    # failed or by how much. ISO 10110-5 B is in fringes of 546.07 nm, a fringe being half
+    # a wavelength of height (common practice; ISO 10110-5, from memory)
+    fringe_nm = 546.07 / 2
+    irregularity_fr = record["irregularity_nm"] / fringe_nm
+    power_fr = abs(record["power_nm"]) / fringe_nm
+    b = round(irregularity_fr / 2, 1)  # well below the measured value: fails
+    a = round(power_fr + 1, 1)  # well above: passes
+    out = printed([judged(record, f"3/{a}({b})", "simple") | {"photo": "shots/BW-FL-0588.png"}],
+                  width=80, detail=detail)
+    lines = out.splitlines()
+    assert max(len(line) for line in lines) <= 80
+    finding = (f"FAIL irregularity B {irregularity_fr:.2f} ± "
+               f"{record['uncertainty']['irregularity_nm'] / fringe_nm:.2f} > {b:.2f} fr "
+               f"(by {irregularity_fr - b:.2f} fr, at 546.07 nm)")
+    assert any(line.strip() == finding or line == f"BW-FL-0588.png: {finding}"
+               for line in lines), out
+    assert "power A" not in out.replace("A power", "")  # a limit that passed is not a finding
+    if not detail:  # the photo named once, beside or above what it failed
+        assert sum("BW-FL-0588.png" in line for line in lines) == 2  # the row and the finding
+
+
+def test_a_finding_reads_over_or_inside_and_in_the_limits_own_unit(record):
+    from flatsight.tui.report_text import limit_finding
+
+    r = dict(record, uncertainty={**record["uncertainty"], "rms_nm": 0.5, "pv_nm": 9.0})
+    rms_w = r["rms_nm"] / r["wavelength_nm"]  # "w" is a wave of the test wavelength
+    rms_limit, limit = round(rms_w * 0.5, 3), round(r["pv_nm"] + 2)
+    spec = judged(r, f"rms<={rms_limit}w, pv<={limit}nm", "guarded")["spec"]
+    rms, pv = (limit_finding(lim).plain for lim in spec["limits"])
+    # a limit of 0.033 w is read to a decimal more than it is written
+    assert rms.startswith(f"FAIL RMS {rms_w:.4f} ± ") and f"> {rms_limit:.4f} w" in rms
+    assert rms.endswith(f"at {r['wavelength_nm']:g} nm)")
+    # about 2 nm inside the limit, within U = 9 nm: inconclusive under the guarded rule
+    # (ISO 14253-1, from memory)
+    assert pv == (f"INCONCLUSIVE PV {r['pv_nm']:.1f} ± 9.0 ≤ {limit:.1f} nm "
+                  f"(by {limit - r['pv_nm']:.1f} nm)")
 
 
 def test_a_narrow_terminal_gets_blocks_not_cut_numbers(record):
@@ -202,6 +243,24 @@ def test_a_subtracted_reference_is_named_in_the_table_output(measured):
     reporter.emit(r)
     text = re.sub(r"\x1b\[[0-9;]*m", "", out.getvalue())
     assert "reference BW-REF-01.npy subtracted" in text and "98.7 %" in text
+
+
+def test_a_subtracted_reference_is_named_under_the_batch_table(measured):
+    # issue 9 item 13: the batch table did not say a reference map was subtracted
+    from flatsight.analysis.record import flat_fields, measurement_to_record
+
+    ref = {"path": "/shop/maps/BW-REF-01.npy", "sha256": "ab" * 32, "map_rms_nm": 3.125,
+           "covered_fraction": 0.987}
+    rows = [measurement_to_record(measured) | {"photo": f"shots/BW-FL-04{k}.png",
+                                               "reference": ref} for k in (12, 13)]
+    text = printed(rows, width=80, detail=False)
+    assert "reference BW-REF-01.npy subtracted from every photo" in text
+    assert max(len(line) for line in text.splitlines()) <= 80
+    # CSV and JSON carry which map and its SHA-256 (record.flat_fields flattens sections)
+    assert flat_fields(rows[0])["reference.sha256"] == "ab" * 32
+    assert flat_fields(rows[0])["reference.path"] == ref["path"]
+    text = printed([rows[0], measurement_to_record(measured)], width=80, detail=False)
+    assert "subtracted from 1 of the 2 photos" in text
 
 
 def test_the_fringe_column_says_its_wavelength(measured):

@@ -94,6 +94,20 @@ def test_stack_table_and_a_list_of_steps(tmp_path, capsys):
     assert "least-squares" in out and "power" in out
 
 
+def test_stack_keeps_its_figures_when_the_map_cannot_be_written(tmp_path, capsys):
+    # issue 9: a --save-map failure cost the result. A "folder" that is a regular file
+    # stops root too (ENOTDIR), unlike a read-only folder
+    paths = write_sequence(tmp_path, SyntheticSurface(zernike_nm={4: 20.0}), [0, 90, 180, 270])
+    blocker = tmp_path / "maps"
+    blocker.write_text("a file where the maps folder should be")
+    code, out, err = run_cli(["stack", *paths, "-w", "hene", "--json", "--save-map",
+                              str(blocker / "seq.npy")], capsys, cmd_stack)
+    assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
+    assert "cannot write the height map" in err and str(blocker / "seq.npy") in err
+    record = json.loads(out)
+    assert record["power_nm"] < 0 and "height_map_path" not in record  # a4 = +20: concave
+
+
 def test_stack_errors_are_one_line_with_documented_codes(tmp_path, capsys):
     surface = SyntheticSurface(zernike_nm={4: 20.0})
     paths = write_sequence(tmp_path, surface, [0, 90, 180, 270])
@@ -145,7 +159,8 @@ def pair_surface(first, second):
     return SyntheticSurface(zernike_nm=terms)
 
 
-def test_absolute_solves_the_even_terms_and_saves_maps(tmp_path, capsys):
+def test_absolute_solves_the_even_terms_and_saves_maps_keeping_a_flat_whose_map_fails(
+        tmp_path, capsys):
     photos = {}
     for k, (x, y) in enumerate([("A", "B"), ("A", "C"), ("B", "C")]):
         ph = make_fringe_photo(
@@ -162,6 +177,9 @@ def test_absolute_solves_the_even_terms_and_saves_maps(tmp_path, capsys):
         write_photo(ph, photos[x + y])
     maps = tmp_path / "maps"
     maps.mkdir()
+    # issue 9: a map that cannot be written cost the whole solution; C's map name is
+    # taken by a folder, which stops root as well (EISDIR on the rename)
+    (maps / "C.npy").mkdir()
     code, out, err = run_cli(
         [
             "absolute",
@@ -180,9 +198,12 @@ def test_absolute_solves_the_even_terms_and_saves_maps(tmp_path, capsys):
         capsys,
         cmd_absolute,
     )
-    assert code == 0, err
+    assert code == 2, err
+    assert err.count("\n") == 1 and "cannot write the height map" in err
+    assert str(maps / "C.npy") in err and "Traceback" not in err
     doc = json.loads(out)
     assert set(doc["flats"]) == {"A", "B", "C"}
+    assert "height_map_path" not in doc["flats"]["C"]
     odd = [j for j in range(4, 37) if parity(j) == -1]
     for name, rec in doc["flats"].items():
         assert rec["unseparated_terms"] == odd
@@ -194,7 +215,7 @@ def test_absolute_solves_the_even_terms_and_saves_maps(tmp_path, capsys):
                 # each photo is good to about 1.5 nm per term (the single-photo target in
                 # analysis/synthetic.py); the solution combines three of them
                 assert z[j - 1] == pytest.approx(FLAT_TERMS[name].get(j, 0.0), abs=2.5), (name, j)
-        assert (maps / f"{name}.npy").exists()
+        assert (maps / f"{name}.npy").is_file() == (name != "C")
         assert "pv_nm" in rec and "aperture" in rec
 
     # a saved map is accepted as --reference

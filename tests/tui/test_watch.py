@@ -203,7 +203,8 @@ def test_watch_applies_aperture_exclusions_and_saves_maps(tmp_path, photo_set):
         "--exclude", f"{ap.center_x_px},{ap.center_y_px},{0.1 * ap.radius_px}",
         "--save-map", str(maps / "{name}.npy"),
     ])
-    record = cmd_watch.measure_photo(folder / "BW-FL-0100.png", args)
+    record, map_error = cmd_watch.measure_photo(folder / "BW-FL-0100.png", args)
+    assert map_error is None
     assert record["aperture"]["source"] == "given"
     assert record["aperture"]["radius_px"] == pytest.approx(ap.radius_px, abs=0.01)
     assert len(record["aperture"]["exclusions"]) == 1
@@ -360,6 +361,30 @@ def test_results_are_shown_when_the_log_cannot_be_written(tmp_path, quick_measur
     assert sorted(p.name for p in maps.iterdir()) == ["BW-FL-0412-2.npy", "BW-FL-0412.npy"]
 
 
+
+
+def test_a_map_that_cannot_be_written_keeps_the_photos_line_and_record(tmp_path, quick_measure,
+                                                                      photo_set, capsys):
+    # issue 9: a --save-map write failure dropped the photo. A "maps folder" that is a
+    # regular file stops root as well as anyone (ENOTDIR), unlike a read-only folder
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    shutil.copy(photo_set.good_png, folder / "BW-FL-0412.png")
+    maps = tmp_path / "maps"
+    maps.write_text("a file where the maps folder should be")
+    log = tmp_path / "log.sqlite"
+    status, out, err = run_watch(capsys, folder, "-w", "632.8", "--log", log, "--existing",
+                                 "--settle", "0", "--interval", "0.05", "--max-files", "1",
+                                 "--timeout", "120", "--save-map", maps / "{name}.npy")
+    assert status == 2, out + err
+    lines = out.splitlines()
+    assert len([ln for ln in lines if "BW-FL-0412" in ln and "PV" in ln]) == 1
+    problem = [ln for ln in lines if "cannot write the height map" in ln]
+    assert len(problem) == 1 and str(maps / "BW-FL-0412.npy") in problem[0]
+    assert "logged without the map" in problem[0]
+    assert lines[-1].endswith("1 map not written")
+    records = inspection_log.query(log)
+    assert len(records) == 1 and "height_map_path" not in records[0]
 
 
 def test_watch_takes_each_photos_bench_from_the_presets_photos_table(tmp_path, photo_set,
