@@ -28,6 +28,7 @@ import json
 import math
 import re
 from collections.abc import Mapping
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -39,8 +40,11 @@ from .zernike import nm_to_noll, noll_to_nm, osa_to_noll, term_name, zernike_bas
 __all__ = [
     "MAP_PAD_PX",
     "MAP_SIZE_PX",
+    "CertificateDocument",
+    "Table",
     "VERDICT_RGB",
     "VERDICT_WORDS",
+    "certificate_document",
     "certificate_html",
     "map_colours",
     "map_grid",
@@ -410,7 +414,55 @@ def _measured_from(record: Mapping) -> str | None:
     return f"{kind}: {', '.join(names[:3])}{more}"
 
 
-def _facts(record: Mapping, log: str | None, map_source: str) -> str:
+# --- the certificate document: what the page says, for the HTML and the PDF alike ---------
+
+
+@dataclass(frozen=True)
+class Table:
+    """A table of plain text: a header row, body rows, which columns are numbers.
+
+    ``row_marks`` tags each row (a verdict, for the tolerance table's colours) or is
+    empty; ``note`` is a line of small print under the table.
+    """
+
+    header: tuple[str, ...]
+    rows: tuple[tuple[str, ...], ...]
+    numeric: tuple[bool, ...]
+    note: str | None = None
+    row_marks: tuple[str | None, ...] = ()
+
+
+@dataclass(frozen=True)
+class CertificateDocument:
+    """Everything one certificate says, as plain text (each rendering escapes it).
+
+    Built from a logged record by :func:`certificate_document`; rendered as HTML by
+    :func:`certificate_html` and as a PDF page by ``certificate_pdf.certificate_pdf``.
+    Paragraphs are ``(lead, text)`` pairs: a short bold lead (or None) and the text.
+    """
+
+    part: str
+    subtitle: str
+    software: str
+    verdict: str | None  # "pass", "fail", "inconclusive" or None (no tolerance)
+    verdict_word: str
+    against: str
+    map_png: bytes
+    map_caption: str
+    facts: tuple[tuple[str, str], ...]  # (label, value); a label ending SHA-256 is a hash
+    figures_title: str
+    figures: Table
+    zernike_title: str
+    zernike: Table | None
+    zernike_empty: str
+    tolerance: Table | None
+    warnings: tuple[str, ...]
+    fine: tuple[tuple[str | None, str], ...]
+    method_items: tuple[str, ...]
+    small_print: tuple[str, ...]  # paragraphs of the fine print set smaller still
+
+
+def _facts(record: Mapping, log: str | None, map_source: str) -> tuple[tuple[str, str], ...]:
     ap = record.get("aperture") or {}
     settings = record.get("settings") or {}
     reference = record.get("reference") or {}
@@ -436,16 +488,13 @@ def _facts(record: Mapping, log: str | None, map_source: str) -> str:
         ("Map", "height in nm, the photo's top up, + high; "
                 + map_source.removeprefix("Map: ").removeprefix("Map ")),
     ]
-    body = "".join(f"<tr><th>{_e(k)}</th><td>{_e(v if v is not None else '—')}</td></tr>"
-                   for k, v in rows)
     sha = record.get("photo_sha256")
     if not sha:  # an average or a sequence records its photos' names, not their hashes
         sha = "not recorded for photos combined" if _measured_from(record) else "—"
-    body += (f"<tr><th>Photo SHA-256</th><td class=\"hash\">{_e(sha)}</td></tr>")
+    rows.append(("Photo SHA-256", sha))
     if reference:
-        body += (f"<tr><th>Ref. SHA-256</th><td class=\"hash\">"
-                 f"{_e(reference.get('sha256') or 'not recorded')}</td></tr>")
-    return f'<table class="facts">{body}</table>'
+        rows.append(("Ref. SHA-256", reference.get("sha256") or "not recorded"))
+    return tuple((k, "—" if v is None else str(v)) for k, v in rows)
 
 
 def _settings_text(settings: Mapping) -> str:
@@ -455,7 +504,7 @@ def _settings_text(settings: Mapping) -> str:
         if key == "wavelength_nm":
             words.append(f"test wavelength {_fmt(value, 2)} nm")
         elif key == "n_terms":
-            words.append(f"{_e(value)} Zernike terms fitted")
+            words.append(f"{value} Zernike terms fitted")
         elif key == "invert":
             words.append("sign inverted (--invert)" if value else "sign as photographed")
         elif key == "diameter_mm":
@@ -467,11 +516,11 @@ def _settings_text(settings: Mapping) -> str:
             words.append(f"{removed_terms_text(removed_terms({'settings': settings}))} "
                          "removed from every figure")
         else:
-            words.append(f"{_e(key)} = {_e(json.dumps(value))}")
+            words.append(f"{key} = {json.dumps(value)}")
     return "; ".join(words)
 
 
-def _figures_table(record: Mapping) -> str:
+def _figures_table(record: Mapping) -> Table:
     lam = finite_number(record.get("wavelength_nm"))
     uncertainty = record.get("uncertainty") or {}
     rows = []
@@ -479,22 +528,17 @@ def _figures_table(record: Mapping) -> str:
         nm = finite_number(record.get(key))
         waves = nm / lam if nm is not None and lam else None
         u = finite_number(uncertainty.get(key))
-        u_text = "—" if u is None else f"± {_fmt(u, 1)}"
-        rows.append(f"<tr><td>{_e(label)}</td><td class=\"num\">{_fmt(nm, 1)}</td>"
-                    f"<td class=\"num\">{u_text}</td><td class=\"num\">{_fmt(waves, 4)}</td>"
-                    "</tr>")
+        rows.append((label, _fmt(nm, 1), "—" if u is None else f"± {_fmt(u, 1)}",
+                     _fmt(waves, 4)))
     roc = record.get("radius_of_curvature_m")
     if roc is not None:
-        rows.append(f"<tr><td>radius (as power)</td><td class=\"num\" colspan=\"3\">"
-                    f"{_fmt(roc, 1)} m</td></tr>")
-    return ("<table class=\"figs\"><thead><tr><th>figure</th><th class=\"num\">nm</th>"
-            "<th class=\"num\">U (k = 2)<br>nm</th>"
-            f"<th class=\"num\">waves<br>at {_fmt(lam, 2)} nm</th>"
-            "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+        rows.append(("radius (as power)", f"{_fmt(roc, 1)} m", "", ""))
+    return Table(header=("figure", "nm", "U (k = 2) nm", f"waves at {_fmt(lam, 2)} nm"),
+                 rows=tuple(rows), numeric=(False, True, True, True))
 
 
-def _spec_table(spec: Mapping) -> str:
-    rows = []
+def _spec_table(spec: Mapping) -> Table:
+    rows, marks = [], []
     for lim in spec.get("limits", []):
         unit = {"fr": "fringes", "w": "waves", "um": "µm"}.get(lim.get("unit"), lim.get("unit"))
         wl = lim.get("unit_wavelength_nm")
@@ -503,53 +547,54 @@ def _spec_table(spec: Mapping) -> str:
         title = label if name == label or not name else f"{name}: {label}"
         u = finite_number(lim.get("uncertainty_nm"))
         verdict = lim.get("verdict")
-        rows.append(
-            f"<tr><td>{_e(title)}</td>"
-            f"<td class=\"num\">≤ {_e(lim.get('limit'))} {_e(unit)}{_e(unit_note)} "
-            f"<span class=\"small\">= {_fmt(lim.get('limit_nm'), 1)} nm</span></td>"
-            f"<td class=\"num\">{_fmt(lim.get('measured_nm'), 1)} nm <span class=\"small\">"
-            f"{'(magnitude)' if lim.get('compared') == 'magnitude' else ''}</span></td>"
-            f"<td class=\"num\">{'± ' + _fmt(u, 1) + ' nm' if u is not None else '—'}</td>"
-            f"<td class=\"num\">{format_number(lim.get('margin_nm'), 1, sign=True)} nm</td>"
-            f"<td class=\"{_e(verdict)}\">{_e(VERDICT_WORDS.get(verdict, verdict))}</td>"
-            "</tr>")
-    return ("<table><thead><tr><th>limit</th><th class=\"num\">tolerance</th>"
-            "<th class=\"num\">measured</th><th class=\"num\">U (k = 2)</th>"
-            "<th class=\"num\">margin</th><th>verdict</th>"
-            "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
+        magnitude = " (magnitude)" if lim.get("compared") == "magnitude" else ""
+        rows.append((
+            str(title),
+            f"≤ {lim.get('limit')} {unit}{unit_note} = {_fmt(lim.get('limit_nm'), 1)} nm",
+            f"{_fmt(lim.get('measured_nm'), 1)} nm{magnitude}",
+            f"± {_fmt(u, 1)} nm" if u is not None else "—",
+            f"{format_number(lim.get('margin_nm'), 1, sign=True)} nm",
+            str(VERDICT_WORDS.get(verdict, verdict)),
+        ))
+        marks.append(verdict if verdict in VERDICT_MEANING else None)
+    return Table(header=("limit", "tolerance", "measured", "U (k = 2)", "margin", "verdict"),
+                 rows=tuple(rows), numeric=(False, True, True, True, True, False),
+                 row_marks=tuple(marks))
 
 
-def _decision_html(spec: Mapping) -> str:
-    """The decision rule in words, and what the verdict means under it."""
+def _decision(spec: Mapping) -> tuple[list[tuple[str | None, str]], list[str]]:
+    """The decision rule in words and what the verdict means under it (and small print)."""
     rule = spec.get("decision_rule") or "simple"
     text = spec.get("decision_rule_text")
     if not text:  # a record judged before decision rules were recorded: the simple rule
         text = ("simple acceptance: a limit passes when the measured value is within it "
                 "(decision rule not recorded with this measurement)")
     verdict = spec.get("verdict")
-    out = [f"<p>Verdicts are given under the <b>{_e(rule)}</b> decision rule: {_e(text)}.</p>"]
+    out: list[tuple[str | None, str]] = [
+        ("Decision rule.", f"Verdicts are given under the {rule} decision rule: {text}.")]
     if verdict in VERDICT_MEANING:
-        out.append(f"<p>{_e(VERDICT_WORDS[verdict])}: {_e(VERDICT_MEANING[verdict])}.</p>")
+        out.append((None, f"{VERDICT_WORDS[verdict]}: {VERDICT_MEANING[verdict]}."))
+    small = []
     if rule == "simple":
-        out.append("<p class=\"small\">Under simple acceptance a value close to its limit "
-                   "passes or fails on the measured value alone, with the risk that the "
-                   "true value lies on the other side of the limit; the margin and U above "
-                   "show how close each figure came.</p>")
-    return "".join(out)
+        small.append("Under simple acceptance a value close to its limit passes or fails on "
+                     "the measured value alone, with the risk that the true value lies on "
+                     "the other side of the limit; the margin and U above show how close "
+                     "each figure came.")
+    return out, small
 
 
-def _uncertainty_html(record: Mapping) -> str:
+def _uncertainty_text(record: Mapping) -> str:
     """What the expanded uncertainties contain, from the record's own budget."""
     budget = record.get("uncertainty_budget") or {}
     if not record.get("uncertainty") or not budget:
-        return ("<p>This record carries no uncertainties (it was measured before Flatsight "
-                "stated them), so no U is given.</p>")
+        return ("This record carries no uncertainties (it was measured before Flatsight "
+                "stated them), so no U is given.")
     k = budget.get("coverage_factor", 2)
-    parts = [f"Each U is an expanded uncertainty with coverage factor k = {_e(k)} "
+    parts = [f"Each U is an expanded uncertainty with coverage factor k = {k} "
              "(JCGM 100:2008, the GUM), for a level of confidence of about 95 %: standard "
              "uncertainties combined in quadrature and multiplied by k."]
     if budget.get("basis"):
-        parts.append(f"What it contains: {_e(budget['basis'])}.")
+        parts.append(f"What it contains: {budget['basis']}.")
     stated = [f"map noise {_fmt(budget.get('map_noise_nm'), 2)} nm RMS"]
     wl_u = budget.get("wavelength_uncertainty_nm")
     stated.append(f"wavelength standard uncertainty {_fmt(wl_u, 3)} nm" if wl_u else
@@ -560,20 +605,20 @@ def _uncertainty_html(record: Mapping) -> str:
                   "reference flat uncertainty not stated (taken as 0)")
     photos = budget.get("photos") or 1
     if photos > 1:
-        stated.append(f"{_e(photos)} photos averaged (noise and method parts divided by "
-                      f"√{_e(photos)})")
+        stated.append(f"{photos} photos averaged (noise and method parts divided by "
+                      f"√{photos})")
     parts.append("For this measurement: " + "; ".join(stated) + ".")
-    return f"<p class=\"small\">{' '.join(parts)}</p>"
+    return " ".join(parts)
 
 
-def _method_items(record: Mapping) -> str:
-    """How the figures were taken: the method the record names, in words."""
+def _method_items(record: Mapping) -> tuple[tuple[str | None, str], list[str], str | None]:
+    """How the figures were taken, in words: its lead paragraph, its items, a note."""
     from . import figures
     from .record import FIGURES_METHOD
 
     recorded = record.get("figures_method")
     if recorded and recorded != FIGURES_METHOD:
-        return f"<p>{_e(recorded)}</p>"  # measured by another version: its own words
+        return (None, str(recorded)), [], None  # measured by another version: its words
     doc = figures.__doc__ or ""
     section = doc.split("How the figures are taken", 1)[-1].split("References", 1)[0]
     paragraphs: list[str] = []
@@ -585,63 +630,61 @@ def _method_items(record: Mapping) -> str:
             paragraphs.append(text.removeprefix("* "))
         else:
             paragraphs[-1] += " " + text
-    intro, items = paragraphs[0], paragraphs[1:]
 
     def plain(text: str) -> str:  # the docstring's reStructuredText marks, dropped
         text = text.replace("``", "").replace("**", "")
-        return _e(re.sub(r"\*([^*]+)\*", r"\1", text))
+        return re.sub(r"\*([^*]+)\*", r"\1", text)
 
-    note = ("" if recorded else
-            "<p class=\"small\">The record does not name its figure method; this is the "
-            "method of the Flatsight that wrote the certificate.</p>")
-    return (f"<p><b>How the figures are taken.</b> {plain(intro)}</p><ul class=\"method\">"
-            + "".join(f"<li>{plain(item)}</li>" for item in items) + "</ul>" + note)
+    note = (None if recorded else
+            "The record does not name its figure method; this is the method of the "
+            "Flatsight that wrote the certificate.")
+    return (("How the figures are taken.", plain(paragraphs[0])),
+            [plain(item) for item in paragraphs[1:]], note)
 
 
-def _zernike_table(record: Mapping) -> str:
+def _zernike_table(record: Mapping) -> Table | None:
     """The largest fitted terms, removed terms left out, pairs as size and orientation."""
     a = _noll_coefficients(record.get("zernike"))
     lam = finite_number(record.get("wavelength_nm"))
     if not a.size:
-        return "<p>The record holds no Zernike coefficients.</p>"
+        return None
     rows = zernike_rows(a, removed=removed_terms(record))
     shown = rows[:ZERNIKE_ROWS_SHOWN]
     body = []
     for js, _, _, name, size, angle in shown:
         waves = size / lam if size is not None and lam else None
-        body.append(f"<tr><td class=\"num\">{_e(', '.join(map(str, js)))}</td>"
-                    f"<td>{_e(name)}</td><td class=\"num\">{_fmt(size, 2)}</td>"
-                    f"<td class=\"num\">{_fmt(waves, 4)}</td>"
-                    f"<td class=\"num\">{'—' if angle is None else f'{angle}°'}</td></tr>")
+        body.append((", ".join(map(str, js)), str(name), _fmt(size, 2), _fmt(waves, 4),
+                     "—" if angle is None else f"{angle}°"))
     note = (f"The {len(shown)} largest of {len(rows)} rows; " if len(rows) > len(shown)
             else "Every fitted term; ")
     note += (f"all {a.size} are in the record (history --json). A cosine and sine pair "
              "is one row: its combined RMS, and at what angle (counter-clockwise from the "
              "photo's right) one of its |m| high points lies.")
-    return ("<table class=\"zern\"><thead><tr><th class=\"num\">Noll</th><th>term</th>"
-            "<th class=\"num\">nm RMS</th><th class=\"num\">waves</th>"
-            "<th class=\"num\">high at</th></tr></thead><tbody>" + "".join(body)
-            + f"</tbody></table><p class=\"small\">{_e(note)}</p>")
+    return Table(header=("Noll", "term", "nm RMS", "waves", "high at"), rows=tuple(body),
+                 numeric=(True, False, True, True, True), note=note)
 
 
-def _warnings_html(record: Mapping) -> str:
+def _warnings(record: Mapping) -> tuple[str, ...]:
     warnings = [str(w) for w in record.get("warnings") or []]
-    if not warnings:
-        return ""
-    items = "".join(f"<li>{_e(w)}</li>" for w in warnings[:WARNINGS_SHOWN])
+    shown = warnings[:WARNINGS_SHOWN]
     more = len(warnings) - WARNINGS_SHOWN
     if more > 0:
-        items += f"<li>and {more} more, in the record (flatsight history --json)</li>"
-    return f"<h2>Warnings at measurement</h2><ul class=\"warn small\">{items}</ul>"
+        shown.append(f"and {more} more, in the record (flatsight history --json)")
+    return tuple(shown)
 
 
-def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None,
-                     log: str | None = None) -> str:
-    """The certificate of one logged record as a self-contained HTML page of one sheet.
+SCOPE = ("The figures describe the surface form of the measured face over the analysed "
+         "aperture, from a single photo against a reference flat. The reference flat's own "
+         "form error is included in them, as are air currents, temperature differences and "
+         "the way the part was supported when the photo was taken. They do not cover the "
+         "other faces, surface imperfections (scratches, digs), roughness, dimensions, or "
+         "anything outside the aperture. This certificate is not a substitute for the "
+         "shop's calibrated instruments or for the customer's own acceptance procedure.")
 
-    It prints on one A4 or one Letter sheet: the Zernike table lists the largest terms
-    (:data:`ZERNIKE_ROWS_SHOWN`) and the page the first :data:`WARNINGS_SHOWN` warnings,
-    each saying where the rest are.
+
+def certificate_document(record: Mapping, *, map_png_bytes: bytes | None = None,
+                         log: str | None = None) -> CertificateDocument:
+    """What the certificate of one logged record says (see :class:`CertificateDocument`).
 
     Parameters
     ----------
@@ -652,84 +695,145 @@ def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None,
         The map image; made with :func:`map_png` when not given.
     log : str, optional
         The inspection log the record was read from, named beside the record id.
+    """
+    png = map_png_bytes if map_png_bytes is not None else map_png(record)
+    _, map_source = surface_map(record, size_px=8)
+    spec = record.get("spec") or {}
+    verdict = spec.get("verdict") if spec.get("verdict") in VERDICT_MEANING else None
+    rule = spec.get("decision_rule") or "simple"
+    against = (f"against {spec.get('tolerance')} (ISO 10110-5 notation as Flatsight reads "
+               f"it; fringes at {_fmt(spec.get('spec_wavelength_nm'), 2)} nm) under the "
+               f"{rule} decision rule"
+               if spec else "no tolerance was given, so no pass or fail is stated")
+    part = str(record.get("part") or "part not named")
+    zern = record.get("zernike") or {}
+    n_terms = len(zern.get("coefficients_nm") or [])
+    removed = removed_terms_text(removed_terms(record))
+    decision, small = _decision(spec) if spec else ([], [])
+    method_lead, method_items, method_note = _method_items(record)
+    method = (f"One photo of the fringes between the part and a reference flat in "
+              f"monochromatic light at {_fmt(record.get('wavelength_nm'), 2)} nm, analysed "
+              "by Fourier-transform fringe analysis (Takeda, Ina & Kobayashi, JOSA 72, 156, "
+              "1982); the unwrapped phase gives height as phase × wavelength / 4π. A "
+              f"{n_terms}-term Zernike fit in Noll's ordering and normalisation (Noll, JOSA "
+              "66, 207, 1976) gives power, astigmatism and the symmetric terms; PVr follows "
+              "Evans (Opt. Eng. 48, 043605, 2009). Tolerances are written in ISO 10110-5 "
+              f"notation. Settings: {_settings_text(record.get('settings') or {}) or '—'}.")
+    return CertificateDocument(
+        part=part,
+        subtitle=(f"{part} · record {record.get('record_id', '—')} · measured "
+                  f"{_when(record.get('logged_utc')) or '—'} · {software(record)}"),
+        software=software(record),
+        verdict=verdict,
+        verdict_word=VERDICT_WORDS[verdict],
+        against=against,
+        map_png=png,
+        map_caption="surface height map, colour bar in nanometres",
+        facts=_facts(record, log, map_source),
+        figures_title=f"Figures ({removed} removed)",
+        figures=_figures_table(record),
+        zernike_title=f"Zernike terms without {removed}",
+        zernike=_zernike_table(record),
+        zernike_empty="The record holds no Zernike coefficients.",
+        tolerance=_spec_table(spec) if spec else None,
+        warnings=_warnings(record),
+        fine=(*decision, (None, _uncertainty_text(record)), ("Method.", method),
+              ("What this measurement covers.", SCOPE), method_lead),
+        method_items=tuple(method_items),
+        small_print=tuple(small) + ((method_note,) if method_note else ()),
+    )
+
+
+# --- the HTML rendering --------------------------------------------------------------------
+
+
+def _table_html(t: Table, css: str = "") -> str:
+    def cell(tag: str, text: str, numeric: bool, mark: str | None = None) -> str:
+        classes = " ".join(c for c in ("num" if numeric else "", mark or "") if c)
+        attr = f' class="{classes}"' if classes else ""
+        return f"<{tag}{attr}>{_e(text)}</{tag}>"
+
+    head = "".join(cell("th", h, n) for h, n in zip(t.header, t.numeric, strict=True))
+    marks = t.row_marks or (None,) * len(t.rows)
+    body = "".join(
+        "<tr>" + "".join(cell("td", c, n, mark if i == len(row) - 1 else None)
+                         for i, (c, n) in enumerate(zip(row, t.numeric, strict=True)))
+        + "</tr>" for row, mark in zip(t.rows, marks, strict=True))
+    attr = f' class="{css}"' if css else ""
+    note = f'<p class="small">{_e(t.note)}</p>' if t.note else ""
+    return f"<table{attr}><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>{note}"
+
+
+def _paragraph_html(lead: str | None, text: str, css: str = "") -> str:
+    attr = f' class="{css}"' if css else ""
+    return f"<p{attr}>" + (f"<b>{_e(lead)}</b> " if lead else "") + f"{_e(text)}</p>"
+
+
+def certificate_html(record: Mapping, *, map_png_bytes: bytes | None = None,
+                     log: str | None = None) -> str:
+    """The certificate of one logged record as a self-contained HTML page of one sheet.
+
+    It prints on one A4 or one Letter sheet: the Zernike table lists the largest terms
+    (:data:`ZERNIKE_ROWS_SHOWN`) and the page the first :data:`WARNINGS_SHOWN` warnings,
+    each saying where the rest are. The arguments are :func:`certificate_document`'s.
 
     Returns
     -------
     str
         The whole HTML page: no external files, fonts or scripts.
     """
-    png = map_png_bytes if map_png_bytes is not None else map_png(record)
-    _, map_source = surface_map(record, size_px=8)
-    spec = record.get("spec") or {}
-    verdict = spec.get("verdict") if spec.get("verdict") in VERDICT_MEANING else None
-    word = VERDICT_WORDS[verdict]
-    rule = spec.get("decision_rule") or "simple"
-    against = (f"against {_e(spec.get('tolerance'))} (ISO 10110-5 notation as Flatsight reads "
-               f"it; fringes at {_fmt(spec.get('spec_wavelength_nm'), 2)} nm) under the "
-               f"{_e(rule)} decision rule"
-               if spec else "no tolerance was given, so no pass or fail is stated")
-    settings = record.get("settings") or {}
-    part = record.get("part") or "part not named"
-    zern = record.get("zernike") or {}
-    n_terms = len(zern.get("coefficients_nm") or [])
-    removed = removed_terms_text(removed_terms(record))
-    b64 = base64.b64encode(png).decode("ascii")
+    doc = certificate_document(record, map_png_bytes=map_png_bytes, log=log)
+    b64 = base64.b64encode(doc.map_png).decode("ascii")
+    hash_cell = ' class="hash"'
+    facts = "".join(
+        f"<tr><th>{_e(k)}</th><td{hash_cell if k.endswith('SHA-256') else ''}>"
+        f"{_e(v)}</td></tr>" for k, v in doc.facts)
+    zernike = (_table_html(doc.zernike, "zern") if doc.zernike is not None
+               else f"<p>{_e(doc.zernike_empty)}</p>")
+    warnings = ("<h2>Warnings at measurement</h2><ul class=\"warn small\">"
+                + "".join(f"<li>{_e(w)}</li>" for w in doc.warnings) + "</ul>"
+                if doc.warnings else "")
+    fine = "".join(_paragraph_html(lead, text) for lead, text in doc.fine)
+    items = ("<ul class=\"method\">" + "".join(f"<li>{_e(i)}</li>" for i in doc.method_items)
+             + "</ul>" if doc.method_items else "")
+    small = "".join(_paragraph_html(None, text, "small") for text in doc.small_print)
     return f"""<!DOCTYPE html>
 <html lang="en">
 <head>
 <meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
-<title>Flatness certificate — {_e(part)}</title>
+<title>Flatness certificate — {_e(doc.part)}</title>
 <style>{_CSS}</style>
 </head>
 <body>
 <header>
 <h1>Surface flatness certificate</h1>
-<p class="sub">{_e(part)} · record {_e(record.get('record_id', '—'))} ·
-measured {_e(_when(record.get('logged_utc')) or '—')} ·
-{_e(software(record))}
-</p>
+<p class="sub">{_e(doc.subtitle)}</p>
 </header>
-<section class="verdict {verdict or 'none'}" id="verdict">
-<span class="word">{word}</span><span>{against}</span>
+<section class="verdict {doc.verdict or 'none'}" id="verdict">
+<span class="word">{_e(doc.verdict_word)}</span><span>{_e(doc.against)}</span>
 </section>
 <section class="top">
 <figure>
-<img alt="surface height map, colour bar in nanometres" src="data:image/png;base64,{b64}">
+<img alt="{_e(doc.map_caption)}" src="data:image/png;base64,{b64}">
 </figure>
-{_facts(record, log, map_source)}
+<table class="facts">{facts}</table>
 </section>
 <div class="cols">
 <div>
-<h2>Figures ({_e(removed)} removed)</h2>
-{_figures_table(record)}
+<h2>{_e(doc.figures_title)}</h2>
+{_table_html(doc.figures, "figs")}
 </div>
 <div>
-<h2>Zernike terms without {_e(removed)}</h2>
-{_zernike_table(record)}
+<h2>{_e(doc.zernike_title)}</h2>
+{zernike}
 </div>
 </div>
-{"<h2>Tolerance</h2>" + _spec_table(spec) if spec else ""}
-{_warnings_html(record)}
+{"<h2>Tolerance</h2>" + _table_html(doc.tolerance) if doc.tolerance is not None else ""}
+{warnings}
 <section class="fine">
 <h2>Decision rule, uncertainty, method and scope</h2>
-{_decision_html(spec) if spec else ""}
-{_uncertainty_html(record)}
-<p><b>Method.</b> One photo of the fringes between the part and a reference flat in
-monochromatic light at {_fmt(record.get('wavelength_nm'), 2)} nm, analysed by
-Fourier-transform fringe analysis (Takeda, Ina &amp; Kobayashi, JOSA 72, 156, 1982); the
-unwrapped phase gives height as phase × wavelength / 4π. A {n_terms}-term Zernike fit in
-Noll's ordering and normalisation (Noll, JOSA 66, 207, 1976) gives power, astigmatism and
-the symmetric terms; PVr follows Evans (Opt. Eng. 48, 043605, 2009). Tolerances are
-written in ISO 10110-5 notation. Settings: {_settings_text(settings) or '—'}.</p>
-<p><b>What this measurement covers.</b> The figures describe the surface form of the
-measured face over the analysed aperture, from a single photo against a reference flat.
-The reference flat's own form error is included in them, as are air currents, temperature
-differences and the way the part was supported when the photo was taken. They do not
-cover the other faces, surface imperfections (scratches, digs), roughness, dimensions, or
-anything outside the aperture. This certificate is not a substitute for the shop's
-calibrated instruments or for the customer's own acceptance procedure.</p>
-{_method_items(record)}
+{fine}{items}{small}
 </section>
 <div class="sign"><div>Inspected by</div><div>Checked by</div><div>Date</div></div>
 </body>
