@@ -16,10 +16,11 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
+from .render.summary import carrier_lines
 from .safe_text import csv_row, literal, shown
 
-__all__ = ["Reporter", "figures_table", "limit_lines", "limits_table", "verdict_text",
-           "warning_text", "zernike_table"]
+__all__ = ["Reporter", "figures_table", "inspection_text", "limit_lines", "limits_table",
+           "verdict_text", "warning_text", "zernike_table"]
 
 # (label, record key stem, show in fringes)
 FIGURE_ROWS = [
@@ -56,6 +57,20 @@ def warning_text(warning: str, where: str = "") -> Text:
 
 def _fmt(value, digits: int = 1) -> str:
     return format_number(value, digits, missing="-")
+
+
+def fringes_text(q: dict) -> str:
+    """The record's carrier and visibility in words; an average's as the range over its photos."""
+    per_photo = q.get("per_photo") or ()
+    if per_photo:
+        lines = carrier_lines(None, None, None, [
+            (p.get("carrier_fringes"), p.get("fringe_period_px"), p.get("mean_modulation"))
+            for p in per_photo])
+        return f"{lines[0].rstrip(':')} carrier: " + ", ".join(lines[1:])
+    if q.get("carrier_fringes") is None:
+        return f"no tilt carrier; visibility {_fmt(q.get('mean_modulation'), 2)}"
+    return (f"{_fmt(q['carrier_fringes'])} across at {_fmt(q['carrier_angle_deg'], 0)}°, "
+            f"{_fmt(q['fringe_period_px'])} px each; visibility {_fmt(q['mean_modulation'], 2)}")
 
 
 def _u(record: dict, key: str) -> float | None:
@@ -152,6 +167,29 @@ def limit_lines(spec: dict) -> list[Text]:
         title, measured, limit, margin, verdict = _limit_cells(lim)
         lines.append(Text.assemble(title, ": ", verdict, f"  {measured} {limit}, margin {margin}"))
     return lines
+
+
+def inspection_text(record: dict) -> str:
+    """The record's part, people, log entry and verdict as plain text, for a summary file.
+
+    Empty when the record carries none of them (a measurement not judged or logged).
+    """
+    rows = [(label, record.get(key)) for label, key in (
+        ("part", "part"), ("operator", "operator"), ("station", "station"),
+        ("logged (UTC)", "logged_utc"), ("record", "record_id"))]
+    spec = record.get("spec") or {}
+    if not spec and all(value is None for _, value in rows):
+        return ""
+    out = ["", "Inspection"]
+    out += [f"  {label:<14} {shown(value)}" for label, value in rows if value is not None]
+    if spec:
+        rule = spec.get("decision_rule") or "simple"
+        out.append(f"  tolerance      {shown(spec.get('tolerance') or '')} ({rule} decision "
+                   f"rule): {verdict_text(spec.get('verdict'), upper=True).plain}")
+        out += [f"    {line.plain}" for line in limit_lines(spec)]
+        if spec.get("decision_rule_text"):
+            out.append(f"  {shown(spec['decision_rule_text'])}")
+    return "\n".join(out) + "\n"
 
 
 def zernike_table(record: dict, *, first: int = 4, last: int = 15) -> Table:
@@ -273,10 +311,8 @@ class Reporter:
         c.print()
         c.print(zernike_table(r))
         q = r["quality"]
-        c.print(f"fringes: {_fmt(q['carrier_fringes'])} across at "
-                f"{_fmt(q['carrier_angle_deg'], 0)}°, {_fmt(q['fringe_period_px'])} px each; "
-                f"resolution {_fmt(q['resolution_cycles_per_aperture'])} cycles/aperture; "
-                f"visibility {_fmt(q['mean_modulation'], 2)}; masked "
+        c.print(f"fringes: {fringes_text(q)}; resolution "
+                f"{_fmt(q['resolution_cycles_per_aperture'])} cycles/aperture; masked "
                 f"{_fmt(100 * q['masked_fraction'])} %")
         self._verdict(r)
         for w in r.get("warnings", []):

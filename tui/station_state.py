@@ -45,6 +45,8 @@ class QueueEntry:
     # inspection record: this session's verdict, the log's last one for the part, the id
     verdict: str | None = None
     spec: dict | None = None  # the record's judged tolerance: rule, limits, margins, U
+    # the judged (and logged) record: the `measure --json` document that `s` saves
+    record: dict | None = None
     last_verdict: str | None = None
     record_id: int | None = None
     log_error: str | None = None
@@ -93,6 +95,7 @@ class QueueEntry:
         self.state = "new"
         self.verdict = self.record_id = self.log_error = None
         self.spec = None
+        self.record = None
         self.combined = None
 
 

@@ -308,8 +308,12 @@ async def test_save_writes_the_record_the_map_and_a_summary(tmp_path):
         await pilot.press("3", "p", "s")
         await settle(pilot)
         record = json.loads((out / "BW-FL-0412.flatsight.json").read_text(encoding="utf-8"))
-        # the same document as `flatsight measure --json` (the library's record)
-        assert record == json.loads(json.dumps(measurement_to_record(m)))
+        # the library's record, with the part and people `flatsight measure --json` adds
+        # (tests/tui/test_station_records.py compares the two documents key by key)
+        judged = ("part", "operator", "station", "logged_utc")
+        assert {k: v for k, v in record.items() if k not in judged} == json.loads(
+            json.dumps(measurement_to_record(m)))
+        assert record["part"] == "BW-FL-0412"
         saved = np.load(out / "BW-FL-0412.height.npy")
         np.testing.assert_allclose(saved, m.height_nm, rtol=1e-6, equal_nan=True)
         summary = (out / "BW-FL-0412.summary.txt").read_text(encoding="utf-8")

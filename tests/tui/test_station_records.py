@@ -398,3 +398,41 @@ def test_read_log_finds_a_parts_last_verdict_beyond_the_rows_it_reads(tmp_path):
     assert verdicts == {"BW-TP-0031": "fail", "BW-FL-0412": "pass"}  # newest, not oldest
     assert read_log(None)[2].startswith("not logging")
     assert read_log(tmp_path / "none.sqlite")[2].startswith("no records yet")
+
+
+@sync
+async def test_save_writes_the_document_measure_json_gives_for_the_same_photo(
+        tmp_path, monkeypatch, capsys):
+    # issue 9 item 5: `s` wrote a record without spec, part, operator or station
+    import json
+
+    import flatsight.analysis.pipeline as pipeline
+    from flatsight.tui.cli import main
+
+    app, lib = make_app(tmp_path, names=PARTS[:1], spec="pv<=500nm, rms<=5nm")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("s")
+        await settle(pilot)
+    saved = json.loads((tmp_path / "BW-FL-0412.flatsight.json").read_text(encoding="utf-8"))
+    summary = (tmp_path / "BW-FL-0412.summary.txt").read_text(encoding="utf-8")
+    # the same photo through `flatsight measure --json`, with the station's stand-in analysis
+    monkeypatch.setattr(pipeline, "measure",
+                        lambda photo, settings, **_: lib.measure(photo, settings))
+    status = main(["measure", str(tmp_path / PARTS[0]), "--wavelength", "632.8", "--json",
+                   "--spec", "pv<=500nm, rms<=5nm", "--operator", "Tamsin Ode",
+                   "--station", "bench-2", "--log", str(tmp_path / "cli.sqlite")])
+    printed = json.loads(capsys.readouterr().out)
+    assert status == 1  # the fake surface's RMS is over 5 nm
+    assert set(saved) == set(printed)
+    for key in printed:
+        if key != "logged_utc":  # the time stamps differ by the seconds between the runs
+            assert saved[key] == printed[key], key
+    assert saved["spec"]["verdict"] == "fail" and saved["part"] == "BW-FL-0412"
+    assert saved["record_id"] == 1  # the record the station logged, by its id
+    # the summary says what the record says: part, people, the verdict and each limit
+    for words in ("part           BW-FL-0412", "operator       Tamsin Ode",
+                  "station        bench-2", "record         1",
+                  "tolerance      pv<=500nm, rms<=5nm (simple decision rule): FAIL"):
+        assert words in summary, words
+    assert "RMS: FAIL" in summary

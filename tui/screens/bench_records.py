@@ -44,13 +44,18 @@ class RecordActions:
         return self.recorder.options.get("part") or e.path.stem
 
     # ---- recording ----------------------------------------------------------------------
-    def record(self, index: int) -> None:
-        """Judge and log entry ``index``'s fresh measurement (in a worker: SQLite may wait)."""
-        e = self.entries[index]
+    def record_options(self, e: QueueEntry):
+        """The options ``e``'s record is judged and logged with, as ``measure`` takes them."""
         options = entry_options(self.recorder, self.photo_preset(e), e.path)
         if options.decision is None:  # neither the command line nor the preset: the station's
             options.decision = self.settings.decision
-        self._record(index, copy.copy(e), options)  # a copy: the entry may change meanwhile
+        return options
+
+    def record(self, index: int) -> None:
+        """Judge and log entry ``index``'s fresh measurement (in a worker: SQLite may wait)."""
+        e = self.entries[index]
+        # a copy: the entry may change meanwhile
+        self._record(index, copy.copy(e), self.record_options(e))
 
     @work(thread=True, exit_on_error=False, group="record")
     def _record(self, index: int, snapshot: QueueEntry, options):
@@ -73,6 +78,7 @@ class RecordActions:
             return  # no records in this build, or the photo was measured again meanwhile
         e.verdict, e.record_id, e.log_error = outcome.verdict, outcome.record_id, outcome.error
         e.spec = outcome.record.get("spec")
+        e.record = outcome.record
         if outcome.error:
             self.notify(outcome.error, severity="error", timeout=10)
         part = self.part_of(e)

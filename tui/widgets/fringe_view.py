@@ -8,6 +8,7 @@ from rich.text import Text
 from textual.binding import Binding
 
 from ..render.photo import aperture_region, render_photo
+from ..render.summary import carrier_short, quality_lines
 from ..safe_text import shown
 from .view_base import StationView, side_by_side
 
@@ -100,7 +101,7 @@ class FringeView(StationView):
         m = e.measurement
         if m is not None:
             second.append(
-                f"  {m.quality.carrier_fringes:.0f} fr  "
+                f"  {carrier_short(m.quality)}  "
                 f"masked {100 * m.quality.masked_fraction:.0f} %",
                 style="dim",
             )
@@ -125,12 +126,8 @@ class FringeView(StationView):
         m = e.measurement
         if m is not None:
             q = m.quality
-            rows += [
-                Text(f"{q.carrier_fringes:.1f} tilt fringes"),
-                Text(f"period {q.fringe_period_px:.1f} px"),
-                Text(f"visibility {q.mean_modulation:.2f}"),
-                Text(f"masked {100 * q.masked_fraction:.1f} %"),
-            ]
+            rows += [Text(line) for line in quality_lines(q)]
+            rows.append(Text(f"masked {100 * q.masked_fraction:.1f} %"))
             for warning in m.warnings[:3]:
                 rows += wrapped(f"! {warning}", "#ffc440")
         elif e.error:
