@@ -160,12 +160,28 @@ def limits_table(spec: dict) -> Table:
     return t
 
 
+def limit_as_written(lim: dict) -> str:
+    """`` (2 fr at 546.07 nm)``: a limit in the unit the tolerance gave it, with the
+    wavelength its fringes or waves are counted at; empty for a limit written in nm."""
+    unit, wavelength = lim.get("unit"), lim.get("unit_wavelength_nm")
+    if unit in (None, "nm", "um") or wavelength is None or lim.get("limit") is None:
+        return ""
+    shown_unit = {"fr": "fr", "w": "λ"}.get(unit, shown(unit))
+    return f" ({format_number(lim['limit'], 3).rstrip('0').rstrip('.')} {shown_unit} at " \
+           f"{format_number(wavelength, 2).rstrip('0').rstrip('.')} nm)"
+
+
 def limit_lines(spec: dict) -> list[Text]:
-    """The same as :func:`limits_table`, one line a limit that wraps rather than cuts."""
+    """The same as :func:`limits_table`, one line a limit that wraps rather than cuts.
+
+    Each limit written in fringes or waves says at which wavelength they are counted, as
+    a drawing's fringes (546.07 nm unless stated) need not be the test's.
+    """
     lines = []
     for lim in spec.get("limits", []):
         title, measured, limit, margin, verdict = _limit_cells(lim)
-        lines.append(Text.assemble(title, ": ", verdict, f"  {measured} {limit}, margin {margin}"))
+        lines.append(Text.assemble(title, ": ", verdict, f"  {measured} {limit}"
+                                   f"{limit_as_written(lim)}, margin {margin}"))
     return lines
 
 

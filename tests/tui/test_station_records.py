@@ -10,6 +10,7 @@ from __future__ import annotations
 import asyncio
 import functools
 import io
+import json
 import sqlite3
 
 import numpy as np
@@ -404,7 +405,6 @@ def test_read_log_finds_a_parts_last_verdict_beyond_the_rows_it_reads(tmp_path):
 async def test_save_writes_the_document_measure_json_gives_for_the_same_photo(
         tmp_path, monkeypatch, capsys):
     # issue 9 item 5: `s` wrote a record without spec, part, operator or station
-    import json
 
     import flatsight.analysis.pipeline as pipeline
     from flatsight.tui.cli import main
@@ -436,3 +436,28 @@ async def test_save_writes_the_document_measure_json_gives_for_the_same_photo(
                   "tolerance      pv<=500nm, rms<=5nm (simple decision rule): FAIL"):
         assert words in summary, words
     assert "RMS: FAIL" in summary
+
+
+@sync
+async def test_the_figures_view_says_at_which_wavelength_each_fringe_count_is(tmp_path):
+    # issue 9 item 10: "fringes" were at the test wavelength while the 3/A(B) limits are
+    # at 546.07 nm (ISO 10110-5's reference wavelength, from memory), and neither said so
+    app, _ = make_app(tmp_path, names=PARTS[:1], spec="3/2(0.5)")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("5")
+        await pilot.pause()
+
+        def figures_text() -> str:
+            console = Console(width=200, record=True, file=io.StringIO())
+            console.print(app.screen.query_one("#figures-view")._content())
+            return console.export_text()
+
+        shown = figures_text()
+        assert "heights in nm" in shown
+        assert "fr @632.8)" in shown  # the power in fringes of the test wavelength
+        assert "≤ 546.1 nm (2 fr at 546.07 nm)" in shown  # A = 2 fringes of 546.07 nm
+        assert "≤ 136.5 nm (0.5 fr at 546.07 nm)" in shown  # B
+        await pilot.press("u", "u")  # nm -> waves -> fringes
+        await pilot.pause()
+        assert "heights in fringes of 632.8 nm" in figures_text()

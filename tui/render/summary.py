@@ -27,8 +27,9 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
         return fmt_height(v, units, wavelength_nm)
 
     power = h(figures.power_nm)
-    if units != "fringes":
-        power += f"  ({format_number(figures.power_fringes, 2, sign=True)} fr)"
+    if units != "fringes":  # fringes of the test wavelength, said so: a drawing's may differ
+        power += (f"  ({format_number(figures.power_fringes, 2, sign=True)} fr "
+                  f"@{wavelength_nm:g})")
     rows = [
         ("PV", h(figures.pv_nm)),
         ("RMS", h(figures.rms_nm)),
