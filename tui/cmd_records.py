@@ -28,7 +28,7 @@ TREND_FIGURES = ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm", "as
                  "symmetric_irregularity_nm", "rms_irregularity_nm", "rms_asymmetric_nm")
 CSV_FIELDS = ("record_id", "logged_utc", "part", "operator", "station", "photo",
               "photo_sha256", "wavelength_nm", *TREND_FIGURES, "radius_of_curvature_m",
-              "tolerance", "verdict")
+              "tolerance", "verdict", "supersedes", "superseded_by")
 
 
 # a record id SQLite can hold; plot rows a terminal can show
@@ -47,7 +47,8 @@ def add_parser(subparsers) -> None:
         "history", help="list logged inspections, newest first",
         description="List logged inspections, newest first. --json gives JSON Lines with "
                     "the fields of 'measure --json' plus record_id, logged_utc, part, "
-                    "operator, station and verdict.")
+                    "operator, station and verdict. A photo the station measured again in "
+                    "one session counts once: its newest record (see --superseded).")
     _log_option(h)
     h.add_argument("--part", metavar="ID", help="only this part")
     h.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
@@ -55,6 +56,10 @@ def add_parser(subparsers) -> None:
                    help="only this verdict")
     h.add_argument("--limit", metavar="N", type=count_type, default=None,
                    help="at most N records")
+    h.add_argument("--superseded", action="store_true",
+                   help="also list the records a later one replaced (the station measured "
+                        "the same photo again in one session), marked '→ID' with the id "
+                        "that replaced them")
     fmt = h.add_mutually_exclusive_group()
     fmt.add_argument("--json", action="store_true", help="JSON Lines, one record a line")
     fmt.add_argument("--csv", action="store_true", help="CSV with one row a record")
@@ -131,7 +136,7 @@ def run_history(args: argparse.Namespace) -> int:
 
     try:
         rows = query(_log_path(args), part=args.part, since=args.since, verdict=args.verdict,
-                     limit=args.limit)
+                     limit=args.limit, superseded=args.superseded)
     except FlatsightError as exc:
         return _fail("history", exc)
     out = sys.stdout
@@ -174,6 +179,8 @@ def run_history(args: argparse.Namespace) -> int:
             cells += [_cell(rec.get("operator")), _cell(rec.get("station"))]
         cells += [_cell(rec.get("pv_nm")), _cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
                   _cell(rec.get("irregularity_nm")), literal(verdict or "—", style)]
+        if rec.get("superseded_by") is not None:
+            cells[-1] = literal(f"{verdict or '—'} →{rec['superseded_by']}", "dim")
         body.append(cells)
     # names fold when the terminal (or a pipe's 80 columns) is narrow; the id, time,
     # figures and verdict never break, so no number is read split in two
@@ -187,6 +194,9 @@ def run_history(args: argparse.Namespace) -> int:
     console.print(literal(f"{len(rows)} inspections in {_log_path(args)} (heights in nm)"),
                   style="bold", overflow="fold")
     console.print(table)
+    if any(rec.get("superseded_by") is not None for rec in rows):
+        console.print("→N: replaced by record N (the same photo measured again in one "
+                      "station session)", style="dim")
     return 0
 
 
@@ -375,4 +385,7 @@ def run_report(args: argparse.Namespace) -> int:
     print(shown(f"wrote {out} from record {args.record_id} of {which}: part "
                 f"{rec.get('part') or '(none)'}, photo {photo}, logged {when or '?'} UTC, "
                 f"{verdict}"))
+    if rec.get("superseded_by") is not None:
+        print(f"note: record {args.record_id} was replaced by record {rec['superseded_by']} "
+              "(the same photo measured again in one station session)")
     return 0

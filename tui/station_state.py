@@ -50,6 +50,10 @@ class QueueEntry:
     last_verdict: str | None = None
     record_id: int | None = None
     log_error: str | None = None
+    # the newest record this session logged for this entry, kept when the result is
+    # forgotten: the entry's next record supersedes it (one record per photo counts)
+    logged_id: int | None = None
+    replaced_id: int | None = None  # the record this entry's current one superseded
     marked: bool = False
     # a measurement made of several photos: "average" or "sequence", and its photos
     kind: str = "photo"
@@ -111,7 +115,7 @@ class QueueEntry:
         self.measurement = None
         self.error = None
         self.state = "new"
-        self.verdict = self.record_id = self.log_error = None
+        self.verdict = self.record_id = self.log_error = self.replaced_id = None
         self.spec = None
         self.record = None
         self.combined = None

@@ -111,6 +111,7 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
         self._token = 0
         self._cancel: threading.Event | None = None
         self._jobs: dict[Worker, Job] = {}
+        self.record_lock = threading.Lock()  # one record of a photo at a time (supersedes)
         self._rerun_timer = None
         self._tab_chosen = False
         self._removed_cache: tuple | None = None
