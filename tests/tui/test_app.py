@@ -573,3 +573,27 @@ async def test_no_key_of_the_footer_shows_past_the_palette_hint(tmp_path, size):
                 await settle(pilot)
             widget, _ = app.screen.get_widget_at(size[0] - 1, size[1] - 1)
             assert widget.has_class("-command-palette"), (view, widget)
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)])
+@sync
+async def test_the_note_of_terms_taken_out_wraps_in_the_legend_not_onto_the_map(tmp_path,
+                                                                               size):
+    # issue 9, layout: after `p a c t` the "without …" note wrapped onto the map, shifting
+    # it a row, and the rest of the note was cut
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    async with app.run_test(size=size) as pilot:
+        await settle(pilot)
+        view = app.screen.query_one("#surface-view")
+        await pilot.press("3")
+        await pilot.pause()
+        before = plain(view).splitlines()
+        await pilot.press("p", "a", "c", "t")
+        await settle(pilot)
+        after = plain(view).splitlines()
+        # as many lines as the view has rows, none wider than the view: nothing wraps
+        assert len(after) == len(before) == view.size.height
+        assert max(len(line) for line in after) <= view.size.width
+        # the whole note, over as many legend lines as it takes
+        legend = " ".join(line.split("  ")[-1].strip() for line in after)
+        assert "without power, astigmatism, coma, trefoil" in legend, legend
