@@ -597,3 +597,35 @@ async def test_the_note_of_terms_taken_out_wraps_in_the_legend_not_onto_the_map(
         # the whole note, over as many legend lines as it takes
         legend = " ".join(line.split("  ")[-1].strip() for line in after)
         assert "without power, astigmatism, coma, trefoil" in legend, legend
+
+
+@sync
+async def test_z_first_zooms_to_the_aperture_as_it_says_and_again_shows_the_whole_photo(
+        tmp_path):
+    # issue 9: `z` zoomed out first, though it is described as zoom to the aperture
+    from flatsight.tui.widgets.fringe_view import FringeView
+
+    zoom = next(b for b in FringeView.BINDINGS if b.key == "z")
+    assert zoom.description == "Zoom to aperture"
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    async with app.run_test(size=(120, 40)) as pilot:
+        await settle(pilot)
+        await pilot.press("1")
+        await pilot.pause()
+        view = app.screen.query_one("#fringes-view")
+        plain(view)
+        whole = view._grid
+        assert (whole.origin_x_px, whole.origin_y_px) == (0.0, 0.0)  # the whole photo
+        assert "z: zoom to aperture" in plain(view)
+        await pilot.press("z")
+        await pilot.pause()
+        plain(view)
+        zoomed = view._grid
+        # the aperture (centre 80, 60, radius 48 px in the stand-in photo) and a margin
+        assert zoomed.origin_x_px > 0 and zoomed.step_px < whole.step_px
+        assert zoomed.origin_x_px <= FOUND_APERTURE.center_x_px - FOUND_APERTURE.radius_px
+        assert "z: whole photo" in plain(view)
+        await pilot.press("z")
+        await pilot.pause()
+        plain(view)
+        assert view._grid.origin_x_px == 0.0

@@ -147,7 +147,10 @@ class ViewActions:
         self._schedule_rerun()
 
     def action_toggle_zoom(self) -> None:
+        """Zoom the fringe view to the aperture; again, back to the whole photo."""
         self.zoom = not self.zoom
+        self.notify("zoomed to the aperture (z: the whole photo)" if self.zoom
+                    else "the whole photo (z: zoom to the aperture)", timeout=2)
         self.redraw()
 
     def action_next_outline(self) -> None:

@@ -35,7 +35,7 @@ class FringeView(StationView):
         Binding("x", "screen.add_exclusion", "Exclude"),
         Binding("e", "screen.next_outline", "Next outline"),
         Binding("d,delete", "screen.remove_exclusion", "Drop exclusion"),
-        Binding("z", "screen.toggle_zoom", "Zoom"),
+        Binding("z", "screen.toggle_zoom", "Zoom to aperture"),
     ]
 
     def draw(self) -> Text:
@@ -121,6 +121,7 @@ class FringeView(StationView):
             Text(f"radius {aperture.radius_px:.0f} px"),
             Text(f"exclusions {len(aperture.exclusions)}"),
             Text.assemble(("editing ", "dim"), (editing, "bold #60e8ff")),
+            Text("z: whole photo" if self.ctx.zoom else "z: zoom to aperture", style="dim"),
             Text(""),
         ]
         m = e.measurement
