@@ -629,3 +629,76 @@ async def test_z_first_zooms_to_the_aperture_as_it_says_and_again_shows_the_whol
         await pilot.pause()
         plain(view)
         assert view._grid.origin_x_px == 0.0
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)])
+@sync
+async def test_the_help_screen_says_that_it_scrolls_and_where_it_is(tmp_path, size):
+    # issue 9: the help screen gave no sign that it scrolls
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    app.animation_level = "none"  # scrolling jumps: nothing here waits on an animation
+    async with app.run_test(size=size) as pilot:
+        await settle(pilot)
+        await pilot.press("question_mark")
+        await settle(pilot)
+        body = app.screen.query_one("#help-body")
+        assert body.max_scroll_y > 0  # the keys do not fit even at 120x40
+        assert app.focused is body
+        assert str(body.border_subtitle).startswith("↓ more below")
+        await pilot.press("pagedown")
+        await settle(pilot)
+        assert "more" in str(body.border_subtitle)
+        await pilot.press("end")
+        await settle(pilot)
+        assert body.scroll_y == body.max_scroll_y
+        assert str(body.border_subtitle).startswith("↑ more above")
+        assert "esc closes" in str(body.border_subtitle)
+
+
+@sync
+async def test_open_picker_goes_up_a_folder_and_takes_a_typed_path(tmp_path):
+    # issue 9: the open dialog could not go above its start folder
+    start = tmp_path / "bench-2" / "today"
+    start.mkdir(parents=True)
+    write_photos(start, ["BW-FL-0520.png"])
+    far = tmp_path / "far off"
+    far.mkdir()
+    wanted = write_photos(far, ["BW-FL-0601.png"])[0]
+    photos = write_photos(tmp_path, PARTS[:1])
+    backend, _ = fake_backend()
+    app = FlatsightStation(photos, settings=StationSettings(), backend=backend,
+                           start_folder=start)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("o")
+        await settle(pilot)
+        picker = app.screen
+        assert isinstance(picker, OpenScreen)
+        path_field = picker.query_one("#open-path")
+        await pilot.press("backspace")  # up to bench-2
+        await settle(pilot)
+        assert picker.folder == start.parent and path_field.value == str(start.parent)
+        await pilot.press("backspace")
+        await settle(pilot)
+        assert picker.folder == tmp_path
+        labels = [str(n.label) for n in picker.query_one("#open-tree").root.children]
+        assert "bench-2" in labels and "far off" in labels
+        # a path typed in (with / and f in it, which are keys of the picker elsewhere)
+        await pilot.press("slash")
+        assert app.focused is path_field
+        path_field.value = ""
+        await pilot.press(*str(tmp_path / "nowhere"), "enter")
+        await settle(pilot)
+        assert app.screen is picker  # a path that is not there: a message, the picker stays
+        assert any("no folder or photo at" in n.message for n in app._notifications)
+        path_field.value = ""
+        await pilot.press(*str(far), "enter")
+        await settle(pilot)
+        assert picker.folder == far and app.focused is picker.query_one("#open-tree")
+        await pilot.press("slash")
+        path_field.value = ""
+        await pilot.press(*str(wanted), "enter")
+        await settle(pilot)
+        bench = app.screen
+        assert isinstance(bench, BenchScreen)
+        assert [e.path for e in bench.entries] == [photos[0], wanted]
