@@ -511,7 +511,7 @@ async def test_the_figures_view_says_at_which_wavelength_each_fringe_count_is(tm
 
         shown = figures_text()
         assert "heights in nm" in shown
-        assert "fr @632.8)" in shown  # the power in fringes of the test wavelength
+        assert "fr: fringes of 632.8 nm" in shown  # the power's fringes: the test's
         assert "≤ 546.1 nm (2 fr at 546.07 nm)" in shown  # A = 2 fringes of 546.07 nm
         assert "≤ 136.5 nm (0.5 fr at 546.07 nm)" in shown  # B
         await pilot.press("u", "u")  # nm -> waves -> fringes

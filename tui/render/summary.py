@@ -27,9 +27,8 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
         return fmt_height(v, units, wavelength_nm)
 
     power = h(figures.power_nm)
-    if units != "fringes":  # fringes of the test wavelength, said so: a drawing's may differ
-        power += (f"  ({format_number(figures.power_fringes, 2, sign=True)} fr "
-                  f"@{wavelength_nm:g})")
+    if units != "fringes":  # fringes of the test wavelength (the views say so)
+        power += f"  ({format_number(figures.power_fringes, 2, sign=True)} fr)"
     rows = [
         ("PV", h(figures.pv_nm)),
         ("RMS", h(figures.rms_nm)),

@@ -71,7 +71,8 @@ class FiguresView(VerticalScroll, can_focus=True):
         title = Text.assemble((e.name, "bold"), (f"   λ {wl:g} nm, heights in {unit}", "dim"))
         removed = sorted(set(figures.removed_terms) - {1, 2, 3})
         names = ["piston", "tilt", *dict.fromkeys(term_name(j).split(" ")[0] for j in removed)]
-        note = Text(f"terms out: {', '.join(names)}; ± U (k = 2)   (u: units)", style="dim")
+        note = Text(f"terms out: {', '.join(names)}; ± U (k = 2); fr: fringes of {wl:g} nm"
+                    "   (u: units)", style="dim")
         zt = Table(box=None, padding=(0, 1), header_style="bold", expand=False)
         zt.add_column("j", justify="right")
         zt.add_column("term")
