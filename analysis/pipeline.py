@@ -78,7 +78,7 @@ class Quality:
     carrier_fringes: float  # tilt fringes across the aperture diameter
     carrier_angle_deg: float  # direction of the carrier (fringe normal), photo x axis, y down
     fringe_period_px: float
-    resolution_cycles_per_aperture: float  # half-width of the flat-topped sideband window
+    resolution_cycles_per_aperture: float  # half-width of the sideband window (NaN: none)
     mean_modulation: float  # mean fringe visibility over the aperture, 0..1 (NaN: unknown)
     masked_fraction: float  # share of the disk not measured: specks, exclusions, low
     # contrast, and the outermost rim where the fit stands in for the phase
@@ -281,7 +281,7 @@ def _resolution_px(resolution_cycles_per_aperture: float, xu: np.ndarray) -> flo
     cycles per aperture diameter over 0.7 of its radius has a kernel about
     ``0.35 / f`` diameters wide.
     """
-    if not resolution_cycles_per_aperture or resolution_cycles_per_aperture <= 0:
+    if not resolution_cycles_per_aperture > 0:  # 0 or NaN: no demodulation window
         return None
     step = float(np.max(np.abs(np.diff(xu, axis=1)))) if xu.shape[1] > 1 else 0.0
     if step <= 0:
@@ -382,7 +382,7 @@ def measurement_from_height(
         carrier_fringes=float(qf.get("carrier_fringes", np.nan)),
         carrier_angle_deg=float(qf.get("carrier_angle_deg", np.nan)),
         fringe_period_px=float(qf.get("fringe_period_px", np.nan)),
-        resolution_cycles_per_aperture=float(qf.get("resolution_cycles_per_aperture", 0.0)),
+        resolution_cycles_per_aperture=float(qf.get("resolution_cycles_per_aperture", np.nan)),
         mean_modulation=mean_modulation,
         masked_fraction=float(1.0 - n_valid / n_disk) if n_disk else 1.0,
         binning=int(qf.get("binning", 1)),

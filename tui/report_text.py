@@ -327,9 +327,10 @@ class Reporter:
         c.print()
         c.print(zernike_table(r))
         q = r["quality"]
-        c.print(f"fringes: {fringes_text(q)}; resolution "
-                f"{_fmt(q['resolution_cycles_per_aperture'])} cycles/aperture; masked "
-                f"{_fmt(100 * q['masked_fraction'])} %")
+        window = q.get("resolution_cycles_per_aperture")
+        c.print(f"fringes: {fringes_text(q)}; "
+                + (f"resolution {_fmt(window)} cycles/aperture; " if window is not None else "")
+                + f"masked {_fmt(100 * q['masked_fraction'])} %")
         self._verdict(r)
         for w in r.get("warnings", []):
             c.print(warning_text(w))

@@ -184,5 +184,6 @@ def test_an_average_has_no_carrier_of_its_own_and_keeps_each_photos():
     assert [p.carrier_fringes for p in q.per_photo] == [14.0, 18.0]
     rec = measurement_to_record(average_measurements(ms).measurement)["quality"]
     assert rec["carrier_fringes"] is None and rec["mean_modulation"] is None
+    assert rec["resolution_cycles_per_aperture"] is None  # no window of its own, not 0
     assert [p["carrier_fringes"] for p in rec["per_photo"]] == [14.0, 18.0]
     assert [p["mean_modulation"] for p in rec["per_photo"]] == [0.5, 0.6]
