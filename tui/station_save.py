@@ -87,9 +87,11 @@ def save_result(
     written.append(paths["json"])
     backend.save_height_map(m, paths["map"])
     written.append(paths["map"])
-    atomic_write_text(
-        paths["summary"],
-        summary_text(m, figures=figures, removed_terms=removed_terms) + inspection_text(record),
-    )
+    summary = summary_text(m, figures=figures, removed_terms=removed_terms)
+    judged = inspection_text(record)
+    if judged:  # the verdict right under the photo's header, before the figures
+        head, _, rest = summary.partition("\n\n")
+        summary = f"{head}\n{judged}\n{rest}"
+    atomic_write_text(paths["summary"], summary)
     written.append(paths["summary"])
     return written

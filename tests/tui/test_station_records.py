@@ -436,6 +436,7 @@ async def test_save_writes_the_document_measure_json_gives_for_the_same_photo(
                   "tolerance      pv<=500nm, rms<=5nm (simple decision rule): FAIL"):
         assert words in summary, words
     assert "RMS: FAIL" in summary
+    assert summary.index("Inspection") < summary.index("Figures")  # the verdict up top
 
 
 @sync
