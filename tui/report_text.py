@@ -59,18 +59,21 @@ def _fmt(value, digits: int = 1) -> str:
     return format_number(value, digits, missing="-")
 
 
-def fringes_text(q: dict) -> str:
-    """The record's carrier and visibility in words; an average's as the range over its photos."""
+def fringes_text(q: dict) -> tuple[str, str]:
+    """The record's carrier and its visibility in words; an average's as the range over its
+    photos (it has no carrier of its own), a map without a carrier says so."""
     per_photo = q.get("per_photo") or ()
     if per_photo:
         lines = carrier_lines(None, None, None, [
             (p.get("carrier_fringes"), p.get("fringe_period_px"), p.get("mean_modulation"))
             for p in per_photo])
-        return f"{lines[0].rstrip(':')} carrier: " + ", ".join(lines[1:])
+        visibility = lines[-1].removeprefix("visibility ")
+        return f"{lines[0].rstrip(':')} carrier: " + ", ".join(lines[1:-1]), visibility
+    visibility = _fmt(q.get("mean_modulation"), 2)
     if q.get("carrier_fringes") is None:
-        return f"no tilt carrier; visibility {_fmt(q.get('mean_modulation'), 2)}"
+        return "no tilt carrier", visibility
     return (f"{_fmt(q['carrier_fringes'])} across at {_fmt(q['carrier_angle_deg'], 0)}°, "
-            f"{_fmt(q['fringe_period_px'])} px each; visibility {_fmt(q['mean_modulation'], 2)}")
+            f"{_fmt(q['fringe_period_px'])} px each"), visibility
 
 
 def _u(record: dict, key: str) -> float | None:
@@ -327,10 +330,11 @@ class Reporter:
         c.print()
         c.print(zernike_table(r))
         q = r["quality"]
+        carrier, visibility = fringes_text(q)
         window = q.get("resolution_cycles_per_aperture")
-        c.print(f"fringes: {fringes_text(q)}; "
+        c.print(f"fringes: {carrier}; "
                 + (f"resolution {_fmt(window)} cycles/aperture; " if window is not None else "")
-                + f"masked {_fmt(100 * q['masked_fraction'])} %")
+                + f"visibility {visibility}; masked {_fmt(100 * q['masked_fraction'])} %")
         self._verdict(r)
         for w in r.get("warnings", []):
             c.print(warning_text(w))

@@ -548,4 +548,5 @@ def test_an_average_shows_its_photos_carriers_not_a_made_up_one(mode, measured, 
         return
     assert "0.0 across" not in out and "visibility 1.00" not in out
     assert "resolution 0.0" not in out  # an average has no demodulation window of its own
-    assert "2 photos, each its own carrier: tilt fringes 14.0–18.0, period 32.0–41.1 px" in out
+    assert ("2 photos, each its own carrier: tilt fringes 14.0–18.0, period 32.0–41.1 px; "
+            "visibility 0.55; masked") in out
