@@ -304,6 +304,8 @@ def average_measurements(
         geometry=grid_geometry(first, size),
         settings=settings,
         photo=f"average of {len(ms)}: " + ", ".join(names),
+        # each photo had its own carrier and visibility; the average has none of its own
+        quality_fields={"per_photo": tuple(m.quality for m in ms)},
         warnings=warnings,
     )
     fig_spread = {}

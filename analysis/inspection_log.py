@@ -438,8 +438,14 @@ def query(
     since: str | None = None,
     verdict: str | None = None,
     limit: int | None = None,
+    superseded: bool = False,
 ) -> list[dict]:
     """Logged records, newest first, each the stored record plus the log's own fields.
+
+    A record whose ``supersedes`` names another (the station measured the same photo again
+    in one session: the aperture moved, a setting changed) replaces it: the replaced
+    record stays in the log, but is left out here unless ``superseded`` is true, so each
+    photo of a session counts once in a history, a trend and a pass rate.
 
     Parameters
     ----------
@@ -453,6 +459,9 @@ def query(
         Only records with this verdict (records without a tolerance have none).
     limit : int, optional
         At most this many.
+    superseded : bool
+        Also the records a later one replaced; each of those carries ``superseded_by``,
+        the id of the record that replaced it.
 
     Returns
     -------
@@ -472,6 +481,8 @@ def query(
     if verdict is not None:
         where.append("verdict = ?")
         params.append(verdict)
+    if not superseded:
+        where.append(f"record_id NOT IN (SELECT old FROM ({_REPLACED}))")
     sql = "SELECT * FROM {table}"
     if where:
         sql += " WHERE " + " AND ".join(where)
@@ -479,13 +490,29 @@ def query(
     if limit is not None:
         sql += " LIMIT ?"
         params.append(int(limit))
-    rows = _read(Path(log_path),
-                 lambda con, table: con.execute(sql.format(table=table), params).fetchall())
-    return [_row_to_dict(r) for r in rows]
+    # an empty database reads as no rows at all (_read)
+    rows, replaced = _read(Path(log_path), lambda con, table: (
+        con.execute(sql.format(table=table), params).fetchall(),
+        dict(con.execute(_REPLACED).fetchall()) if superseded else {})) or ([], {})
+    return [_with_replacement(_row_to_dict(r), replaced) for r in rows]
+
+
+# which record replaced which: (old id, the newest id that names it in ``supersedes``)
+_REPLACED = ("SELECT CAST(json_extract(record_json, '$.supersedes') AS INTEGER) AS old, "
+             "MAX(record_id) AS new FROM inspections "
+             "WHERE json_extract(record_json, '$.supersedes') IS NOT NULL GROUP BY old")
+
+
+def _with_replacement(row: dict, replaced: dict) -> dict:
+    if row["record_id"] in replaced:
+        row["superseded_by"] = replaced[row["record_id"]]
+    return row
 
 
 def get(log_path: str | Path, record_id: int) -> dict:
     """One logged record by id, shaped like :func:`query`'s entries.
+
+    A record a later one replaced is found too, with ``superseded_by`` saying which.
 
     Raises
     ------
@@ -495,10 +522,11 @@ def get(log_path: str | Path, record_id: int) -> dict:
     if not 0 <= record_id < 2**63:
         raise SettingsError(f"no record {record_id}: record ids are whole numbers from 1; "
                             "see 'flatsight history' for the ids")
-    rows = _read(Path(log_path), lambda con, table: con.execute(
-        f"SELECT * FROM {table} WHERE record_id = ?", (int(record_id),)).fetchall())
+    rows, replaced = _read(Path(log_path), lambda con, table: (
+        con.execute(f"SELECT * FROM {table} WHERE record_id = ?", (int(record_id),)).fetchall(),
+        dict(con.execute(_REPLACED).fetchall()))) or ([], {})
     row = rows[0] if rows else None
     if row is None:
         raise SettingsError(
             f"no record {record_id} in {log_path}: see 'flatsight history' for the ids")
-    return _row_to_dict(row)
+    return _with_replacement(_row_to_dict(row), replaced)

@@ -74,15 +74,18 @@ class MeasureSettings:
 class Quality:
     """How good the fringes were, for the operator and the record."""
 
+    # the tilt carrier: NaN where the map has none of its own (phase-shifted frames, an
+    # average of photos, each with its own carrier: see ``per_photo``)
     carrier_fringes: float  # tilt fringes across the aperture diameter
     carrier_angle_deg: float  # direction of the carrier (fringe normal), photo x axis, y down
     fringe_period_px: float
-    resolution_cycles_per_aperture: float  # half-width of the flat-topped sideband window
-    mean_modulation: float  # mean fringe visibility over the aperture, 0..1
+    resolution_cycles_per_aperture: float  # half-width of the sideband window (NaN: none)
+    mean_modulation: float  # mean fringe visibility over the aperture, 0..1 (NaN: unknown)
     masked_fraction: float  # share of the disk not measured: specks, exclusions, low
     # contrast, and the outermost rim where the fit stands in for the phase
     binning: int  # photo pixels binned into one before the Fourier transform
     photos: int = 1  # photos averaged into the map
+    per_photo: tuple[Quality, ...] = ()  # an average: each photo's own quality, in order
 
 
 @dataclass(frozen=True)
@@ -279,7 +282,7 @@ def _resolution_px(resolution_cycles_per_aperture: float, xu: np.ndarray) -> flo
     cycles per aperture diameter over 0.7 of its radius has a kernel about
     ``0.35 / f`` diameters wide.
     """
-    if not resolution_cycles_per_aperture or resolution_cycles_per_aperture <= 0:
+    if not resolution_cycles_per_aperture > 0:  # 0 or NaN: no demodulation window
         return None
     step = float(np.max(np.abs(np.diff(xu, axis=1)))) if xu.shape[1] > 1 else 0.0
     if step <= 0:
@@ -374,18 +377,25 @@ def measurement_from_height(
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
+    # a map with no carrier or visibility of its own says so (NaN), never a made-up 0 or 1
     if modulation is None:
-        modulation = np.where(disk, 1.0, np.nan)
+        modulation = np.full(np.shape(height_nm), np.nan)
+        mean_modulation = float(qf.get("mean_modulation", np.nan))
+    else:
+        seen = np.asarray(modulation, dtype=float)[valid]
+        seen = seen[np.isfinite(seen)]
+        mean_modulation = float(seen.mean()) if seen.size else float("nan")
     n_disk = int(disk.sum())
     quality = Quality(
-        carrier_fringes=float(qf.get("carrier_fringes", 0.0)),
-        carrier_angle_deg=float(qf.get("carrier_angle_deg", 0.0)),
-        fringe_period_px=float(qf.get("fringe_period_px", 0.0)),
-        resolution_cycles_per_aperture=float(qf.get("resolution_cycles_per_aperture", 0.0)),
-        mean_modulation=float(np.nanmean(np.where(valid, modulation, np.nan))),
+        carrier_fringes=float(qf.get("carrier_fringes", np.nan)),
+        carrier_angle_deg=float(qf.get("carrier_angle_deg", np.nan)),
+        fringe_period_px=float(qf.get("fringe_period_px", np.nan)),
+        resolution_cycles_per_aperture=float(qf.get("resolution_cycles_per_aperture", np.nan)),
+        mean_modulation=mean_modulation,
         masked_fraction=float(1.0 - n_valid / n_disk) if n_disk else 1.0,
         binning=int(qf.get("binning", 1)),
         photos=int(qf.get("photos", 1)),
+        per_photo=tuple(qf.get("per_photo", ())),
     )
     warnings = tuple(warnings)
     # the outermost rim, where a soft edge dims the fringes, is left to the fit by

@@ -130,6 +130,13 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
         "binning": q.binning,
         "map_pixels_across": int(round(2 * m.aperture.radius_px / m.geometry.step_px)),
     }
+    if q.per_photo:  # an average: no carrier of its own (null above), each photo's here
+        rec["quality"]["per_photo"] = [
+            {"carrier_fringes": _num(p.carrier_fringes, 2),
+             "carrier_angle_deg": _num(p.carrier_angle_deg, 2),
+             "fringe_period_px": _num(p.fringe_period_px, 2),
+             "mean_modulation": _num(p.mean_modulation, 4)}
+            for p in q.per_photo]
     rec["settings"] = {
         "wavelength_nm": lam,
         "n_terms": m.settings.n_terms,

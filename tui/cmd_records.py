@@ -29,7 +29,7 @@ TREND_FIGURES = ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm", "as
 CSV_FIELDS = ("record_id", "logged_utc", "part", "operator", "station", "photo",
               "photo_sha256", "wavelength_nm", *TREND_FIGURES, "radius_of_curvature_m",
               "tolerance", "verdict", "source", "photos", "reference_map",
-              "reference_sha256")
+              "reference_sha256", "supersedes", "superseded_by")
 # how history marks a record made of several photos, or with a reference map taken off
 SOURCE_NOTE = ("avg N: the average of N photos of the part (the first one named); seq N: "
                "a phase-shifted sequence of N frames; ref: a reference map subtracted")
@@ -51,7 +51,8 @@ def add_parser(subparsers) -> None:
         "history", help="list logged inspections, newest first",
         description="List logged inspections, newest first. --json gives JSON Lines with "
                     "the fields of 'measure --json' plus record_id, logged_utc, part, "
-                    "operator, station and verdict.")
+                    "operator, station and verdict. A photo the station measured again in "
+                    "one session counts once: its newest record (see --superseded).")
     _log_option(h)
     h.add_argument("--part", metavar="ID", help="only this part")
     h.add_argument("--since", metavar="DATE", help="only from this date (ISO 8601, UTC)")
@@ -59,6 +60,10 @@ def add_parser(subparsers) -> None:
                    help="only this verdict")
     h.add_argument("--limit", metavar="N", type=count_type, default=None,
                    help="at most N records")
+    h.add_argument("--superseded", action="store_true",
+                   help="also list the records a later one replaced (the station measured "
+                        "the same photo again in one session), marked '→ID' with the id "
+                        "that replaced them")
     fmt = h.add_mutually_exclusive_group()
     fmt.add_argument("--json", action="store_true", help="JSON Lines, one record a line")
     fmt.add_argument("--csv", action="store_true", help="CSV with one row a record")
@@ -161,7 +166,7 @@ def run_history(args: argparse.Namespace) -> int:
 
     try:
         rows = query(_log_path(args), part=args.part, since=args.since, verdict=args.verdict,
-                     limit=args.limit)
+                     limit=args.limit, superseded=args.superseded)
     except FlatsightError as exc:
         return _fail("history", exc)
     out = sys.stdout
@@ -212,6 +217,8 @@ def run_history(args: argparse.Namespace) -> int:
         cells += [_cell(rec.get("pv_nm"))] if wide else []
         cells += [_cell(rec.get("pvr_nm")), _cell(rec.get("power_nm")),
                   _cell(rec.get("irregularity_nm")), literal(verdict or "—", style)]
+        if rec.get("superseded_by") is not None:
+            cells[-1] = literal(f"{verdict or '—'} →{rec['superseded_by']}", "dim")
         body.append(cells)
     # names fold when the terminal (or a pipe's 80 columns) is narrow; the id, time,
     # figures and verdict never break, so no number is read split in two
@@ -227,6 +234,9 @@ def run_history(args: argparse.Namespace) -> int:
     console.print(table)
     if any(_source_cell(rec) != Path(_source(rec)[2]).name for rec in rows):
         console.print(SOURCE_NOTE, style="dim")
+    if any(rec.get("superseded_by") is not None for rec in rows):
+        console.print("→N: replaced by record N (the same photo measured again in one "
+                      "station session)", style="dim")
     left_out = ["PV"] * (not wide) + ["operator", "station"] * (not people)
     if left_out:
         console.print(f"left out at this width: {', '.join(left_out)} (--json, --csv have "
@@ -419,4 +429,7 @@ def run_report(args: argparse.Namespace) -> int:
     print(shown(f"wrote {out} from record {args.record_id} of {which}: part "
                 f"{rec.get('part') or '(none)'}, photo {photo}, logged {when or '?'} UTC, "
                 f"{verdict}"))
+    if rec.get("superseded_by") is not None:
+        print(f"note: record {args.record_id} was replaced by record {rec['superseded_by']} "
+              "(the same photo measured again in one station session)")
     return 0

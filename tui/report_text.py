@@ -17,10 +17,11 @@ from rich.padding import Padding
 from rich.table import Table
 from rich.text import Text
 
+from .render.summary import carrier_lines
 from .safe_text import csv_row, literal, shown
 
-__all__ = ["Reporter", "cell_width", "figures_table", "limit_finding", "limit_lines",
-           "limits_table", "verdict_text", "warning_text", "zernike_table"]
+__all__ = ["Reporter", "cell_width", "figures_table", "inspection_text", "limit_finding",
+           "limit_lines", "limits_table", "verdict_text", "warning_text", "zernike_table"]
 
 # (label, record key stem, show in fringes)
 FIGURE_ROWS = [
@@ -57,6 +58,23 @@ def warning_text(warning: str, where: str = "") -> Text:
 
 def _fmt(value, digits: int = 1) -> str:
     return format_number(value, digits, missing="-")
+
+
+def fringes_text(q: dict) -> tuple[str, str]:
+    """The record's carrier and its visibility in words; an average's as the range over its
+    photos (it has no carrier of its own), a map without a carrier says so."""
+    per_photo = q.get("per_photo") or ()
+    if per_photo:
+        lines = carrier_lines(None, None, None, [
+            (p.get("carrier_fringes"), p.get("fringe_period_px"), p.get("mean_modulation"))
+            for p in per_photo])
+        visibility = lines[-1].removeprefix("visibility ")
+        return f"{lines[0].rstrip(':')} carrier: " + ", ".join(lines[1:-1]), visibility
+    visibility = _fmt(q.get("mean_modulation"), 2)
+    if q.get("carrier_fringes") is None:
+        return "no tilt carrier", visibility
+    return (f"{_fmt(q['carrier_fringes'])} across at {_fmt(q['carrier_angle_deg'], 0)}°, "
+            f"{_fmt(q['fringe_period_px'])} px each"), visibility
 
 
 def _u(record: dict, key: str) -> float | None:
@@ -200,13 +218,52 @@ def limit_finding(lim: dict) -> Text:
                                + (f" ({', '.join(notes)})" if notes else ""))
 
 
+def limit_as_written(lim: dict) -> str:
+    """`` (2 fr at 546.07 nm)``: a limit in the unit the tolerance gave it, with the
+    wavelength its fringes or waves are counted at; empty for a limit written in nm."""
+    unit, wavelength = lim.get("unit"), lim.get("unit_wavelength_nm")
+    if unit in (None, "nm", "um") or wavelength is None or lim.get("limit") is None:
+        return ""
+    shown_unit = {"fr": "fr", "w": "λ"}.get(unit, shown(unit))
+    return f" ({format_number(lim['limit'], 3).rstrip('0').rstrip('.')} {shown_unit} at " \
+           f"{format_number(wavelength, 2).rstrip('0').rstrip('.')} nm)"
+
+
 def limit_lines(spec: dict) -> list[Text]:
-    """The same as :func:`limits_table`, one line a limit that wraps rather than cuts."""
+    """The same as :func:`limits_table`, one line a limit that wraps rather than cuts.
+
+    Each limit written in fringes or waves says at which wavelength they are counted, as
+    a drawing's fringes (546.07 nm unless stated) need not be the test's.
+    """
     lines = []
     for lim in spec.get("limits", []):
         title, measured, limit, margin, verdict = _limit_cells(lim)
-        lines.append(Text.assemble(title, ": ", verdict, f"  {measured} {limit}, margin {margin}"))
+        lines.append(Text.assemble(title, ": ", verdict, f"  {measured} {limit}"
+                                   f"{limit_as_written(lim)}, margin {margin}"))
     return lines
+
+
+def inspection_text(record: dict) -> str:
+    """The record's part, people, log entry and verdict as plain text, for a summary file.
+
+    Empty when the record carries none of them (a measurement not judged or logged).
+    """
+    rows = [(label, record.get(key)) for label, key in (
+        ("part", "part"), ("operator", "operator"), ("station", "station"),
+        ("logged (UTC)", "logged_utc"), ("record", "record_id"))]
+    spec = record.get("spec") or {}
+    if not spec and all(value is None for _, value in rows):
+        return ""
+    out = ["", "Inspection"]
+    out += [f"  {label:<14} {shown(value)}" for label, value in rows if value is not None]
+    if spec:
+        rule = spec.get("decision_rule") or "simple"
+        out.append(f"  tolerance      {shown(spec.get('tolerance') or '')} ({rule} decision "
+                   f"rule): {verdict_text(spec.get('verdict'), upper=True).plain}")
+        out += [f"    {line.plain}" for line in limit_lines(spec)]
+        if spec.get("decision_rule_text"):
+            out.append(f"  {shown(spec['decision_rule_text'])}")
+    return "\n".join(out) + "\n"
 
 
 def zernike_table(record: dict, *, first: int = 4, last: int = 15) -> Table:
@@ -328,11 +385,11 @@ class Reporter:
         c.print()
         c.print(zernike_table(r))
         q = r["quality"]
-        c.print(f"fringes: {_fmt(q['carrier_fringes'])} across at "
-                f"{_fmt(q['carrier_angle_deg'], 0)}°, {_fmt(q['fringe_period_px'])} px each; "
-                f"resolution {_fmt(q['resolution_cycles_per_aperture'])} cycles/aperture; "
-                f"visibility {_fmt(q['mean_modulation'], 2)}; masked "
-                f"{_fmt(100 * q['masked_fraction'])} %")
+        carrier, visibility = fringes_text(q)
+        window = q.get("resolution_cycles_per_aperture")
+        c.print(f"fringes: {carrier}; "
+                + (f"resolution {_fmt(window)} cycles/aperture; " if window is not None else "")
+                + f"visibility {visibility}; masked {_fmt(100 * q['masked_fraction'])} %")
         self._verdict(r)
         for w in r.get("warnings", []):
             c.print(warning_text(w))

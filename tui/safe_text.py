@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import re
 
-__all__ = ["FORMULA_STARTS", "csv_cell", "csv_row", "literal", "shown"]
+__all__ = ["FORMULA_STARTS", "csv_cell", "csv_row", "literal", "shown", "shown_cut"]
 
 # ECMA-48 C0 controls, DEL and the C1 controls; UAX #9 explicit directional embeddings,
 # overrides and isolates (U+202A-U+202E, U+2066-U+2069) and the implicit marks (ALM, LRM,
@@ -60,6 +60,35 @@ def shown(value: object) -> str:
     """
     text = value if isinstance(value, str) else str(value)
     return _CONTROLS.sub(_escape, text)
+
+
+def shown_cut(value: object, room: int, *, keep_end: int = 0) -> str:
+    """:func:`shown` cut to ``room`` characters with ``…``, never inside an escape.
+
+    Each character of ``value`` is escaped on its own (``\u202e`` is six characters that
+    stay together or go together), then the text keeps as many escaped characters from
+    the start as fit and, when ``keep_end`` is given, up to that many of the last ones
+    after the ``…``: the end of a file name is what tells photos of one part apart.
+    """
+    text = value if isinstance(value, str) else str(value)
+    atoms = [shown(ch) for ch in text]
+    if sum(map(len, atoms)) <= room:
+        return "".join(atoms)
+    budget = max(0, room - 1)
+    tail: list[str] = []
+    used = 0
+    for atom in reversed(atoms[1:]):
+        if used + len(atom) > min(keep_end, budget):
+            break
+        tail.insert(0, atom)
+        used += len(atom)
+    head: list[str] = []
+    for atom in atoms[: len(atoms) - len(tail)]:
+        if used + len(atom) > budget:
+            break
+        head.append(atom)
+        used += len(atom)
+    return "".join(head) + "…" + "".join(tail)
 
 
 def literal(value: object, style: str = ""):

@@ -2,14 +2,16 @@
 
 from __future__ import annotations
 
+import argparse
 import json
 import math
 from pathlib import Path
 
 from ..analysis.atomic import atomic_write_text
 from .render.summary import summary_text
+from .report_text import inspection_text
 
-__all__ = ["output_paths", "save_result"]
+__all__ = ["output_paths", "save_result", "saved_record"]
 
 
 def output_paths(photo: str | Path, folder: str | Path | None = None) -> dict[str, Path]:
@@ -22,6 +24,26 @@ def output_paths(photo: str | Path, folder: str | Path | None = None) -> dict[st
         "map": base / f"{stem}.height.npy",
         "summary": base / f"{stem}.summary.txt",
     }
+
+
+def saved_record(entry, backend, options) -> dict | None:
+    """The document ``s`` saves for a queue entry: what ``measure --json`` prints for it.
+
+    The record the station judged and logged (tolerance, verdict, part, operator, station,
+    record id), or, while that is still being written, the same record judged now and
+    not logged (the log gets it from the recorder, once). None when this build cannot
+    make records.
+    """
+    from .station_combine import combined_record
+    from .station_log import record_result
+
+    if entry.record is not None:
+        return entry.record
+    record = combined_record(entry, backend)
+    if record is None:
+        return None
+    unlogged = argparse.Namespace(**{**vars(options), "no_log": True})
+    return record_result(unlogged, record).record
 
 
 def _clean(value):
@@ -65,8 +87,11 @@ def save_result(
     written.append(paths["json"])
     backend.save_height_map(m, paths["map"])
     written.append(paths["map"])
-    atomic_write_text(
-        paths["summary"], summary_text(m, figures=figures, removed_terms=removed_terms)
-    )
+    summary = summary_text(m, figures=figures, removed_terms=removed_terms)
+    judged = inspection_text(record)
+    if judged:  # the verdict right under the photo's header, before the figures
+        head, _, rest = summary.partition("\n\n")
+        summary = f"{head}\n{judged}\n{rest}"
+    atomic_write_text(paths["summary"], summary)
     written.append(paths["summary"])
     return written

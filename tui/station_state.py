@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..analysis.aperture import Aperture, Exclusion
-from .safe_text import shown
+from .safe_text import shown, shown_cut
 
 __all__ = ["QueueEntry", "STATE_LABELS", "ViewContext"]
 
@@ -45,9 +45,15 @@ class QueueEntry:
     # inspection record: this session's verdict, the log's last one for the part, the id
     verdict: str | None = None
     spec: dict | None = None  # the record's judged tolerance: rule, limits, margins, U
+    # the judged (and logged) record: the `measure --json` document that `s` saves
+    record: dict | None = None
     last_verdict: str | None = None
     record_id: int | None = None
     log_error: str | None = None
+    # the newest record this session logged for this entry, kept when the result is
+    # forgotten: the entry's next record supersedes it (one record per photo counts)
+    logged_id: int | None = None
+    replaced_id: int | None = None  # the record this entry's current one superseded
     marked: bool = False
     # a measurement made of several photos: "average" or "sequence", and its photos
     kind: str = "photo"
@@ -62,6 +68,24 @@ class QueueEntry:
         if self.kind == "sequence":
             return f"seq×{len(self.sources)} {shown(self.path.name)}"
         return shown(self.path.name)
+
+    def name_in(self, room: int, *, others: tuple[str, ...] = ()) -> str:
+        """:attr:`name` cut to ``room`` characters so it stays told apart from ``others``.
+
+        ``others`` are the other photos' file names. When they share a long start with
+        this one (``BW-FL-0999_f01.png`` ... ``_f05.png``), the cut goes in the middle
+        and keeps the end where they differ; otherwise the end is cut. A control
+        character's escape is never split.
+        """
+        kind = {"average": "avg", "sequence": "seq"}.get(self.kind)
+        prefix = f"{kind}×{len(self.sources)} " if kind else ""
+        raw = self.path.name
+        room = max(1, room - len(prefix))
+        shared = max((_common_start(raw, o) for o in others if o != raw), default=0)
+        keep_end = 0
+        if shared >= room // 2:  # the start does not tell them apart: keep the end
+            keep_end = min(room - 4, max(room // 2, len(raw) - shared))
+        return prefix + shown_cut(raw, room, keep_end=keep_end)
 
     @property
     def shown_verdict(self) -> tuple[str | None, bool]:
@@ -91,9 +115,20 @@ class QueueEntry:
         self.measurement = None
         self.error = None
         self.state = "new"
-        self.verdict = self.record_id = self.log_error = None
+        self.verdict = self.record_id = self.log_error = self.replaced_id = None
         self.spec = None
+        self.record = None
         self.combined = None
+
+
+def _common_start(a: str, b: str) -> int:
+    """How many characters ``a`` and ``b`` share from their start."""
+    n = 0
+    for x, y in zip(a, b, strict=False):
+        if x != y:
+            break
+        n += 1
+    return n
 
 
 @dataclass(frozen=True)

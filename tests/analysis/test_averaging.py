@@ -163,3 +163,27 @@ def test_sign_check_warns_when_there_is_nothing_to_compare():
 def test_one_photo_is_not_an_average():
     with pytest.raises(SettingsError, match="at least two photos"):
         average_measurements([on_grid(41, noise_nm=0.0, seed=0, name="a.png")])
+
+
+def test_an_average_has_no_carrier_of_its_own_and_keeps_each_photos():
+    # issue 9 item 4: an average showed "0.0 tilt fringes, period 0.0 px, visibility 1.00"
+    import dataclasses
+    import math
+
+    from flatsight.analysis.record import measurement_to_record
+
+    ms = []
+    for k, fringes in enumerate((14.0, 18.0)):
+        m = on_grid(41, noise_nm=1.0, seed=k, name=f"p{k}.png")
+        q = dataclasses.replace(m.quality, carrier_fringes=fringes, carrier_angle_deg=90.0,
+                                fringe_period_px=600.0 / fringes, mean_modulation=0.5 + 0.1 * k)
+        ms.append(dataclasses.replace(m, quality=q))
+    q = average_measurements(ms).measurement.quality
+    assert math.isnan(q.carrier_fringes) and math.isnan(q.fringe_period_px)
+    assert math.isnan(q.mean_modulation)  # no visibility map of its own: not a made-up 1.0
+    assert [p.carrier_fringes for p in q.per_photo] == [14.0, 18.0]
+    rec = measurement_to_record(average_measurements(ms).measurement)["quality"]
+    assert rec["carrier_fringes"] is None and rec["mean_modulation"] is None
+    assert rec["resolution_cycles_per_aperture"] is None  # no window of its own, not 0
+    assert [p["carrier_fringes"] for p in rec["per_photo"]] == [14.0, 18.0]
+    assert [p["mean_modulation"] for p in rec["per_photo"]] == [0.5, 0.6]

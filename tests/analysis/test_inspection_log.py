@@ -323,3 +323,19 @@ def test_a_reader_without_write_access_reads_the_log(shared_folder, run_as_reade
     assert done.returncode == 0, done.stderr
     assert json.loads(done.stdout) == [["BW-FL-0413", "pass"], ["BW-FL-0412", "fail"]]
     assert files_and_bytes(shared_folder) == before
+
+
+def test_a_record_that_supersedes_another_hides_it_but_never_loses_it(tmp_path):
+    # the station's rule (README, "The inspection station"): one photo measured again in a
+    # session counts once; the replaced record stays in the log and is found by its id
+    path = tmp_path / "log.sqlite"
+    first = log.record_measurement(path, {"pv_nm": 90.0}, part="BW-FL-0412")
+    second = log.record_measurement(path, {"pv_nm": 80.0, "supersedes": first}, part="BW-FL-0412")
+    other = log.record_measurement(path, {"pv_nm": 70.0}, part="BW-FL-0413")
+    assert [r["record_id"] for r in log.query(path)] == [other, second]
+    assert [r["record_id"] for r in log.query(path, part="BW-FL-0412")] == [second]
+    every = log.query(path, superseded=True)
+    assert [(r["record_id"], r.get("superseded_by")) for r in every] == [
+        (other, None), (second, None), (first, second)]
+    assert log.get(path, first)["superseded_by"] == second and log.get(path, first)["pv_nm"] == 90.0
+    assert "superseded_by" not in log.get(path, second)

@@ -308,8 +308,12 @@ async def test_save_writes_the_record_the_map_and_a_summary(tmp_path):
         await pilot.press("3", "p", "s")
         await settle(pilot)
         record = json.loads((out / "BW-FL-0412.flatsight.json").read_text(encoding="utf-8"))
-        # the same document as `flatsight measure --json` (the library's record)
-        assert record == json.loads(json.dumps(measurement_to_record(m)))
+        # the library's record, with the part and people `flatsight measure --json` adds
+        # (tests/tui/test_station_records.py compares the two documents key by key)
+        judged = ("part", "operator", "station", "logged_utc")
+        assert {k: v for k, v in record.items() if k not in judged} == json.loads(
+            json.dumps(measurement_to_record(m)))
+        assert record["part"] == "BW-FL-0412"
         saved = np.load(out / "BW-FL-0412.height.npy")
         np.testing.assert_allclose(saved, m.height_nm, rtol=1e-6, equal_nan=True)
         summary = (out / "BW-FL-0412.summary.txt").read_text(encoding="utf-8")
@@ -569,3 +573,132 @@ async def test_no_key_of_the_footer_shows_past_the_palette_hint(tmp_path, size):
                 await settle(pilot)
             widget, _ = app.screen.get_widget_at(size[0] - 1, size[1] - 1)
             assert widget.has_class("-command-palette"), (view, widget)
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)])
+@sync
+async def test_the_note_of_terms_taken_out_wraps_in_the_legend_not_onto_the_map(tmp_path,
+                                                                               size):
+    # issue 9, layout: after `p a c t` the "without …" note wrapped onto the map, shifting
+    # it a row, and the rest of the note was cut
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    async with app.run_test(size=size) as pilot:
+        await settle(pilot)
+        view = app.screen.query_one("#surface-view")
+        await pilot.press("3")
+        await pilot.pause()
+        before = plain(view).splitlines()
+        await pilot.press("p", "a", "c", "t")
+        await settle(pilot)
+        after = plain(view).splitlines()
+        # as many lines as the view has rows, none wider than the view: nothing wraps
+        assert len(after) == len(before) == view.size.height
+        assert max(len(line) for line in after) <= view.size.width
+        # the whole note, over as many legend lines as it takes
+        legend = " ".join(line.split("  ")[-1].strip() for line in after)
+        assert "without power, astigmatism, coma, trefoil" in legend, legend
+
+
+@sync
+async def test_z_first_zooms_to_the_aperture_as_it_says_and_again_shows_the_whole_photo(
+        tmp_path):
+    # issue 9: `z` zoomed out first, though it is described as zoom to the aperture
+    from flatsight.tui.widgets.fringe_view import FringeView
+
+    zoom = next(b for b in FringeView.BINDINGS if b.key == "z")
+    assert zoom.description == "Zoom to aperture"
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    async with app.run_test(size=(120, 40)) as pilot:
+        await settle(pilot)
+        await pilot.press("1")
+        await pilot.pause()
+        view = app.screen.query_one("#fringes-view")
+        plain(view)
+        whole = view._grid
+        assert (whole.origin_x_px, whole.origin_y_px) == (0.0, 0.0)  # the whole photo
+        assert "z: zoom to aperture" in plain(view)
+        await pilot.press("z")
+        await pilot.pause()
+        plain(view)
+        zoomed = view._grid
+        # the aperture (centre 80, 60, radius 48 px in the stand-in photo) and a margin
+        assert zoomed.origin_x_px > 0 and zoomed.step_px < whole.step_px
+        assert zoomed.origin_x_px <= FOUND_APERTURE.center_x_px - FOUND_APERTURE.radius_px
+        assert "z: whole photo" in plain(view)
+        await pilot.press("z")
+        await pilot.pause()
+        plain(view)
+        assert view._grid.origin_x_px == 0.0
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)])
+@sync
+async def test_the_help_screen_says_that_it_scrolls_and_where_it_is(tmp_path, size):
+    # issue 9: the help screen gave no sign that it scrolls
+    app, _ = make_app(tmp_path, names=PARTS[:1])
+    app.animation_level = "none"  # scrolling jumps: nothing here waits on an animation
+    async with app.run_test(size=size) as pilot:
+        await settle(pilot)
+        await pilot.press("question_mark")
+        await settle(pilot)
+        body = app.screen.query_one("#help-body")
+        assert body.max_scroll_y > 0  # the keys do not fit even at 120x40
+        assert app.focused is body
+        assert str(body.border_subtitle).startswith("↓ more below")
+        await pilot.press("pagedown")
+        await settle(pilot)
+        assert "more" in str(body.border_subtitle)
+        await pilot.press("end")
+        await settle(pilot)
+        assert body.scroll_y == body.max_scroll_y
+        assert str(body.border_subtitle).startswith("↑ more above")
+        assert "esc closes" in str(body.border_subtitle)
+
+
+@sync
+async def test_open_picker_goes_up_a_folder_and_takes_a_typed_path(tmp_path):
+    # issue 9: the open dialog could not go above its start folder
+    start = tmp_path / "bench-2" / "today"
+    start.mkdir(parents=True)
+    write_photos(start, ["BW-FL-0520.png"])
+    far = tmp_path / "far off"
+    far.mkdir()
+    wanted = write_photos(far, ["BW-FL-0601.png"])[0]
+    photos = write_photos(tmp_path, PARTS[:1])
+    backend, _ = fake_backend()
+    app = FlatsightStation(photos, settings=StationSettings(), backend=backend,
+                           start_folder=start)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("o")
+        await settle(pilot)
+        picker = app.screen
+        assert isinstance(picker, OpenScreen)
+        path_field = picker.query_one("#open-path")
+        await pilot.press("backspace")  # up to bench-2
+        await settle(pilot)
+        assert picker.folder == start.parent and path_field.value == str(start.parent)
+        await pilot.press("backspace")
+        await settle(pilot)
+        assert picker.folder == tmp_path
+        labels = [str(n.label) for n in picker.query_one("#open-tree").root.children]
+        assert "bench-2" in labels and "far off" in labels
+        # a path typed in (with / and f in it, which are keys of the picker elsewhere)
+        await pilot.press("slash")
+        assert app.focused is path_field
+        path_field.value = ""
+        await pilot.press(*str(tmp_path / "nowhere"), "enter")
+        await settle(pilot)
+        assert app.screen is picker  # a path that is not there: a message, the picker stays
+        assert any("no folder or photo at" in n.message for n in app._notifications)
+        path_field.value = ""
+        await pilot.press(*str(far), "enter")
+        await settle(pilot)
+        assert picker.folder == far and app.focused is picker.query_one("#open-tree")
+        await pilot.press("slash")
+        path_field.value = ""
+        await pilot.press(*str(wanted), "enter")
+        await settle(pilot)
+        bench = app.screen
+        assert isinstance(bench, BenchScreen)
+        assert [e.path for e in bench.entries] == [photos[0], wanted]

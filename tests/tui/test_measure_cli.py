@@ -555,3 +555,33 @@ def test_ctrl_c_in_the_table_view_shows_every_finished_result(photo_set, tmp_pat
     shown = [p.name for p in photos if p.name in out]
     records = [Path(r["photo"]).name for r in inspection_log.query(log)]
     assert records and sorted(records) == sorted(shown)  # every logged result was shown
+
+
+@pytest.mark.parametrize("mode", ["table", "--json"])
+def test_an_average_shows_its_photos_carriers_not_a_made_up_one(mode, measured, photo_set,
+                                                                 tmp_path, capsys, monkeypatch):
+    # issue 9 item 4: "0.0 tilt fringes, period 0.0 px, visibility 1.00" for an average
+    import dataclasses
+
+    import flatsight.analysis.pipeline as pipeline
+
+    def quick(photo, settings, **_):
+        fringes = 14.0 if "0412" in str(photo) else 18.0
+        q = dataclasses.replace(measured.quality, carrier_fringes=fringes,
+                                fringe_period_px=576.0 / fringes, mean_modulation=0.55)
+        return dataclasses.replace(measured, photo=str(photo), quality=q)
+
+    monkeypatch.setattr(pipeline, "measure", quick)
+    photos = three_photos(tmp_path, photo_set)[:2]
+    flags = [mode] if mode != "table" else []
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--average", "--no-log", *flags)
+    assert status == 0, err
+    if mode == "--json":
+        q = json_lines(out)[0]["quality"]
+        assert q["carrier_fringes"] is None and q["fringe_period_px"] is None
+        assert [p["carrier_fringes"] for p in q["per_photo"]] == [14.0, 18.0]
+        return
+    assert "0.0 across" not in out and "visibility 1.00" not in out
+    assert "resolution 0.0" not in out  # an average has no demodulation window of its own
+    assert ("2 photos, each its own carrier: tilt fringes 14.0–18.0, period 32.0–41.1 px; "
+            "visibility 0.55; masked") in out

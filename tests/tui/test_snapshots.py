@@ -113,3 +113,20 @@ def test_spread_of_three_averaged_photos(snap_compare, tmp_path):
                            backend=backend, config_path=None)
     keys = ["space", "right_square_bracket"] * 3 + ["g", "7"]
     assert snap_compare(app, terminal_size=(80, 24), run_before=_keys_then_settle(*keys))
+
+
+def test_surface_with_four_term_groups_out_at_80x24(snap_compare, tmp_path):
+    # issue 9, layout: the "without …" note wrapped onto the map and shifted it a row
+    assert snap_compare(_app(tmp_path), terminal_size=(80, 24),
+                        run_before=_keys_then_settle("3", "p", "a", "c", "t"))
+
+
+def test_queue_of_one_parts_photos_at_80x24(snap_compare, tmp_path):
+    # issue 9, layout: `BW-FL-041…` for hene and mercury; five frames all `BW-FL-0999_f…`
+    names = ["BW-FL-0412_hene.png", "BW-FL-0412_mercury.jpg",
+             *(f"BW-FL-0999_f0{k}.png" for k in range(1, 6))]
+    photos = write_photos(tmp_path, names)
+    backend, _ = fake_backend()
+    app = FlatsightStation(photos, settings=StationSettings(colour="truecolor"),
+                           backend=backend, config_path=None)
+    assert snap_compare(app, terminal_size=(80, 24), run_before=_keys_then_settle())

@@ -61,6 +61,16 @@ def make_app(tmp_path, names, lib):
         recorder=StationRecorder(tmp_path / "log.sqlite", {"spec": "pv<=500nm"}))
 
 
+async def average_the_queue(pilot, n: int) -> None:
+    """Mark the first ``n`` photos of the queue one by one, then average them (g)."""
+    await settle(pilot)
+    for _ in range(n):
+        await pilot.press("space", "right_square_bracket")
+        await settle(pilot)
+    await pilot.press("g")
+    await settle(pilot)
+
+
 @sync
 async def test_marked_photos_are_averaged_into_one_measurement_with_a_spread_map(tmp_path):
     lib = FakeLibrary(surface_for=shot_to_shot)
@@ -143,12 +153,7 @@ async def test_an_average_is_saved_beside_its_first_photo_under_its_own_name(tmp
     lib = FakeLibrary(surface_for=shot_to_shot)
     app = make_app(tmp_path, ["BW-FL-0412-0.png", "BW-FL-0412-1.png"], lib)
     async with app.run_test(size=(80, 24)) as pilot:
-        await settle(pilot)
-        for _ in range(2):
-            await pilot.press("space", "right_square_bracket")
-            await settle(pilot)
-        await pilot.press("g")
-        await settle(pilot)
+        await average_the_queue(pilot, 2)
         await pilot.press("s")
         await settle(pilot)
     saved = json.loads((tmp_path / "BW-FL-0412-0.avg2.flatsight.json").read_text())
@@ -196,3 +201,24 @@ async def test_an_average_measures_each_photo_at_its_own_benchs_wavelength(tmp_p
         assert app.screen.entries[-1].state == "ok"
         used = {name: s.wavelength_nm for name, s in lib.measured}
         assert used == {"BW-FL-0412_mercury.png": 546.07, "BW-FL-0412_hene.png": 632.8}
+
+
+@sync
+async def test_an_average_shows_its_photos_carriers_not_a_made_up_one(tmp_path):
+    # issue 9 item 4: "0.0 tilt fringes, period 0.0 px, visibility 1.00" for an average
+    lib = FakeLibrary(surface_for=shot_to_shot)
+    app = make_app(tmp_path, ["BW-FL-0412-0.png", "BW-FL-0412-1.png"], lib)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await average_the_queue(pilot, 2)
+        assert app.screen.entry.kind == "average"
+        await pilot.press("1")
+        await pilot.pause()
+        fringes = app.screen.query_one("#fringes-view").render().plain
+        # the stand-in photos each have 14 tilt fringes of 6.9 px (station_fakes)
+        assert "2 photos, each its own:" in fringes and "tilt fringes 14.0" in fringes
+        assert "period 6.9 px" in fringes
+        assert "0.0 tilt" not in fringes and "visibility 1.00" not in fringes
+        await pilot.press("2")
+        await pilot.pause()
+        spectrum = app.screen.query_one("#spectrum-view").render().plain
+        assert "each has its own spectrum" in spectrum and "0.0 fringes" not in spectrum

@@ -10,6 +10,7 @@ from __future__ import annotations
 import asyncio
 import functools
 import io
+import json
 import sqlite3
 
 import numpy as np
@@ -398,3 +399,122 @@ def test_read_log_finds_a_parts_last_verdict_beyond_the_rows_it_reads(tmp_path):
     assert verdicts == {"BW-TP-0031": "fail", "BW-FL-0412": "pass"}  # newest, not oldest
     assert read_log(None)[2].startswith("not logging")
     assert read_log(tmp_path / "none.sqlite")[2].startswith("no records yet")
+
+
+@sync
+async def test_save_writes_the_document_measure_json_gives_for_the_same_photo(
+        tmp_path, monkeypatch, capsys):
+    # issue 9 item 5: `s` wrote a record without spec, part, operator or station
+
+    import flatsight.analysis.pipeline as pipeline
+    from flatsight.tui.cli import main
+
+    app, lib = make_app(tmp_path, names=PARTS[:1], spec="pv<=500nm, rms<=5nm")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("s")
+        await settle(pilot)
+    saved = json.loads((tmp_path / "BW-FL-0412.flatsight.json").read_text(encoding="utf-8"))
+    summary = (tmp_path / "BW-FL-0412.summary.txt").read_text(encoding="utf-8")
+    # the same photo through `flatsight measure --json`, with the station's stand-in analysis
+    monkeypatch.setattr(pipeline, "measure",
+                        lambda photo, settings, **_: lib.measure(photo, settings))
+    status = main(["measure", str(tmp_path / PARTS[0]), "--wavelength", "632.8", "--json",
+                   "--spec", "pv<=500nm, rms<=5nm", "--operator", "Tamsin Ode",
+                   "--station", "bench-2", "--log", str(tmp_path / "cli.sqlite")])
+    printed = json.loads(capsys.readouterr().out)
+    assert status == 1  # the fake surface's RMS is over 5 nm
+    assert set(saved) == set(printed)
+    for key in printed:
+        if key != "logged_utc":  # the time stamps differ by the seconds between the runs
+            assert saved[key] == printed[key], key
+    assert saved["spec"]["verdict"] == "fail" and saved["part"] == "BW-FL-0412"
+    assert saved["record_id"] == 1  # the record the station logged, by its id
+    # the summary says what the record says: part, people, the verdict and each limit
+    for words in ("part           BW-FL-0412", "operator       Tamsin Ode",
+                  "station        bench-2", "record         1",
+                  "tolerance      pv<=500nm, rms<=5nm (simple decision rule): FAIL"):
+        assert words in summary, words
+    assert "RMS: FAIL" in summary
+    assert summary.index("Inspection") < summary.index("Figures")  # the verdict up top
+
+
+@sync
+async def test_measuring_a_photo_again_supersedes_its_record_and_counts_once(tmp_path,
+                                                                              capsys):
+    # issue 9 item 8: every aperture nudge, exclusion or settings change logged a new
+    # record (10 records for one part), and the trend's pass rate counted them all
+    from flatsight.tui.cli import main
+    from station_fakes import ManualTimers
+
+    log = tmp_path / "log.sqlite"
+    app, lib = make_app(tmp_path, spec="pv<=500nm")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        bench = app.screen
+        timers = ManualTimers(bench)
+        await pilot.press("1")  # into the fringe view: the arrows now move the aperture
+        for key in ("right", "down", "x"):
+            await pilot.press(key)
+            await settle(pilot)
+            assert timers.fire() == 1
+            await settle(pilot)
+        await pilot.press("m")  # measured again on purpose
+        await settle(pilot)
+        assert len(lib.measured) == 5
+        everything = query(log, superseded=True)
+        assert [r["record_id"] for r in everything] == [5, 4, 3, 2, 1]
+        # each record names the one it replaces; none is lost
+        assert [r.get("supersedes") for r in everything] == [4, 3, 2, 1, None]
+        assert [r.get("superseded_by") for r in everything] == [None, 5, 4, 3, 2]
+        assert [r["record_id"] for r in query(log)] == [5]
+        assert "record 5 (replaces 4)" in status(app)
+        # the next photo is its own part: its first record replaces nothing; going back
+        # to the first photo shows its result without measuring or logging it again
+        await pilot.press("right_square_bracket")
+        await settle(pilot)
+        await pilot.press("left_square_bracket")
+        await settle(pilot)
+        assert [r["record_id"] for r in query(log)] == [6, 5]
+        assert query(log)[0].get("supersedes") is None
+        await pilot.press("6")
+        await pilot.pause()
+        trend = app.screen.query_one("#trend-view").render().plain
+        assert "part BW-FL-0412 · 1 record\n" in trend and "pass rate 1/1" in trend
+    # history counts the photo once; --superseded lists the replaced records, marked
+    assert main(["history", "--log", str(log), "--part", "BW-FL-0412", "--json"]) == 0
+    assert [json.loads(x)["record_id"] for x in capsys.readouterr().out.splitlines()] == [5]
+    assert main(["history", "--log", str(log), "--part", "BW-FL-0412", "--superseded"]) == 0
+    listed = capsys.readouterr().out
+    assert all(f"pass →{n + 1}" in listed for n in (1, 2, 3, 4))
+    assert "→N: replaced by record N" in listed
+    assert main(["trend", "--log", str(log), "--part", "BW-FL-0412"]) == 0
+    assert "pv_nm over time: 1 records, part BW-FL-0412" in capsys.readouterr().out
+    # a superseded record is still found by its id, and its certificate says so
+    assert main(["report", "2", "--log", str(log), "--output", str(tmp_path / "c.html")]) == 0
+    assert "replaced by record 3" in capsys.readouterr().out
+
+
+@sync
+async def test_the_figures_view_says_at_which_wavelength_each_fringe_count_is(tmp_path):
+    # issue 9 item 10: "fringes" were at the test wavelength while the 3/A(B) limits are
+    # at 546.07 nm (ISO 10110-5's reference wavelength, from memory), and neither said so
+    app, _ = make_app(tmp_path, names=PARTS[:1], spec="3/2(0.5)")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        await pilot.press("5")
+        await pilot.pause()
+
+        def figures_text() -> str:
+            console = Console(width=200, record=True, file=io.StringIO())
+            console.print(app.screen.query_one("#figures-view")._content())
+            return console.export_text()
+
+        shown = figures_text()
+        assert "heights in nm" in shown
+        assert "fr: fringes of 632.8 nm" in shown  # the power's fringes: the test's
+        assert "≤ 546.1 nm (2 fr at 546.07 nm)" in shown  # A = 2 fringes of 546.07 nm
+        assert "≤ 136.5 nm (0.5 fr at 546.07 nm)" in shown  # B
+        await pilot.press("u", "u")  # nm -> waves -> fringes
+        await pilot.pause()
+        assert "heights in fringes of 632.8 nm" in figures_text()

@@ -7,7 +7,8 @@ from ...analysis.version import flatsight_version
 from ...analysis.zernike import term_name
 from .units import fmt_height
 
-__all__ = ["UNCERTAINTY_KEYS", "figure_rows", "summary_text", "uncertainty_text", "zernike_rows"]
+__all__ = ["UNCERTAINTY_KEYS", "carrier_lines", "carrier_short", "figure_rows", "quality_lines",
+           "summary_text", "uncertainty_text", "zernike_rows"]
 
 
 # a figure's name in the station -> its key in Figures.uncertainty_nm
@@ -26,7 +27,7 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
         return fmt_height(v, units, wavelength_nm)
 
     power = h(figures.power_nm)
-    if units != "fringes":
+    if units != "fringes":  # fringes of the test wavelength (the views say so)
         power += f"  ({format_number(figures.power_fringes, 2, sign=True)} fr)"
     rows = [
         ("PV", h(figures.pv_nm)),
@@ -44,6 +45,52 @@ def figure_rows(figures, *, units: str, wavelength_nm: float) -> list[tuple[str,
         ("RMS asymmetric", h(figures.rms_asymmetric_nm)),
     ]
     return rows
+
+
+def _span(values, digits: int) -> str:
+    """``"14.2–16.0"`` over the values given (one value when they agree); ``—`` without any."""
+    seen = [v for v in values if v is not None and v == v]
+    if not seen:
+        return "—"
+    low, high = format_number(min(seen), digits), format_number(max(seen), digits)
+    return low if low == high else f"{low}–{high}"
+
+
+def carrier_lines(fringes, period_px, visibility, per_photo=()) -> list[str]:
+    """The tilt carrier and visibility in a few short lines (at most 24 characters each).
+
+    ``per_photo`` gives an average's photos as ``(fringes, period_px, visibility)``: an
+    average has no carrier of its own, so the lines give the range over its photos. A map
+    without a carrier (phase-shifted frames) says so, never ``0.0``.
+    """
+    if per_photo:
+        f, p, v = zip(*per_photo, strict=True)
+        return [f"{len(per_photo)} photos, each its own:", f"tilt fringes {_span(f, 1)}",
+                f"period {_span(p, 1)} px", f"visibility {_span(v, 2)}"]
+    if fringes is None or fringes != fringes:
+        return ["no tilt carrier", f"visibility {_span([visibility], 2)}"]
+    return [f"{format_number(fringes, 1)} tilt fringes", f"period {_span([period_px], 1)} px",
+            f"visibility {_span([visibility], 2)}"]
+
+
+def _quality_triples(q) -> tuple:
+    return tuple((p.carrier_fringes, p.fringe_period_px, p.mean_modulation) for p in q.per_photo)
+
+
+def quality_lines(q) -> list[str]:
+    """:func:`carrier_lines` of a measurement's ``Quality``."""
+    return carrier_lines(q.carrier_fringes, q.fringe_period_px, q.mean_modulation,
+                         _quality_triples(q))
+
+
+def carrier_short(q) -> str:
+    """``"16 fr"``, ``"14–16 fr (2 photos)"`` or ``"no carrier"``, for a one-line summary."""
+    if q.per_photo:
+        span = _span([p.carrier_fringes for p in q.per_photo], 0)
+        return f"{span} fr ({len(q.per_photo)} photos)"
+    if q.carrier_fringes != q.carrier_fringes:
+        return "no carrier"
+    return f"{format_number(q.carrier_fringes, 0)} fr"
 
 
 def uncertainty_text(figures, name: str, *, units: str, wavelength_nm: float) -> str:
@@ -97,13 +144,8 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
         for name, value in figure_rows(figures, units="nm", wavelength_nm=wl)[:3]:
             out.append(f"  {name:<18} {value}")
     q = m.quality
-    out += [
-        "",
-        "Fringes",
-        f"  tilt fringes     {q.carrier_fringes:.1f} across the aperture, "
-        f"period {q.fringe_period_px:.1f} px",
-        f"  visibility       {q.mean_modulation:.2f}",
-        f"  masked           {100 * q.masked_fraction:.1f} % of the aperture",
+    out += ["", "Fringes"] + [f"  {line}" for line in quality_lines(q)] + [
+        f"  masked {100 * q.masked_fraction:.1f} % of the aperture",
     ]
     if m.warnings:
         out += ["", "Warnings"] + [f"  ! {w}" for w in m.warnings]

@@ -106,11 +106,12 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
         self.current = 0
         self.selected = -1
         self.profile_angle = 0.0
-        self.zoom = True
+        self.zoom = False  # the whole photo first: z then zooms to the aperture, as it says
         self.colour = colour_mode_from_env() if settings.colour == "auto" else settings.colour
         self._token = 0
         self._cancel: threading.Event | None = None
         self._jobs: dict[Worker, Job] = {}
+        self.record_lock = threading.Lock()  # one record of a photo at a time (supersedes)
         self._rerun_timer = None
         self._tab_chosen = False
         self._removed_cache: tuple | None = None

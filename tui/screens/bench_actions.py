@@ -73,17 +73,16 @@ class ViewActions:
         if e.kind != "photo":  # avg3 / seq4 beside the first photo, never over its own files
             tag = {"average": "avg", "sequence": "seq"}[e.kind]
             photo = e.path.with_name(f"{e.path.stem}.{tag}{len(e.sources)}{e.path.suffix}")
-        self._save(e.measurement, figures, self.removed_terms(), photo, copy.copy(e))
+        self._save(e.measurement, figures, self.removed_terms(), photo, copy.copy(e),
+                   self.record_options(e))
 
     @work(thread=True, exit_on_error=False, group="save")
-    def _save(self, m, figures, removed, photo=None, snapshot=None):
-        from ..station_combine import combined_record
-        from ..station_save import save_result
+    def _save(self, m, figures, removed, photo, snapshot, options):
+        from ..station_save import save_result, saved_record
 
-        record = combined_record(snapshot, self.backend) if photo is not None else None
         return save_result(
             m, self.backend, folder=self.out_dir, figures=figures, removed_terms=removed,
-            photo=photo, record=record,
+            photo=photo, record=saved_record(snapshot, self.backend, options),
         )
 
     def _save_finished(self, worker: Worker) -> None:
@@ -148,7 +147,10 @@ class ViewActions:
         self._schedule_rerun()
 
     def action_toggle_zoom(self) -> None:
+        """Zoom the fringe view to the aperture; again, back to the whole photo."""
         self.zoom = not self.zoom
+        self.notify("zoomed to the aperture (z: the whole photo)" if self.zoom
+                    else "the whole photo (z: zoom to the aperture)", timeout=2)
         self.redraw()
 
     def action_next_outline(self) -> None:

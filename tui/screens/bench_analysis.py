@@ -197,7 +197,7 @@ class AnalysisRunner:
                 e.combined, m = m, m.measurement
             e.measurement, e.error = m, None
             e.state = "warning" if m.warnings else "ok"
-            e.verdict = e.record_id = e.log_error = None
+            e.verdict = e.record_id = e.log_error = e.record = None
             if self.first_figures_s is None:
                 self.first_figures_s = time.perf_counter() - self.started_s
             self.say(self.headline(e))

@@ -44,22 +44,39 @@ class RecordActions:
         return self.recorder.options.get("part") or e.path.stem
 
     # ---- recording ----------------------------------------------------------------------
-    def record(self, index: int) -> None:
-        """Judge and log entry ``index``'s fresh measurement (in a worker: SQLite may wait)."""
-        e = self.entries[index]
+    def record_options(self, e: QueueEntry):
+        """The options ``e``'s record is judged and logged with, as ``measure`` takes them."""
         options = entry_options(self.recorder, self.photo_preset(e), e.path)
         if options.decision is None:  # neither the command line nor the preset: the station's
             options.decision = self.settings.decision
-        self._record(index, copy.copy(e), options)  # a copy: the entry may change meanwhile
+        return options
+
+    def record(self, index: int) -> None:
+        """Judge and log entry ``index``'s fresh measurement (in a worker: SQLite may wait)."""
+        e = self.entries[index]
+        # a copy: the entry may change meanwhile
+        self._record(index, copy.copy(e), self.record_options(e), e)
 
     @work(thread=True, exit_on_error=False, group="record")
-    def _record(self, index: int, snapshot: QueueEntry, options):
+    def _record(self, index: int, snapshot: QueueEntry, options, entry: QueueEntry):
+        """Log the measurement; it supersedes the session's earlier record of this entry.
+
+        One photo measured again (an aperture nudge, an exclusion, a setting) counts once
+        in history and trend: the new record names the one it replaces, which stays in
+        the log. The lock keeps the chain in log order when two records are in flight.
+        """
         from ..station_combine import combined_record
 
         record = combined_record(snapshot, self.backend)
         if record is None:
             return index, snapshot.measurement, None
-        return index, snapshot.measurement, record_result(options, record)
+        with self.record_lock:
+            if entry.logged_id is not None:
+                record["supersedes"] = entry.logged_id
+            outcome = record_result(options, record)
+            if outcome.record_id is not None:
+                entry.logged_id = outcome.record_id
+        return index, snapshot.measurement, outcome
 
     def _record_finished(self, worker: Worker) -> None:
         if worker.state == WorkerState.ERROR:
@@ -73,6 +90,8 @@ class RecordActions:
             return  # no records in this build, or the photo was measured again meanwhile
         e.verdict, e.record_id, e.log_error = outcome.verdict, outcome.record_id, outcome.error
         e.spec = outcome.record.get("spec")
+        e.record = outcome.record
+        e.replaced_id = outcome.record.get("supersedes") if outcome.record_id else None
         if outcome.error:
             self.notify(outcome.error, severity="error", timeout=10)
         part = self.part_of(e)
@@ -100,6 +119,8 @@ class RecordActions:
             out += f" · {word} {text or ''}".rstrip()
         if e.record_id is not None:
             out += f" · record {e.record_id}"
+            if e.replaced_id is not None:
+                out += f" (replaces {e.replaced_id})"
         elif e.log_error:
             out += " · not logged"
         return out

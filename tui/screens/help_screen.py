@@ -57,3 +57,25 @@ class HelpScreen(ModalScreen[None]):
             )
             yield Static(table)
             yield Static(Text("esc closes this screen", style="dim"))
+
+    def on_mount(self) -> None:
+        body = self.query_one("#help-body", VerticalScroll)
+        body.focus()  # the arrow keys and PgUp / PgDn scroll at once
+        self.watch(body, "scroll_y", self._show_where, init=False)
+        self.watch(body, "virtual_size", self._show_where, init=False)
+        self.call_after_refresh(self._show_where)
+
+    def on_resize(self) -> None:
+        self.call_after_refresh(self._show_where)
+
+    def _show_where(self, *_) -> None:
+        """Say on the frame whether more lies below or above, and how to get there."""
+        body = self.query_one("#help-body", VerticalScroll)
+        if body.max_scroll_y <= 0:
+            body.border_subtitle = "esc closes"
+            return
+        share = round(100 * body.scroll_y / body.max_scroll_y)
+        where = ("↓ more below" if body.scroll_y <= 0 else
+                 "↑ more above" if body.scroll_y >= body.max_scroll_y else
+                 f"↑↓ more ({share} %)")
+        body.border_subtitle = f"{where} · ↑ ↓ PgUp PgDn scroll · esc closes"

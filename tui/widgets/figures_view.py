@@ -65,10 +65,14 @@ class FiguresView(VerticalScroll, can_focus=True):
         for name, value in figure_rows(figures, units=ctx.units, wavelength_nm=wl):
             main.add_row(name, value,
                          uncertainty_text(figures, name, units=ctx.units, wavelength_nm=wl))
-        title = Text.assemble((e.name, "bold"), (f"   λ {wl:g} nm, {ctx.units}", "dim"))
+        # waves and fringes are of the test wavelength; a tolerance's may be another's
+        unit = {"nm": "nm", "waves": f"waves of {wl:g} nm",
+                "fringes": f"fringes of {wl:g} nm (λ/2 each)"}[ctx.units]
+        title = Text.assemble((e.name, "bold"), (f"   λ {wl:g} nm, heights in {unit}", "dim"))
         removed = sorted(set(figures.removed_terms) - {1, 2, 3})
         names = ["piston", "tilt", *dict.fromkeys(term_name(j).split(" ")[0] for j in removed)]
-        note = Text(f"terms out: {', '.join(names)}; ± U (k = 2)   (u: units)", style="dim")
+        note = Text(f"terms out: {', '.join(names)}; ± U (k = 2); fr: fringes of {wl:g} nm"
+                    "   (u: units)", style="dim")
         zt = Table(box=None, padding=(0, 1), header_style="bold", expand=False)
         zt.add_column("j", justify="right")
         zt.add_column("term")

@@ -8,6 +8,7 @@ from rich.text import Text
 from textual.binding import Binding
 
 from ..render.photo import aperture_region, render_photo
+from ..render.summary import carrier_short, quality_lines
 from ..safe_text import shown
 from .view_base import StationView, side_by_side
 
@@ -34,7 +35,7 @@ class FringeView(StationView):
         Binding("x", "screen.add_exclusion", "Exclude"),
         Binding("e", "screen.next_outline", "Next outline"),
         Binding("d,delete", "screen.remove_exclusion", "Drop exclusion"),
-        Binding("z", "screen.toggle_zoom", "Zoom"),
+        Binding("z", "screen.toggle_zoom", "Zoom to aperture"),
     ]
 
     def draw(self) -> Text:
@@ -100,7 +101,7 @@ class FringeView(StationView):
         m = e.measurement
         if m is not None:
             second.append(
-                f"  {m.quality.carrier_fringes:.0f} fr  "
+                f"  {carrier_short(m.quality)}  "
                 f"masked {100 * m.quality.masked_fraction:.0f} %",
                 style="dim",
             )
@@ -120,17 +121,14 @@ class FringeView(StationView):
             Text(f"radius {aperture.radius_px:.0f} px"),
             Text(f"exclusions {len(aperture.exclusions)}"),
             Text.assemble(("editing ", "dim"), (editing, "bold #60e8ff")),
+            Text("z: whole photo" if self.ctx.zoom else "z: zoom to aperture", style="dim"),
             Text(""),
         ]
         m = e.measurement
         if m is not None:
             q = m.quality
-            rows += [
-                Text(f"{q.carrier_fringes:.1f} tilt fringes"),
-                Text(f"period {q.fringe_period_px:.1f} px"),
-                Text(f"visibility {q.mean_modulation:.2f}"),
-                Text(f"masked {100 * q.masked_fraction:.1f} %"),
-            ]
+            rows += [Text(line) for line in quality_lines(q)]
+            rows.append(Text(f"masked {100 * q.masked_fraction:.1f} %"))
             for warning in m.warnings[:3]:
                 rows += wrapped(f"! {warning}", "#ffc440")
         elif e.error:

@@ -20,8 +20,11 @@ VERDICT_TAGS = {
 }
 
 
-def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: int) -> Text:
+def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: int,
+                 others: tuple[str, ...] = ()) -> Text:
     """One queue line: state glyph, mark, photo name (cut to fit), PV, verdict tag.
+
+    ``others`` are the queue's file names: a name cut to fit keeps what tells it apart.
 
     The verdict tag is P (pass), F (fail) or I (inconclusive under the guarded decision
     rule): bold for this session's measurement, plain for the part's last verdict in the
@@ -40,7 +43,7 @@ def entry_prompt(entry: QueueEntry, *, units: str, wavelength_nm: float, width: 
     verdict, fresh = entry.shown_verdict
     tag = VERDICT_TAGS.get(verdict)
     room = max(4, width - 3 - len(figure) - (2 if tag else 0) - (1 if entry.marked else 0))
-    name = entry.name if len(entry.name) <= room else entry.name[: room - 1] + "…"
+    name = entry.name_in(room, others=others)
     line = Text()
     line.append(glyph + " ", style=style)
     if entry.marked:
@@ -66,10 +69,10 @@ class PhotoQueue(OptionList):
     ) -> None:
         """Redraw every line and keep the highlight on ``current``."""
         width = max(12, (self.scrollable_content_region.width or self.size.width or 22) - 1)
+        names = tuple(dict.fromkeys(e.path.name for e in entries))
         options = [
-            Option(
-                entry_prompt(e, units=units, wavelength_nm=wavelength_nm, width=width), id=str(i)
-            )
+            Option(entry_prompt(e, units=units, wavelength_nm=wavelength_nm, width=width,
+                                others=names), id=str(i))
             for i, e in enumerate(entries)
         ]
         with self.prevent(OptionList.OptionHighlighted):

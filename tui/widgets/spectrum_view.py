@@ -5,6 +5,7 @@ from __future__ import annotations
 from rich.text import Text
 
 from ..render.photo import render_spectrum
+from ..render.summary import quality_lines
 from .fringe_view import PANEL_WIDTH, wrapped
 from .view_base import StationView, side_by_side
 
@@ -19,6 +20,12 @@ class SpectrumView(StationView):
         if holding is not None:
             return holding
         m = self.entry.measurement
+        if m.quality.per_photo or m.quality.carrier_fringes != m.quality.carrier_fringes:
+            # an average has one spectrum per photo, a phase-shifted sequence none at all
+            what = ("an average of photos: each has its own spectrum; open the photos "
+                    "one by one" if m.quality.per_photo else
+                    "phase-shifted frames: no tilt carrier, so no sideband to show")
+            return Text("\n".join([*quality_lines(m.quality), "", what]), style="dim")
         sp = m.spectrum
         w, h = self.size.width, self.size.height
         wide = w >= 60

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 from rich.text import Text
 from textual.binding import Binding
@@ -62,7 +64,16 @@ class SurfaceView(StationView):
             height_map, width=map_w, height=max(1, h - 1), mode=ctx.colour, inside=inside
         )
         wl = ctx.wavelength_nm
-        n_ticks = max(3, min(9, h - 10))
+        # the note of the terms taken out, wrapped to the legend's column: a line longer
+        # than the column would wrap onto the map and push it a row down
+        room = max(8, w - hm.width_cells - 2)
+        extra = sorted(set(ctx.removed_terms) - {1, 2, 3})
+        note = []
+        if extra:
+            names = ", ".join(dict.fromkeys(term_name(j).split(" ")[0] for j in extra))
+            note = [Text(line, style="#60e8ff")
+                    for line in textwrap.wrap(f"without {names}", room)]
+        n_ticks = max(3, min(9, h - 10 - len(note)))
         legend = legend_lines(hm.vmin_nm, hm.vmax_nm, wavelength_nm=wl, n=n_ticks, mode=ctx.colour)
         hi_mark = "H" if ctx.colour == "mono" else "▲"
         lo_mark = "L" if ctx.colour == "mono" else "▼"
@@ -76,10 +87,9 @@ class SurfaceView(StationView):
             Text.assemble(("PV   ", "bold"), fmt_height(figures.pv_nm, ctx.units, wl)),
             Text.assemble(("RMS  ", "bold"), fmt_height(figures.rms_nm, ctx.units, wl)),
         ]
-        extra = sorted(set(ctx.removed_terms) - {1, 2, 3})
-        if extra:
-            names = ", ".join(dict.fromkeys(term_name(j).split(" ")[0] for j in extra))
-            legend.append(Text(f"without {names}"[:LEGEND_WIDTH], style="#60e8ff"))
+        legend += note
+        for line in legend:
+            line.truncate(room)
         body = side_by_side(hm.lines, legend, left_width=hm.width_cells, height=h - 1)
         out = self._terms_line()
         out.append("\n")
