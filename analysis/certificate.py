@@ -33,7 +33,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .formatting import finite_number, format_number
+from .formatting import finite_number, format_number, printable
 from .version import flatsight_version
 from .zernike import nm_to_noll, noll_to_nm, osa_to_noll, term_name, zernike_basis
 
@@ -311,7 +311,8 @@ def map_png(record: Mapping, *, size_px: int = MAP_SIZE_PX) -> bytes:
 
 
 def _e(value) -> str:
-    return html.escape("" if value is None else str(value))
+    """Text for the page, printed literally: control and bidi characters as escapes."""
+    return html.escape(printable("" if value is None else value))
 
 
 def _fmt(value, digits: int) -> str:

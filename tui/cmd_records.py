@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import csv
 import json
+import re
 import shutil
 import sys
 from collections.abc import Sequence
@@ -87,14 +88,36 @@ def add_parser(subparsers) -> None:
     t.set_defaults(records_command="trend", run=run_trend)
 
     r = subparsers.add_parser(
-        "report", help="write the certificate of one logged inspection",
-        description="Write the certificate of a logged inspection: FILE.html is one "
+        "report", help="write the certificate of logged inspections (PDF, HTML)",
+        description="Write the certificate of a logged inspection: FILE.pdf is one A4 (or "
+                    "--paper letter) page made without a browser; FILE.html is one "
                     "self-contained page that prints on A4 or Letter; FILE.png is the "
-                    "surface map alone.")
-    r.add_argument("record_id", type=record_id_type, metavar="RECORD_ID",
-                   help="see 'flatsight history'")
+                    "surface map alone. Several at once: select records as history does "
+                    "(--part, --since, --verdict) and give --output-dir DIR, one file per "
+                    "record named PART_rRECORD.pdf (or .html with --format html).",
+        epilog="examples:\n"
+               "  flatsight report 17 --output BW-FL-0412.pdf\n"
+               "  flatsight report 17 --output BW-FL-0412.pdf --paper letter\n"
+               "  flatsight report --part BW-FL-0412 --output-dir certificates\n"
+               "  flatsight report --since 2026-12-01 --verdict pass --output-dir out\n",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    r.add_argument("record_id", type=record_id_type, metavar="RECORD_ID", nargs="?",
+                   help="the record (see 'flatsight history'), with --output")
     _log_option(r)
-    r.add_argument("--output", "-o", metavar="FILE", required=True, help="FILE.html or FILE.png")
+    r.add_argument("--output", "-o", metavar="FILE",
+                   help="FILE.pdf, FILE.html or FILE.png, for one RECORD_ID")
+    r.add_argument("--output-dir", metavar="DIR",
+                   help="write one certificate per selected record into DIR (made if "
+                        "missing); select with --part, --since and --verdict")
+    r.add_argument("--part", metavar="ID", help="with --output-dir: only this part")
+    r.add_argument("--since", metavar="DATE",
+                   help="with --output-dir: only from this date (ISO 8601, UTC)")
+    r.add_argument("--verdict", choices=("pass", "fail", "inconclusive"),
+                   help="with --output-dir: only this verdict")
+    r.add_argument("--format", choices=("pdf", "html"), default="pdf",
+                   help="with --output-dir: the certificates' format (default pdf)")
+    r.add_argument("--paper", choices=("a4", "letter"), default="a4",
+                   help="paper of a PDF certificate (default a4)")
     r.set_defaults(records_command="report", run=run_report)
 
 
@@ -398,38 +421,98 @@ def run_trend(args: argparse.Namespace) -> int:
 # --- report ---------------------------------------------------------------------------------
 
 
-def run_report(args: argparse.Namespace) -> int:
-    """``flatsight report``: the certificate (HTML) or the map (PNG) of one record."""
-    from ..analysis.atomic import atomic_write_bytes, atomic_write_text
-    from ..analysis.certificate import certificate_html, map_png
-    from ..analysis.inspection_log import get
+def _certificate_bytes(rec: dict, suffix: str, *, log: str, paper: str) -> bytes:
+    """The certificate (``.pdf``, ``.html``) or the map (``.png``) of one record."""
+    from ..analysis.certificate import certificate_document, certificate_html, map_png
 
-    out = Path(args.output).expanduser()
-    suffix = out.suffix.lower()
-    if suffix not in (".html", ".htm", ".png"):
-        return _fail("report", SettingsError(
-            f"cannot write a report as {out.name}: name the output FILE.html or FILE.png"))
-    try:
-        rec = get(_log_path(args), args.record_id)
-        if suffix == ".png":
-            atomic_write_bytes(out, map_png(rec))
-        else:
-            atomic_write_text(out, certificate_html(rec, log=str(_log_path(args).absolute())))
-    except FlatsightError as exc:
-        return _fail("report", exc)
-    except OSError as exc:
-        return _fail("report", SettingsError(f"cannot write {out}: {exc.strerror or exc}"))
+    if suffix == ".png":
+        return map_png(rec)
+    if suffix == ".pdf":
+        from ..analysis.certificate_pdf import certificate_pdf
+
+        return certificate_pdf(certificate_document(rec, log=log), paper=paper)
+    return certificate_html(rec, log=log).encode("utf-8")
+
+
+def _file_name(rec: dict, suffix: str) -> str:
+    """``BW-FL-0412_r17.pdf``: the part (only letters, digits, ``.-_``) and the record id."""
+    part = re.sub(r"[^A-Za-z0-9._-]+", "-", str(rec.get("part") or "")).strip(".-") or "part"
+    return f"{part[:80]}_r{rec['record_id']}{suffix}"
+
+
+def _wrote(out: Path, rec: dict, record_id, which: str) -> str:
     verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
-    # say what the certificate was made from: a record read from the wrong log, or an
-    # old record of the same part, is then seen at once
-    log = _log_path(args)
-    which = f"{log}" if args.log else f"{log} (the default log; --log PATH for another)"
     when = (rec.get("logged_utc") or "")[:16].replace("T", " ")
     photo = Path(rec.get("photo") or "").name or "no photo"
-    print(shown(f"wrote {out} from record {args.record_id} of {which}: part "
-                f"{rec.get('part') or '(none)'}, photo {photo}, logged {when or '?'} UTC, "
-                f"{verdict}"))
-    if rec.get("superseded_by") is not None:
-        print(f"note: record {args.record_id} was replaced by record {rec['superseded_by']} "
-              "(the same photo measured again in one station session)")
-    return 0
+    return shown(f"wrote {out} from record {record_id} of {which}: part "
+                 f"{rec.get('part') or '(none)'}, photo {photo}, logged {when or '?'} UTC, "
+                 f"{verdict}")
+
+
+def run_report(args: argparse.Namespace) -> int:
+    """``flatsight report``: certificates (PDF, HTML) or the map (PNG) of logged records."""
+    from ..analysis.atomic import atomic_write_bytes
+    from ..analysis.inspection_log import get, query
+
+    log = _log_path(args)
+    # say what the certificate was made from: a record read from the wrong log, or an
+    # old record of the same part, is then seen at once
+    which = f"{log}" if args.log else f"{log} (the default log; --log PATH for another)"
+    selecting = [f"--{n}" for n in ("part", "since", "verdict")
+                 if getattr(args, n) is not None]
+    if args.output_dir is None:
+        problem = ("give RECORD_ID and --output FILE for one certificate, or --output-dir "
+                   "DIR (with --part, --since, --verdict) for several")
+        if args.record_id is None or args.output is None:
+            return _fail("report", SettingsError(problem))
+        if selecting:
+            return _fail("report", SettingsError(
+                f"{', '.join(selecting)} {'selects' if len(selecting) == 1 else 'select'} "
+                "records for --output-dir; RECORD_ID names one record already"))
+        out = Path(args.output).expanduser()
+        suffix = {".htm": ".html"}.get(out.suffix.lower(), out.suffix.lower())
+        if suffix not in (".html", ".png", ".pdf"):
+            return _fail("report", SettingsError(
+                f"cannot write a report as {out.name}: name the output FILE.pdf, FILE.html "
+                "or FILE.png"))
+        try:
+            rec = get(log, args.record_id)
+            atomic_write_bytes(out, _certificate_bytes(rec, suffix, log=str(log.resolve()),
+                                                       paper=args.paper))
+        except FlatsightError as exc:
+            return _fail("report", exc)
+        except OSError as exc:
+            return _fail("report", SettingsError(f"cannot write {out}: {exc.strerror or exc}"))
+        print(_wrote(out, rec, args.record_id, which))
+        return 0
+
+    if args.record_id is not None or args.output is not None:
+        return _fail("report", SettingsError(
+            "--output-dir writes the records --part, --since and --verdict select; give "
+            "either RECORD_ID with --output FILE, or --output-dir DIR"))
+    folder = Path(args.output_dir).expanduser()
+    suffix = "." + args.format
+    try:
+        rows = query(log, part=args.part, since=args.since, verdict=args.verdict)
+    except FlatsightError as exc:
+        return _fail("report", exc)
+    if not rows:
+        print(shown(f"no record of {which} matches; nothing written"), file=sys.stderr)
+        return 0
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        return _fail("report", SettingsError(f"cannot make {folder}: {exc.strerror or exc}"))
+    status = 0
+    for rec in reversed(rows):  # oldest first, as they were logged
+        out = folder / _file_name(rec, suffix)
+        try:
+            atomic_write_bytes(out, _certificate_bytes(rec, suffix, log=str(log.resolve()),
+                                                       paper=args.paper))
+        except OSError as exc:
+            print(f"flatsight report: error: cannot write {shown(out)}: "
+                  f"{shown(exc.strerror or exc)}", file=sys.stderr)
+            status = 2
+            continue
+        print(_wrote(out, rec, rec["record_id"], which))
+    return status

@@ -195,11 +195,73 @@ def test_report_html_and_png(filled_log, tmp_path, capsys):
     png_out = tmp_path / "map.png"
     status, _, _ = run_cli(capsys, "report", "1", "--log", filled_log, "-o", png_out)
     assert status == 0 and png_out.read_bytes().startswith(b"\x89PNG")
-    status, _, err = run_cli(capsys, "report", "1", "--log", filled_log, "-o", tmp_path / "x.pdf")
-    assert status == 2 and "FILE.html or FILE.png" in err
+    status, _, err = run_cli(capsys, "report", "1", "--log", filled_log, "-o", tmp_path / "x.jpg")
+    assert status == 2 and "FILE.pdf, FILE.html or FILE.png" in err
     status, _, err = run_cli(capsys, "report", "99", "--log", filled_log, "-o", html_out)
     assert status == 2 and "no record 99" in err
     assert not list(tmp_path.glob(".cert.html.*"))  # no temporary files left behind
+
+
+def test_report_pdf_one_page_of_the_paper_asked_for(filled_log, tmp_path, capsys):
+    from pypdf import PdfReader
+
+    rec = inspection_log.get(filled_log, 2)
+    for paper, size_pt in (("a4", (595.28, 841.89)), ("letter", (612.0, 792.0))):
+        out = tmp_path / f"cert-{paper}.pdf"
+        status, said, err = run_cli(capsys, "report", "2", "--log", filled_log, "--output",
+                                    out, "--paper", paper)
+        assert status == 0, err
+        assert "record 2" in said and "part BW-FL-0413" in said
+        reader = PdfReader(out)  # pypdf, an outside reader of what was written
+        assert len(reader.pages) == 1
+        box = reader.pages[0].mediabox  # ISO 216 A4 / US Letter in PDF points
+        assert (float(box.width), float(box.height)) == pytest.approx(size_pt, abs=0.5)
+        text = "".join(reader.pages[0].extract_text().split())
+        assert "FAIL" in text and "BW-FL-0413" in text and rec["photo_sha256"] in text
+        assert f"{rec['pvr_nm']:.1f}" in text
+    assert not list(tmp_path.glob(".cert-*"))  # no temporary files left behind
+
+
+def test_report_writes_one_certificate_per_selected_record(filled_log, tmp_path, capsys):
+    rows = inspection_log.query(filled_log)
+    folder = tmp_path / "certs"
+    status, said, err = run_cli(capsys, "report", "--log", filled_log, "--output-dir", folder)
+    assert status == 0, err
+    names = sorted(p.name for p in folder.iterdir())
+    assert names == sorted(f"{r['part']}_r{r['record_id']}.pdf" for r in rows)
+    assert said.count("wrote ") == len(rows)
+    # select as history does: one part, one verdict, HTML instead of PDF
+    part = rows[0]["part"]
+    status, _, err = run_cli(capsys, "report", "--log", filled_log, "--part", part,
+                             "--format", "html", "--output-dir", tmp_path / "part")
+    assert status == 0, err
+    assert sorted(p.name for p in (tmp_path / "part").iterdir()) == sorted(
+        f"{part}_r{r['record_id']}.html" for r in rows if r["part"] == part)
+    failed = [r for r in rows if (r.get("spec") or {}).get("verdict") == "fail"]
+    status, _, err = run_cli(capsys, "report", "--log", filled_log, "--verdict", "fail",
+                             "--output-dir", tmp_path / "fail")
+    assert status == 0, err
+    assert len(list((tmp_path / "fail").iterdir())) == len(failed) > 0
+    # nothing selected: said, and nothing written
+    status, _, err = run_cli(capsys, "report", "--log", filled_log, "--since", "2999-01-01",
+                             "--output-dir", tmp_path / "none")
+    assert status == 0 and "nothing written" in err and not (tmp_path / "none").exists()
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["report", "--output", "x.pdf"], ["RECORD_ID", "--output-dir"]),
+    (["report", "1"], ["--output FILE"]),
+    (["report", "1", "--output", "x.pdf", "--part", "BW-FL-0412"], ["--part selects"]),
+    (["report", "1", "--output-dir", "out"], ["either RECORD_ID"]),
+    (["report", "1", "--output", "x.pdf", "--paper", "a3"], ["--paper", "a3"]),
+])
+def test_report_usage_errors_are_said_and_nothing_is_written(filled_log, tmp_path, capsys,
+                                                              monkeypatch, argv, words):
+    monkeypatch.chdir(tmp_path)
+    status, out, err = run_cli(capsys, *argv, "--log", filled_log)
+    assert status == 2 and out == "" and "Traceback" not in err
+    assert all(w in err for w in words), err
+    assert not list(tmp_path.iterdir())  # nothing written
 
 
 def test_preset_fills_what_the_command_line_leaves_unset(photos, tmp_path, capsys):
