@@ -305,7 +305,7 @@ def average_measurements(
         settings=settings,
         photo=f"average of {len(ms)}: " + ", ".join(names),
         # each photo had its own carrier and visibility; the average has none of its own
-        quality_fields={"per_photo": tuple(m.quality for m in ms)},
+        quality_fields={"per_photo": tuple(m.quality for m in ms), "photos": len(ms)},
         warnings=warnings,
     )
     fig_spread = {}

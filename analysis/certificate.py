@@ -606,8 +606,8 @@ def _uncertainty_text(record: Mapping) -> str:
                   "reference flat uncertainty not stated (taken as 0)")
     photos = budget.get("photos") or 1
     if photos > 1:
-        stated.append(f"{photos} photos averaged (noise and method parts divided by "
-                      f"√{photos})")
+        stated.append(f"{photos} photos averaged (the noise part taken on the averaged "
+                      "map; the method part, a bias the photos share, not divided)")
     parts.append("For this measurement: " + "; ".join(stated) + ".")
     return " ".join(parts)
 

@@ -22,9 +22,11 @@ multiplied by the coverage factor k = 2 (JCGM 100:2008, the GUM, 6.2-6.3):
 * **reference flat**: the reference's own form error is in every measurement against it;
   the operator states its expanded uncertainty (k = 2), which enters each figure.
 
-Averaging N photos divides the noise and method parts by sqrt(N): they change from photo
-to photo (noise, speckle, the fringes' direction at the rim). The wavelength and
-reference parts do not average away.
+Averaging N photos shrinks U where it should and nowhere else: the noise part is taken
+on the averaged map, whose own noise is what the averaging left (about 1/sqrt(N) of one
+photo's, GUM 4.2.3), so it is not divided again; the method part (what one photo cannot
+resolve, the rim) is a bias that photos of one part share, and is not divided; the
+wavelength and reference parts do not average away either.
 
 References
 ----------
@@ -192,7 +194,8 @@ def expanded_uncertainty(figures, *, spread: dict[str, float], noise_nm: float,
     reference_uncertainty_nm : float
         Expanded uncertainty (k = 2) of the reference flat's form.
     photos : int
-        How many photos were averaged into the map.
+        How many photos were averaged into the map: recorded with the budget, but no
+        divisor (the averaged map's own noise already says what averaging gained).
     corrections : dict, optional
         Figure name -> the noise bias removed from it, nm; half of it counts as the
         correction's own standard uncertainty.
@@ -207,17 +210,15 @@ def expanded_uncertainty(figures, *, spread: dict[str, float], noise_nm: float,
     noise = float(noise_nm)
     base = {name: float(getattr(figures, name)) for name in UNCERTAIN_FIGURES}
     corrections = corrections or {}
-    per_photo = 1.0 / math.sqrt(max(photos, 1))
     uncertainty, budget = {}, {}
     for name in UNCERTAIN_FIGURES:
         share, floor, k_noise = METHOD[name]
         value = abs(base[name])
         parts = {
             # the noise's spread, and half the SIMEX correction: how far off it may be
-            "noise_nm": math.hypot(spread[name], 0.5 * corrections.get(name, 0.0))
-            * per_photo,
+            "noise_nm": math.hypot(spread[name], 0.5 * corrections.get(name, 0.0)),
             "method_nm": math.sqrt((share * value) ** 2 + floor**2
-                                   + (k_noise * noise) ** 2) * per_photo,
+                                   + (k_noise * noise) ** 2),
             "wavelength_nm": value * wavelength_uncertainty_nm / wavelength_nm,
             "reference_nm": reference_uncertainty_nm / COVERAGE_FACTOR,
         }

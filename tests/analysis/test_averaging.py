@@ -187,3 +187,21 @@ def test_an_average_has_no_carrier_of_its_own_and_keeps_each_photos():
     assert rec["resolution_cycles_per_aperture"] is None  # no window of its own, not 0
     assert [p["carrier_fringes"] for p in rec["per_photo"]] == [14.0, 18.0]
     assert [p["mean_modulation"] for p in rec["per_photo"]] == [0.5, 0.6]
+
+
+def test_averaging_shrinks_the_noise_part_of_u_as_the_mean_of_n_photos():
+    # GUM (JCGM 100:2008) 4.2.3: the mean of N independent readings has 1/sqrt(N) of one
+    # reading's standard deviation. Four maps of one surface with independent white noise:
+    # the average's noise, and the noise part of its U, fall by about 2; the record says
+    # four photos; and the method part (a bias the photos share) is not divided.
+    from flatsight.analysis.record import measurement_to_record
+
+    ms = [on_grid(121, noise_nm=4.0, seed=k, name=f"p{k}.png") for k in range(4)]
+    avg = average_measurements(ms).measurement
+    single_noise = np.mean([m.figures.noise_nm for m in ms])
+    assert avg.figures.noise_nm == pytest.approx(single_noise / 2, rel=0.15)
+    for name in ("rms_nm", "pv_nm", "irregularity_nm"):
+        one = np.mean([m.figures.uncertainty_budget[name]["noise_nm"] for m in ms])
+        assert avg.figures.uncertainty_budget[name]["noise_nm"] < 0.75 * one, name
+    budget = measurement_to_record(avg)["uncertainty_budget"]
+    assert budget["photos"] == 4

@@ -238,12 +238,15 @@ def test_stated_uncertainties_enter_in_quadrature_with_k_2():
         math.hypot(base.uncertainty_nm["power_nm"] / 2, u_lam), rel=1e-9)
 
 
-def test_averaging_shrinks_the_photo_to_photo_parts():
-    # GUM 4.2.3: the standard uncertainty of a mean of N independent values is u / sqrt N
+def test_the_photo_count_is_no_second_divisor():
+    # An average's map carries the noise averaging left (GUM 4.2.3: u / sqrt N for the
+    # mean of N independent values), and U is taken on that map; dividing U by sqrt N
+    # again would count the averaging twice, and the method's bias is shared by the
+    # photos of one part. So the same map gives the same U whatever the count says.
     one = figures_of({4: 40.0, 5: 10.0})
     four = figures_of({4: 40.0, 5: 10.0}, photos=4)
     for name in ("pv_nm", "irregularity_nm", "power_nm"):
-        assert four.uncertainty_nm[name] == pytest.approx(one.uncertainty_nm[name] / 2,
+        assert four.uncertainty_nm[name] == pytest.approx(one.uncertainty_nm[name],
                                                           rel=1e-9)
 
 
