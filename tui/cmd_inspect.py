@@ -176,7 +176,7 @@ def run(args: argparse.Namespace) -> int:
     except SettingsError as exc:
         print(f"flatsight inspect: error: {shown(exc)}", file=sys.stderr)
         return 2
-    from .record_options import apply_preset, log_path_from_args, tolerance_from_args
+    from .record_options import apply_preset, log_location_from_args, tolerance_from_args
     from .station_log import OPTION_KEYS, StationRecorder
 
     presets_file = Path(args.presets) if args.presets else None
@@ -193,7 +193,8 @@ def run(args: argparse.Namespace) -> int:
             # the preset fills the measuring options this command line left unset
             settings = settings_from_args(apply_preset(args, preset=chosen), remembered)
         tolerance_from_args(args)  # a malformed --spec fails here, pointing at the character
-        recorder = StationRecorder(log_path_from_args(args),
+        # the log is the command line's, else the preset's, else station.toml's
+        recorder = StationRecorder(log_location_from_args(apply_preset(args, preset=chosen)),
                                    {k: getattr(args, k) for k in OPTION_KEYS})
     except SettingsError as exc:
         print(f"flatsight inspect: error: {shown(exc)}", file=sys.stderr)

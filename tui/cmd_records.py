@@ -19,7 +19,7 @@ from pathlib import Path
 from ..analysis.errors import FlatsightError, SettingsError
 from ..analysis.formatting import format_number
 from .options import count_type, whole_number_type
-from .record_options import log_path_type
+from .record_options import LOG_HELP, log_type
 from .safe_text import csv_row, literal, shown
 
 __all__ = ["add_parser", "run", "run_history", "run_report", "run_trend", "trend_lines"]
@@ -37,8 +37,8 @@ height_type = whole_number_type("--height", 4, 500)
 
 
 def _log_option(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
-                   help="inspection log (default: inspections.sqlite in the user data dir)")
+    p.add_argument("--log", metavar="PATH|URL", default=None, type=log_type,
+                   help=LOG_HELP.format(default="inspections.sqlite in the user data dir"))
 
 
 def add_parser(subparsers) -> None:
@@ -95,10 +95,11 @@ def run(args: argparse.Namespace) -> int:
     return commands[args.records_command](args)
 
 
-def _log_path(args: argparse.Namespace) -> Path:
-    from ..analysis.inspection_log import default_log_path
+def _log_path(args: argparse.Namespace):
+    """The log to read: ``--log``, else station.toml's ``log``, else the default file."""
+    from .record_options import log_location_from_args
 
-    return Path(args.log).expanduser() if args.log else default_log_path()
+    return log_location_from_args(args)
 
 
 def _fail(command: str, exc: FlatsightError) -> int:
@@ -127,7 +128,7 @@ def _cell(value, digits: int = 1) -> str:
 
 def run_history(args: argparse.Namespace) -> int:
     """``flatsight history``: the log's records, newest first."""
-    from ..analysis.inspection_log import query
+    from ..analysis.records.log import query
 
     try:
         rows = query(_log_path(args), part=args.part, since=args.since, verdict=args.verdict,
@@ -282,7 +283,7 @@ def _limits_for(rec: dict, figure: str) -> tuple[list[float], str]:
 def limited_figure(rows: list[dict], figures=TREND_FIGURES) -> str:
     """The figure the newest record's tolerance limits first (power for ISO 3/A(B)), else PVr.
 
-    ``rows`` newest first, as :func:`~flatsight.analysis.inspection_log.query` gives them.
+    ``rows`` newest first, as :func:`~flatsight.analysis.records.log.query` gives them.
     """
     for row in rows:
         for limit in (row.get("spec") or {}).get("limits", []):
@@ -293,7 +294,7 @@ def limited_figure(rows: list[dict], figures=TREND_FIGURES) -> str:
 
 def run_trend(args: argparse.Namespace) -> int:
     """``flatsight trend``: one figure over time, its tolerance line, the pass rate."""
-    from ..analysis.inspection_log import query
+    from ..analysis.records.log import query
 
     try:
         rows = query(_log_path(args), part=args.part, since=args.since)
@@ -348,7 +349,7 @@ def run_report(args: argparse.Namespace) -> int:
     """``flatsight report``: the certificate (HTML) or the map (PNG) of one record."""
     from ..analysis.atomic import atomic_write_bytes, atomic_write_text
     from ..analysis.certificate import certificate_html, map_png
-    from ..analysis.inspection_log import get
+    from ..analysis.records.log import get
 
     out = Path(args.output).expanduser()
     suffix = out.suffix.lower()
@@ -356,7 +357,8 @@ def run_report(args: argparse.Namespace) -> int:
         return _fail("report", SettingsError(
             f"cannot write a report as {out.name}: name the output FILE.html or FILE.png"))
     try:
-        rec = get(_log_path(args), args.record_id)
+        log = _log_path(args)
+        rec = get(log, args.record_id)
         if suffix == ".png":
             atomic_write_bytes(out, map_png(rec))
         else:
@@ -368,8 +370,7 @@ def run_report(args: argparse.Namespace) -> int:
     verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
     # say what the certificate was made from: a record read from the wrong log, or an
     # old record of the same part, is then seen at once
-    log = _log_path(args)
-    which = f"{log}" if args.log else f"{log} (the default log; --log PATH for another)"
+    which = f"{log}" if args.log else f"{log} (the default log; --log for another)"
     when = (rec.get("logged_utc") or "")[:16].replace("T", " ")
     photo = Path(rec.get("photo") or "").name or "no photo"
     print(shown(f"wrote {out} from record {args.record_id} of {which}: part "

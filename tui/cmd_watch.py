@@ -394,7 +394,7 @@ def run(args: argparse.Namespace) -> int:
     """``flatsight watch``: 0 after a clean stop, 130 after ctrl+c, 2 for bad options or
     folder, or when a result could not be logged."""
     from ..analysis.errors import SettingsError
-    from .record_options import apply_preset, log_path_from_args, tolerance_from_args
+    from .record_options import apply_preset, log_location_from_args, tolerance_from_args
 
     try:
         args = apply_preset(args)
@@ -411,6 +411,7 @@ def run(args: argparse.Namespace) -> int:
         if args.wavelength is not None:
             args.wavelength = wavelength_type(str(args.wavelength))
         tolerance_from_args(args)
+        log_path = log_location_from_args(args)
         folder = Path(args.folder).expanduser()
         if not folder.is_dir():
             raise SettingsError(f"{folder} is not a folder: give the folder the camera "
@@ -433,7 +434,6 @@ def run(args: argparse.Namespace) -> int:
         print(f"flatsight watch: error: {shown(exc)}", file=sys.stderr)
         return 2
 
-    log_path = log_path_from_args(args)
     tally = Tally()
     start = clock()
     missing = None

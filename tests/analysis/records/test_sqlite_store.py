@@ -1,4 +1,4 @@
-"""The inspection log: records round-trip, many writers at once, a killed writer, migrations."""
+"""The SQLite store of the log: round trips, many writers, a killed writer, migrations."""
 
 from __future__ import annotations
 
@@ -12,8 +12,8 @@ import textwrap
 import time
 
 import pytest
-from flatsight.analysis import inspection_log as log
 from flatsight.analysis.errors import InspectionLogError, SettingsError
+from flatsight.analysis.records import log, sqlite_store
 
 
 def make_record(photo="BW-FL-0412.png", verdict="pass", pv_nm=41.5, n_terms=36):
@@ -109,7 +109,7 @@ def test_clear_errors(tmp_path):
 
 WRITER = textwrap.dedent("""
     import sys
-    from flatsight.analysis import inspection_log as log
+    from flatsight.analysis.records import log
     path, name, count = sys.argv[1], sys.argv[2], int(sys.argv[3])
     record = {
         "photo": "x.png", "wavelength_nm": 632.8, "pv_nm": 1.0,
@@ -189,7 +189,7 @@ def version_1_log(path, *, journal="delete"):
     """A log as version 1 of the schema wrote it, with one failed record."""
     con = sqlite3.connect(path)
     con.execute(f"PRAGMA journal_mode = {journal}")
-    con.executescript(log.MIGRATIONS[0])
+    con.executescript(sqlite_store.MIGRATIONS[0])
     con.execute("PRAGMA user_version = 1")
     con.execute(
         "INSERT INTO inspections (logged_utc, part, record_json) VALUES (?, ?, ?)",
@@ -308,7 +308,7 @@ def test_get_refuses_an_id_sqlite_cannot_hold(tmp_path):
 
 READER = textwrap.dedent("""
     import json, sys
-    from flatsight.analysis import inspection_log as log
+    from flatsight.analysis.records import log
     rows = log.query(sys.argv[1])
     print(json.dumps([[r["part"], r["verdict"]] for r in rows]))
 """)
