@@ -26,12 +26,13 @@ every key, ctrl+q quits.
 
 Every measurement is judged against --spec (or the preset's tolerance) and
 recorded in the inspection log, as flatsight measure records it: the default
-log, --log PATH, or none with --no-log. The part is --part, or else the photo's
-file stem (BW-FL-0412_hene.png is part BW-FL-0412_hene); the queue shows each
-part's verdict, P pass, F fail or I inconclusive (under --decision guarded: a
-figure within its uncertainty of a limit), bold for the measurement in hand and
-plain for the log's last. The figures view gives each figure with its expanded
-uncertainty U (k = 2).
+log (or the one station.toml names), --log PATH, a shared PostgreSQL log with
+--log postgresql://USER@HOST/DB, or none with --no-log. The part is --part, or
+else the photo's file stem (BW-FL-0412_hene.png is part BW-FL-0412_hene); the
+queue shows each part's verdict, P pass, F fail or I inconclusive (under
+--decision guarded: a figure within its uncertainty of a limit), bold for the
+measurement in hand and plain for the log's last. The figures view gives each
+figure with its expanded uncertainty U (k = 2).
 
 Settings changed in the station (wavelength, sign, terms, units) are remembered
 in station.toml in your user config folder, with --decision,

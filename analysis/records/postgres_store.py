@@ -11,13 +11,17 @@ log missing or older makes or migrates it inside one transaction holding an advi
 lock, so eight stations starting at once make it once; DDL is transactional in
 PostgreSQL, so a half-made schema is never seen. A database whose schema holds tables of
 another program is refused before anything in it is changed. Each record is one
-``INSERT`` in its own transaction. Readers open a read-only, repeatable-read transaction
+``INSERT`` in its own transaction, on a connection the process keeps open between
+records (a batch or a station does not log in again for every photo; one found dead is
+opened anew before anything is written). Readers open a read-only, repeatable-read transaction
 and never create or migrate anything, so a role granted only ``SELECT`` reads the log.
 """
 
 from __future__ import annotations
 
+import atexit
 import re
+import threading
 
 import psycopg
 from psycopg import errors as pg_errors
@@ -172,17 +176,52 @@ def _migrate(con: psycopg.Connection, location: DatabaseLocation) -> None:
             con.execute(f"UPDATE {VERSION_TABLE} SET version = %s", (SCHEMA_VERSION,))
 
 
+# this process's writing connections, by connection string; the lock also keeps two
+# threads (the station's workers) from using one connection at once
+_WRITERS: dict[str, psycopg.Connection] = {}
+_WRITERS_LOCK = threading.Lock()
+
+
+def _writer(location: DatabaseLocation, *, fresh: bool) -> psycopg.Connection:
+    con = _WRITERS.pop(location.conninfo, None)
+    if con is not None and (fresh or con.closed or con.broken):
+        con.close()
+        con = None
+    if con is None:
+        con = _connect(location)
+    _WRITERS[location.conninfo] = con
+    return con
+
+
+@atexit.register
+def _close_writers() -> None:
+    with _WRITERS_LOCK:
+        for con in _WRITERS.values():
+            con.close()
+        _WRITERS.clear()
+
+
 def write_row(location: DatabaseLocation, row: dict) -> int:
     """Write one record's columns in one transaction; its ``record_id``."""
     sql = (f"INSERT INTO inspections ({', '.join(row)}) "
            f"VALUES ({', '.join('%s' for _ in row)}) RETURNING record_id")
-    try:
-        with _connect(location) as con:
-            _migrate(con, location)
+    with _WRITERS_LOCK:
+        try:
+            con = _writer(location, fresh=False)
+            try:
+                _migrate(con, location)
+            except psycopg.OperationalError:
+                # a kept connection the server has since closed (a restart, an idle
+                # timeout): nothing was written on it, so open a new one and go on
+                con = _writer(location, fresh=True)
+                _migrate(con, location)
             with con.transaction():
                 return int(con.execute(sql, tuple(row.values())).fetchone()["record_id"])
-    except psycopg.Error as exc:  # the server gone, a role that may not write ...
-        raise _error(location, exc, reading=False) from None
+        except psycopg.Error as exc:  # the server gone, a role that may not write ...
+            dead = _WRITERS.pop(location.conninfo, None)
+            if dead is not None:
+                dead.close()
+            raise _error(location, exc, reading=False) from None
 
 
 def read_rows(location: DatabaseLocation, selection: Selection) -> list[dict]:

@@ -145,3 +145,28 @@ def test_presets_and_station_toml_name_the_shared_log(quick_measure, photo_set, 
     status, out, err = run_cli(capsys, "measure", photo, "--preset", "bench-2", "--presets",
                                presets, "--log", tmp_path / "local.sqlite")
     assert status == 2 and SECRET not in out + err and "~/.pgpass" in err
+
+
+def test_the_station_logs_to_and_reads_the_shared_log(postgres_server, postgres_log):
+    from flatsight.tui.station_log import StationRecorder, entry_options, read_log, record_result
+
+    right = postgres_log.replace("flatsight_admin@",
+                                 f"flatsight_admin:{postgres_server.passwords['flatsight_admin']}@")
+    recorder = StationRecorder(inspection_log.log_location(right), {"spec": "pv<=100nm"})
+    outcome = record_result(entry_options(recorder, None, "BW-FL-0412_hene.png"),
+                            {"photo": "BW-FL-0412_hene.png", "pv_nm": 40.0})
+    assert outcome.error is None and outcome.verdict == "pass"
+    rows, verdicts, note = read_log(recorder.log_path, parts=["BW-FL-0412_hene"])
+    assert note is None and verdicts == {"BW-FL-0412_hene": "pass"}
+    assert [r["record_id"] for r in rows] == [outcome.record_id]
+    postgres_server.stop()
+    try:
+        rows, verdicts, note = read_log(recorder.log_path)
+        lost = record_result(entry_options(recorder, None, "BW-FL-0413.png"),
+                             {"photo": "BW-FL-0413.png", "pv_nm": 140.0})
+    finally:
+        postgres_server.start()
+    assert rows == [] and "cannot be reached" in note
+    assert lost.verdict == "fail" and lost.record_id is None and "cannot be reached" in lost.error
+    secret = postgres_server.passwords["flatsight_admin"]
+    assert secret not in note + lost.error and "flatsight_admin@" in lost.error

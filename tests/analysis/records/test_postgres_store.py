@@ -234,3 +234,11 @@ def test_a_service_name_selects_the_database(postgres_server, postgres_log, tmp_
     monkeypatch.setenv("PGSERVICEFILE", str(services))
     rid = log.record_measurement("service=flatsight-shop", make_record(), part="BW-FL-0412")
     assert log.get(postgres_log, rid)["part"] == "BW-FL-0412"
+
+
+def test_a_kept_connection_lost_to_a_restart_is_opened_anew(postgres_server, postgres_log):
+    first = log.record_measurement(postgres_log, make_record(), part="BW-FL-0412")
+    postgres_server.stop()  # the connection this process kept for writing dies with it
+    postgres_server.start()
+    second = log.record_measurement(postgres_log, make_record(), part="BW-FL-0413")
+    assert [r["record_id"] for r in log.query(postgres_log)] == [second, first]
