@@ -38,7 +38,8 @@ height_type = whole_number_type("--height", 4, 500)
 
 def _log_option(p: argparse.ArgumentParser) -> None:
     p.add_argument("--log", metavar="PATH|URL", default=None, type=log_type,
-                   help=LOG_HELP.format(default="inspections.sqlite in the user data dir"))
+                   help=LOG_HELP.format(default="inspections.sqlite in the user data dir",
+                                        fallback="station.toml's 'log' if set"))
 
 
 def add_parser(subparsers) -> None:

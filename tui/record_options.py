@@ -102,8 +102,7 @@ spec_wavelength_type = number_type("--spec-wavelength (nm)", 100.0, 20000.0)
 LOG_HELP = (
     "inspection log: an SQLite file (default {default}), or a PostgreSQL database shared "
     "by several stations, postgresql://USER@HOST[:PORT]/DB or service=NAME (the password "
-    "from ~/.pgpass, PGPASSWORD or a service file); without --log, the preset's log or "
-    "station.toml's 'log' if set"
+    "from ~/.pgpass, PGPASSWORD or a service file); without --log, {fallback}"
 )
 
 
@@ -142,7 +141,9 @@ def add_record_options(parser: argparse.ArgumentParser) -> None:
                             "form, from its calibration certificate (default 0); it enters "
                             "every figure's U")
     group.add_argument("--log", metavar="PATH|URL", default=None, type=log_type,
-                       help=LOG_HELP.format(default=default_log_path()))
+                       help=LOG_HELP.format(default=default_log_path(),
+                                            fallback="the preset's log or station.toml's "
+                                                     "'log' if set"))
     group.add_argument("--no-log", action="store_true", help="do not record this measurement")
     group.add_argument("--part", metavar="ID", default=None, help="part serial, e.g. BW-FL-0412")
     group.add_argument("--operator", metavar="NAME", default=None,
