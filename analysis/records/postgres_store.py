@@ -11,7 +11,7 @@ log missing or older makes or migrates it inside one transaction holding an advi
 lock, so eight stations starting at once make it once; DDL is transactional in
 PostgreSQL, so a half-made schema is never seen. A database whose schema holds tables of
 another program is refused before anything in it is changed. Each record is one
-``INSERT`` in its own transaction, on a connection the process keeps open between
+``INSERT`` statement, its own transaction, on a connection the process keeps open between
 records (a batch or a station does not log in again for every photo; one found dead is
 opened anew before anything is written). Readers open a read-only, repeatable-read transaction
 and never create or migrate anything, so a role granted only ``SELECT`` reads the log.
@@ -163,6 +163,12 @@ def _schema_version(con: psycopg.Connection, location: DatabaseLocation) -> int:
 
 def _migrate(con: psycopg.Connection, location: DatabaseLocation) -> None:
     """Make the log or bring it up to :data:`SCHEMA_VERSION`, once for all writers."""
+    try:  # the usual case, in one round trip: a log of this version
+        found = con.execute(f"SELECT version FROM {VERSION_TABLE}").fetchall()
+        if [r["version"] for r in found] == [SCHEMA_VERSION]:
+            return
+    except pg_errors.UndefinedTable:
+        pass  # no log yet, or another program's database: looked at below
     if _schema_version(con, location) == SCHEMA_VERSION:
         return
     with con.transaction():
@@ -201,10 +207,20 @@ def _close_writers() -> None:
         _WRITERS.clear()
 
 
+# the columns that are not text (the parameters of an INSERT ... SELECT need their type)
+_NUMBERS = {"wavelength_nm", *FIGURE_COLUMNS}
+
+
 def write_row(location: DatabaseLocation, row: dict) -> int:
-    """Write one record's columns in one transaction; its ``record_id``."""
-    sql = (f"INSERT INTO inspections ({', '.join(row)}) "
-           f"VALUES ({', '.join('%s' for _ in row)}) RETURNING record_id")
+    """Write one record's columns in one statement, its own transaction; its ``record_id``.
+
+    The ``INSERT`` inserts only while the log is still at :data:`SCHEMA_VERSION`, so a
+    newer Flatsight migrating the log between the check and the write loses nothing and
+    gets no row of the old shape.
+    """
+    values = ", ".join(f"%s::{'double precision' if c in _NUMBERS else 'text'}" for c in row)
+    sql = (f"INSERT INTO inspections ({', '.join(row)}) SELECT {values} "
+           f"WHERE (SELECT version FROM {VERSION_TABLE}) = %s RETURNING record_id")
     with _WRITERS_LOCK:
         try:
             con = _writer(location, fresh=False)
@@ -215,8 +231,12 @@ def write_row(location: DatabaseLocation, row: dict) -> int:
                 # timeout): nothing was written on it, so open a new one and go on
                 con = _writer(location, fresh=True)
                 _migrate(con, location)
-            with con.transaction():
-                return int(con.execute(sql, tuple(row.values())).fetchone()["record_id"])
+            found = con.execute(sql, (*row.values(), SCHEMA_VERSION)).fetchone()
+            if found is None:  # migrated since the check: say by whom
+                _schema_version(con, location)
+                raise InspectionLogError(f"{location}: its schema changed while the record "
+                                         "was written; nothing was written, try again")
+            return int(found["record_id"])
         except psycopg.Error as exc:  # the server gone, a role that may not write ...
             dead = _WRITERS.pop(location.conninfo, None)
             if dead is not None:

@@ -126,9 +126,12 @@ def _schema_version(con: sqlite3.Connection, log_path: Path) -> int:
     Only reads: a database that is not a Flatsight log, or one from a newer Flatsight, is
     refused before anything in it is changed.
     """
-    version = con.execute("PRAGMA user_version").fetchone()[0]
+    # the tables before the version: a writer making the log commits both at once, so a
+    # log seen with tables is then seen with its version (the other order could catch
+    # version 0 and then the tables another process had just made)
     tables = {row[0] for row in con.execute(
         "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%'")}
+    version = con.execute("PRAGMA user_version").fetchone()[0]
     if version == 0 and not tables:
         return 0
     columns = {row[1] for row in con.execute("PRAGMA table_info(inspections)")}

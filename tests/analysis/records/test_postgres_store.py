@@ -1,16 +1,12 @@
 """The PostgreSQL store of the inspection log, against a real server started for the tests.
 
-Round trips, filters, eight writers making the schema at once, migrations, another
-program's database and a newer log refused untouched, passwords never shown.
+Round trips, filters, migrations, another program's database and a newer log refused
+untouched, a read-only role, passwords never shown (eight writers at once: test_log.py).
 """
 
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
-import textwrap
-import time
 
 import pytest
 from flatsight.analysis.errors import InspectionLogError, SettingsError
@@ -77,43 +73,6 @@ def test_an_empty_database_holds_no_records_and_reading_makes_nothing(postgres_s
     db = postgres_log.rsplit("/", 1)[1]
     assert postgres_server.admin("SELECT count(*) FROM pg_tables WHERE schemaname = 'public'",
                                  database=db) == [(0,)]
-
-
-WRITER = textwrap.dedent("""
-    import sys, time
-    from flatsight.analysis.records import log
-    url, name, count, start_at = sys.argv[1], sys.argv[2], int(sys.argv[3]), float(sys.argv[4])
-    record = {"photo": "x.png", "wavelength_nm": 632.8, "pv_nm": 1.0,
-              "zernike": {"ordering": "noll", "coefficients_nm": [0.5] * 36}}
-    time.sleep(max(0.0, start_at - time.time()))  # every writer finds the database empty
-    for i in range(count):
-        rid = log.record_measurement(url, {**record, "photo": f"{name}-{i}.png"},
-                                     part=f"{name}-{i}", operator="Ruben Halloway", station=name)
-        print(rid, flush=True)
-""")
-
-
-def test_eight_writers_starting_at_once_make_the_log_once_and_lose_nothing(postgres_server,
-                                                                         postgres_log):
-    writers, count = 8, 25
-    start_at = time.time() + 4.0  # after every interpreter has started
-    procs = [subprocess.Popen([sys.executable, "-c", WRITER, postgres_log, f"bench-{w}",
-                               str(count), str(start_at)],
-                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-             for w in range(writers)]
-    acknowledged = []
-    for p in procs:
-        out, err = p.communicate(timeout=240)
-        assert p.returncode == 0, err  # nobody tripped over another's CREATE TABLE
-        acknowledged += [int(x) for x in out.split()]
-    rows = log.query(postgres_log)
-    assert len(rows) == writers * count
-    assert sorted(r["record_id"] for r in rows) == sorted(acknowledged)
-    assert {r["part"] for r in rows} == {f"bench-{w}-{i}" for w in range(writers)
-                                         for i in range(count)}
-    db = postgres_log.rsplit("/", 1)[1]
-    assert postgres_server.admin("SELECT version FROM flatsight_log_schema",
-                                 database=db) == [(log.SCHEMA_VERSION,)]
 
 
 def version_1_log(server, url):
