@@ -13,6 +13,7 @@ The file holds one table per preset under ``presets``::
     decision = "guarded"             # or "simple" (ISO 14253-1; see tolerances.py)
     wavelength_uncertainty_nm = 0.0  # standard uncertainty of the wavelength (k = 1)
     reference_uncertainty_nm = 6.0   # the reference flat's own, expanded (k = 2)
+    log = "postgresql://flatsight_station@qa-server/flatsight"  # the shop's shared log
 
 Every key is optional; an unknown key is an error (a misspelt key would otherwise be
 silently ignored and the part measured with the wrong settings).
@@ -34,6 +35,7 @@ from dataclasses import dataclass, fields
 from pathlib import Path
 
 from .errors import SettingsError
+from .records.log import check_named_log
 from .tolerances import DECISION_RULES, parse_tolerance
 
 __all__ = ["Preset", "PresetsFile", "default_presets_path", "get_preset", "load_presets",
@@ -55,6 +57,7 @@ class Preset:
     decision: str | None = None
     wavelength_uncertainty_nm: float | None = None
     reference_uncertainty_nm: float | None = None
+    log: str | None = None
 
 
 _KEYS = tuple(f.name for f in fields(Preset) if f.name != "name")
@@ -108,6 +111,8 @@ def _preset(path: Path, name: str, table) -> Preset:
     for key in ("tolerance", "operator", "station", "decision"):
         if key in table:
             values[key] = _text(path, name, key, table[key])
+    if "log" in table:  # a path or a URL, never with a password in it
+        values["log"] = check_named_log(f"{path}: preset {name!r}", table["log"])
     if values.get("decision", "simple") not in DECISION_RULES:
         raise SettingsError(f"{path}: preset {name!r}: decision must be "
                             f"{' or '.join(repr(r) for r in DECISION_RULES)}, "

@@ -6,6 +6,7 @@ they come from ``analysis/synthetic.py``, the same generator the accuracy table 
 
 from __future__ import annotations
 
+import itertools
 import os
 import shutil
 import struct
@@ -205,3 +206,38 @@ def quick_measure(measured, monkeypatch):
     # the stand-in lives in this process: a batch measures one photo at a time here, as
     # with --jobs 1, instead of in worker processes that would run the real analysis
     monkeypatch.setattr("flatsight.tui.parallel.available_cores", lambda: 1)
+
+
+# --- a real PostgreSQL server for the shared inspection log ---------------------------------
+
+# set by .ci/run: there a missing server is a failure, never a quiet skip
+REQUIRE_POSTGRES = "FLATSIGHT_REQUIRE_POSTGRES"
+
+
+@pytest.fixture(scope="session")
+def postgres_server():
+    """A PostgreSQL server started for this test run (see tests/postgres_server.py).
+
+    Skips with the reason where none can be had, unless ``FLATSIGHT_REQUIRE_POSTGRES``
+    is set (CI), where that fails the tests instead.
+    """
+    from postgres_server import ServerUnavailable, start_server
+
+    try:
+        server = start_server()
+    except ServerUnavailable as exc:
+        if os.environ.get(REQUIRE_POSTGRES):
+            pytest.fail(f"{REQUIRE_POSTGRES} is set but no PostgreSQL server could be "
+                        f"started: {exc}")
+        pytest.skip(f"no PostgreSQL server could be started: {exc}")
+    yield server
+    server.close()
+
+
+@pytest.fixture
+def postgres_log(postgres_server):
+    """The URL of a new, empty database on the test server (no password in it)."""
+    return postgres_server.create_database(f"log_{next(_DATABASES)}")
+
+
+_DATABASES = itertools.count(1)

@@ -26,12 +26,13 @@ every key, ctrl+q quits.
 
 Every measurement is judged against --spec (or the preset's tolerance) and
 recorded in the inspection log, as flatsight measure records it: the default
-log, --log PATH, or none with --no-log. The part is --part, or else the photo's
-file stem (BW-FL-0412_hene.png is part BW-FL-0412_hene); the queue shows each
-part's verdict, P pass, F fail or I inconclusive (under --decision guarded: a
-figure within its uncertainty of a limit), bold for the measurement in hand and
-plain for the log's last. The figures view gives each figure with its expanded
-uncertainty U (k = 2).
+log (or the one station.toml names), --log PATH, a shared PostgreSQL log with
+--log postgresql://USER@HOST/DB, or none with --no-log. The part is --part, or
+else the photo's file stem (BW-FL-0412_hene.png is part BW-FL-0412_hene); the
+queue shows each part's verdict, P pass, F fail or I inconclusive (under
+--decision guarded: a figure within its uncertainty of a limit), bold for the
+measurement in hand and plain for the log's last. The figures view gives each
+figure with its expanded uncertainty U (k = 2).
 
 Settings changed in the station (wavelength, sign, terms, units) are remembered
 in station.toml in your user config folder, with --decision,
@@ -176,7 +177,7 @@ def run(args: argparse.Namespace) -> int:
     except SettingsError as exc:
         print(f"flatsight inspect: error: {shown(exc)}", file=sys.stderr)
         return 2
-    from .record_options import apply_preset, log_path_from_args, tolerance_from_args
+    from .record_options import apply_preset, log_location_from_args, tolerance_from_args
     from .station_log import OPTION_KEYS, StationRecorder
 
     presets_file = Path(args.presets) if args.presets else None
@@ -193,7 +194,8 @@ def run(args: argparse.Namespace) -> int:
             # the preset fills the measuring options this command line left unset
             settings = settings_from_args(apply_preset(args, preset=chosen), remembered)
         tolerance_from_args(args)  # a malformed --spec fails here, pointing at the character
-        recorder = StationRecorder(log_path_from_args(args),
+        # the log is the command line's, else the preset's, else station.toml's
+        recorder = StationRecorder(log_location_from_args(apply_preset(args, preset=chosen)),
                                    {k: getattr(args, k) for k in OPTION_KEYS})
     except SettingsError as exc:
         print(f"flatsight inspect: error: {shown(exc)}", file=sys.stderr)

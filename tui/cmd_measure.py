@@ -154,7 +154,12 @@ def run(args: argparse.Namespace) -> int:
     from .multi_options import check_multi_options, combine_with_sections
     from .options import save_map, worst_status
     from .parallel import available_cores, measure_in_parallel
-    from .record_options import apply_preset, judge_and_log, tolerance_from_args
+    from .record_options import (
+        apply_preset,
+        judge_and_log,
+        log_location_from_args,
+        tolerance_from_args,
+    )
     from .report_text import Reporter
 
     err = sys.stderr
@@ -175,6 +180,7 @@ def run(args: argparse.Namespace) -> int:
                                 "632.8 or hene for a He-Ne laser) or a preset that sets it")
         a.wavelength = wavelength_type(str(a.wavelength))
         tolerance_from_args(a)  # a malformed tolerance fails before the photo is measured
+        log_location_from_args(a)  # so does a malformed log location
         return a, _settings(a)
 
     per_photo = bool(args.presets and not args.preset)
@@ -219,6 +225,7 @@ def run(args: argparse.Namespace) -> int:
                         ordering=args.ordering)
 
     log_failed = False  # after the log refused a record, the rest are shown unlogged
+    unlogged: list[str] = []  # the photos whose results are shown but not in the log
 
     def report(item, photo: str, opts: argparse.Namespace, part_of: str) -> int:
         """Record, save, judge and print one result; returns its exit status.
@@ -238,6 +245,7 @@ def run(args: argparse.Namespace) -> int:
             map_error = save_map(m, target)
             if map_error is None:
                 record["height_map_path"] = str(Path(target).resolve())
+        wanted = not opts.no_log  # this result belongs in the log
         if log_failed:
             opts = argparse.Namespace(**{**vars(opts), "no_log": True})
         record, verdict_status, log_error = judge_and_log(opts, record)
@@ -254,7 +262,9 @@ def run(args: argparse.Namespace) -> int:
             progress.pause()
             print(f"flatsight measure: cannot write the log: {shown(log_error)}; results "
                   "from here on are shown but not logged (free the log or give another "
-                  "--log PATH, or --no-log)", file=err)
+                  "--log, or --no-log)", file=err)
+        if wanted and "record_id" not in record:
+            unlogged.append(Path(photo).name)
             verdict_status = 2
         return Shown(record, m, verdict_status)
 
@@ -368,4 +378,7 @@ def run(args: argparse.Namespace) -> int:
         except (UnreadablePhotoError, UnanalysablePhotoError, SettingsError) as exc:
             status = worst_status(status, one_line(exc, name))
     reporter.finish()
+    if unlogged:  # every one of them was shown; say which the log does not hold
+        print(f"flatsight measure: not logged ({len(unlogged)}): "
+              f"{shown(', '.join(unlogged))}", file=err)
     return status

@@ -20,7 +20,7 @@ from pathlib import Path
 from ..analysis.errors import FlatsightError, SettingsError
 from ..analysis.formatting import format_number
 from .options import count_type, whole_number_type
-from .record_options import log_path_type
+from .record_options import LOG_HELP, log_type
 from .safe_text import csv_row, literal, shown
 
 __all__ = ["add_parser", "run", "run_history", "run_report", "run_trend", "trend_lines"]
@@ -42,8 +42,9 @@ height_type = whole_number_type("--height", 4, 500)
 
 
 def _log_option(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
-                   help="inspection log (default: inspections.sqlite in the user data dir)")
+    p.add_argument("--log", metavar="PATH|URL", default=None, type=log_type,
+                   help=LOG_HELP.format(default="inspections.sqlite in the user data dir",
+                                        fallback="station.toml's 'log' if set"))
 
 
 def add_parser(subparsers) -> None:
@@ -127,10 +128,11 @@ def run(args: argparse.Namespace) -> int:
     return commands[args.records_command](args)
 
 
-def _log_path(args: argparse.Namespace) -> Path:
-    from ..analysis.inspection_log import default_log_path
+def _log_path(args: argparse.Namespace):
+    """The log to read: ``--log``, else station.toml's ``log``, else the default file."""
+    from .record_options import log_location_from_args
 
-    return Path(args.log).expanduser() if args.log else default_log_path()
+    return log_location_from_args(args)
 
 
 def _fail(command: str, exc: FlatsightError) -> int:
@@ -185,7 +187,7 @@ def _cell(value, digits: int = 1) -> str:
 
 def run_history(args: argparse.Namespace) -> int:
     """``flatsight history``: the log's records, newest first."""
-    from ..analysis.inspection_log import query
+    from ..analysis.records.log import query
 
     try:
         rows = query(_log_path(args), part=args.part, since=args.since, verdict=args.verdict,
@@ -359,7 +361,7 @@ def _limits_for(rec: dict, figure: str) -> tuple[list[float], str]:
 def limited_figure(rows: list[dict], figures=TREND_FIGURES) -> str:
     """The figure the newest record's tolerance limits first (power for ISO 3/A(B)), else PVr.
 
-    ``rows`` newest first, as :func:`~flatsight.analysis.inspection_log.query` gives them.
+    ``rows`` newest first, as :func:`~flatsight.analysis.records.log.query` gives them.
     """
     for row in rows:
         for limit in (row.get("spec") or {}).get("limits", []):
@@ -370,7 +372,7 @@ def limited_figure(rows: list[dict], figures=TREND_FIGURES) -> str:
 
 def run_trend(args: argparse.Namespace) -> int:
     """``flatsight trend``: one figure over time, its tolerance line, the pass rate."""
-    from ..analysis.inspection_log import query
+    from ..analysis.records.log import query
 
     try:
         rows = query(_log_path(args), part=args.part, since=args.since)
@@ -452,12 +454,16 @@ def _wrote(out: Path, rec: dict, record_id, which: str) -> str:
 def run_report(args: argparse.Namespace) -> int:
     """``flatsight report``: certificates (PDF, HTML) or the map (PNG) of logged records."""
     from ..analysis.atomic import atomic_write_bytes
-    from ..analysis.inspection_log import get, query
+    from ..analysis.records.log import get, query
 
-    log = _log_path(args)
+    try:
+        log = _log_path(args)
+    except FlatsightError as exc:
+        return _fail("report", exc)
     # say what the certificate was made from: a record read from the wrong log, or an
-    # old record of the same part, is then seen at once
-    which = f"{log}" if args.log else f"{log} (the default log; --log PATH for another)"
+    # old record of the same part, is then seen at once (a database without its password)
+    which = f"{log}" if args.log else f"{log} (the default log; --log for another)"
+    log_name = str(log.resolve()) if isinstance(log, Path) else str(log)
     selecting = [f"--{n}" for n in ("part", "since", "verdict")
                  if getattr(args, n) is not None]
     if args.output_dir is None:
@@ -477,7 +483,7 @@ def run_report(args: argparse.Namespace) -> int:
                 "or FILE.png"))
         try:
             rec = get(log, args.record_id)
-            atomic_write_bytes(out, _certificate_bytes(rec, suffix, log=str(log.resolve()),
+            atomic_write_bytes(out, _certificate_bytes(rec, suffix, log=log_name,
                                                        paper=args.paper))
         except FlatsightError as exc:
             return _fail("report", exc)
@@ -507,7 +513,7 @@ def run_report(args: argparse.Namespace) -> int:
     for rec in reversed(rows):  # oldest first, as they were logged
         out = folder / _file_name(rec, suffix)
         try:
-            atomic_write_bytes(out, _certificate_bytes(rec, suffix, log=str(log.resolve()),
+            atomic_write_bytes(out, _certificate_bytes(rec, suffix, log=log_name,
                                                        paper=args.paper))
         except OSError as exc:
             print(f"flatsight report: error: cannot write {shown(out)}: "

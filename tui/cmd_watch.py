@@ -498,7 +498,7 @@ def run(args: argparse.Namespace) -> int:
     folder, or when a result could not be logged or its map written."""
     from ..analysis.errors import SettingsError
     from .parallel import available_cores
-    from .record_options import apply_preset, log_path_from_args, tolerance_from_args
+    from .record_options import apply_preset, log_location_from_args, tolerance_from_args
 
     try:
         args = apply_preset(args)
@@ -515,6 +515,7 @@ def run(args: argparse.Namespace) -> int:
         if args.wavelength is not None:
             args.wavelength = wavelength_type(str(args.wavelength))
         tolerance_from_args(args)
+        log_path = log_location_from_args(args)
         folder = Path(args.folder).expanduser()
         if not folder.is_dir():
             raise SettingsError(f"{folder} is not a folder: give the folder the camera "
@@ -537,7 +538,6 @@ def run(args: argparse.Namespace) -> int:
         print(f"flatsight watch: error: {shown(exc)}", file=sys.stderr)
         return 2
 
-    log_path = log_path_from_args(args)
     workers = args.jobs or available_cores()
     tally = Tally()
     start = clock()

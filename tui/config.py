@@ -8,11 +8,13 @@ from dataclasses import dataclass, fields, replace
 from pathlib import Path
 
 from ..analysis.atomic import atomic_write_text
-from ..analysis.errors import SettingsError
+from ..analysis.errors import InspectionLogError, SettingsError
+from ..analysis.records.log import check_named_log
 from ..analysis.tolerances import DECISION_RULES
 
 __all__ = [
     "StationSettings",
+    "configured_log",
     "default_config_path",
     "load_settings",
     "save_settings",
@@ -52,6 +54,10 @@ class StationSettings:
         Standard uncertainty (k = 1) of the test wavelength, nm.
     reference_uncertainty_nm : float
         Expanded uncertainty (k = 2) of the reference flat's form, nm.
+    log : str or None
+        The inspection log every command uses when not given ``--log``: an SQLite path
+        or a PostgreSQL URL (never with a password in it); None: the default file.
+        Written in the file by hand; the settings screen keeps it as it is.
     """
 
     wavelength_nm: float = 632.8
@@ -64,6 +70,7 @@ class StationSettings:
     decision: str = "simple"
     wavelength_uncertainty_nm: float = 0.0
     reference_uncertainty_nm: float = 0.0
+    log: str | None = None
 
 
 def validate(s: StationSettings) -> StationSettings:
@@ -96,6 +103,8 @@ def validate(s: StationSettings) -> StationSettings:
         if not (math.isfinite(value) and 0.0 <= value <= MAX_UNCERTAINTY_NM):
             raise SettingsError(f"{what} {value:g} nm is out of range; give 0 to "
                                 f"{MAX_UNCERTAINTY_NM:g} nm")
+    if s.log is not None:
+        check_named_log("station.toml", s.log)
     return s
 
 
@@ -177,6 +186,36 @@ def load_settings(path: Path | None = None) -> tuple[StationSettings, str | None
         return settings_from_toml(text), None
     except SettingsError as exc:
         return StationSettings(), f"{path}: {exc}; using defaults"
+
+
+def configured_log(path: str | Path | None = None) -> str | None:
+    """The ``log`` that station.toml (or ``path``) names, or None when it names none.
+
+    Unlike :func:`load_settings`, a file that cannot be read is an error here, not a
+    note: records sent to the default log instead of the shop's shared one would be
+    missed by everyone who reads the shared one.
+
+    Raises
+    ------
+    InspectionLogError
+        The file cannot be read or parsed, or its ``log`` is not usable.
+    """
+    path = default_config_path() if path is None else Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        return None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InspectionLogError(f"{path}: cannot read it to find the log ({exc}); fix it "
+                                 "or give --log") from None
+    try:
+        table = tomllib.loads(text).get("station", {})
+    except tomllib.TOMLDecodeError as exc:
+        raise InspectionLogError(f"{path} is not valid TOML ({exc}), so the log it names "
+                                 "is unknown: fix it or give --log") from None
+    if "log" not in table:
+        return None
+    return check_named_log(str(path), table["log"])
 
 
 def save_settings(s: StationSettings, path: Path | None = None) -> Path:

@@ -22,8 +22,15 @@ import getpass
 import socket
 from pathlib import Path
 
-from ..analysis.errors import InspectionLogError
-from ..analysis.inspection_log import default_log_path, record_measurement, utc_now
+from ..analysis.errors import InspectionLogError, SettingsError
+from ..analysis.records.log import (
+    DatabaseLocation,
+    LogLocation,
+    default_log_path,
+    log_location,
+    record_measurement,
+    utc_now,
+)
 from ..analysis.tolerances import (
     DECISION_RULES,
     Tolerance,
@@ -43,8 +50,9 @@ __all__ = [
     "decision_from_args",
     "finish_record",
     "judge_and_log",
-    "log_path_type",
-    "log_path_from_args",
+    "LOG_HELP",
+    "log_type",
+    "log_location_from_args",
     "tolerance_from_args",
     "uncertainty_settings",
 ]
@@ -63,6 +71,7 @@ PRESET_TO_OPTION = {
     "decision": "decision",
     "wavelength_uncertainty_nm": "wavelength_uncertainty",
     "reference_uncertainty_nm": "reference_uncertainty",
+    "log": "log",
 }
 
 SPEC_HELP = (
@@ -90,11 +99,26 @@ VERDICT_STATUS = {"pass": 0, "fail": 1, "inconclusive": 5}
 spec_wavelength_type = number_type("--spec-wavelength (nm)", 100.0, 20000.0)
 
 
-def log_path_type(text: str) -> str:
-    """``--log PATH``: a path, never empty (an empty one would quietly mean the default)."""
+LOG_HELP = (
+    "inspection log: an SQLite file (default {default}), or a PostgreSQL database shared "
+    "by several stations, postgresql://USER@HOST[:PORT]/DB or service=NAME (the password "
+    "from ~/.pgpass, PGPASSWORD or a service file); without --log, {fallback}"
+)
+
+
+def log_type(text: str) -> Path | DatabaseLocation:
+    """``--log PATH|URL``: never empty (an empty one would quietly mean the default).
+
+    A database URL is checked here, so a malformed one fails before any photo; the
+    message shows it without its password.
+    """
     if not text.strip():
-        raise argparse.ArgumentTypeError("needs a file path, not an empty one")
-    return text
+        raise argparse.ArgumentTypeError("needs a file path or a postgresql:// URL, not an "
+                                         "empty one")
+    try:
+        return log_location(text)
+    except SettingsError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def add_record_options(parser: argparse.ArgumentParser) -> None:
@@ -116,8 +140,10 @@ def add_record_options(parser: argparse.ArgumentParser) -> None:
                        help="expanded uncertainty (k = 2) in nm of the reference flat's own "
                             "form, from its calibration certificate (default 0); it enters "
                             "every figure's U")
-    group.add_argument("--log", metavar="PATH", default=None, type=log_path_type,
-                       help=f"inspection log (SQLite; default {default_log_path()})")
+    group.add_argument("--log", metavar="PATH|URL", default=None, type=log_type,
+                       help=LOG_HELP.format(default=default_log_path(),
+                                            fallback="the preset's log or station.toml's "
+                                                     "'log' if set"))
     group.add_argument("--no-log", action="store_true", help="do not record this measurement")
     group.add_argument("--part", metavar="ID", default=None, help="part serial, e.g. BW-FL-0412")
     group.add_argument("--operator", metavar="NAME", default=None,
@@ -178,12 +204,23 @@ def uncertainty_settings(args: argparse.Namespace) -> dict:
     }
 
 
-def log_path_from_args(args: argparse.Namespace) -> Path | None:
-    """Where to log: ``--log``, the default path, or None with ``--no-log``."""
+def log_location_from_args(args: argparse.Namespace) -> LogLocation | None:
+    """Where the log is: ``--log`` (or the preset's ``log``), else the ``log`` that
+    station.toml names, else the default SQLite file; None with ``--no-log``.
+
+    Raises
+    ------
+    SettingsError
+        A malformed location, or a station.toml that cannot be read.
+    """
     if getattr(args, "no_log", False):
         return None
     given = getattr(args, "log", None)
-    return Path(given).expanduser() if given else default_log_path()
+    if not given:
+        from .config import configured_log
+
+        given = configured_log(getattr(args, "config", None))
+    return log_location(given)
 
 
 def _default_operator() -> str | None:
@@ -223,14 +260,14 @@ def finish_record(args: argparse.Namespace, record: dict) -> tuple[dict, int]:
     out["operator"] = getattr(args, "operator", None) or _default_operator()
     out["station"] = getattr(args, "station", None) or socket.gethostname() or None
     out["logged_utc"] = utc_now()
-    path = log_path_from_args(args)
-    if path is not None:
+    location = log_location_from_args(args)
+    if location is not None:
         try:
             out["record_id"] = record_measurement(
-                path, out, part=out["part"], operator=out["operator"], station=out["station"],
-                logged_utc=out["logged_utc"])
+                location, out, part=out["part"], operator=out["operator"],
+                station=out["station"], logged_utc=out["logged_utc"])
         except OSError as exc:
-            raise InspectionLogError(f"{path}: {exc.strerror or exc}") from None
+            raise InspectionLogError(f"{location}: {exc.strerror or exc}") from None
     return out, status
 
 

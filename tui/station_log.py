@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..analysis.errors import FlatsightError
+from ..analysis.records.log import LogLocation
 
 __all__ = [
     "LogOutcome",
@@ -34,15 +35,15 @@ class StationRecorder:
 
     Attributes
     ----------
-    log_path : Path or None
-        The SQLite inspection log; None records nothing (``--no-log``), but tolerances
-        are still judged.
+    log_path : Path, DatabaseLocation or None
+        The inspection log (an SQLite file or a PostgreSQL database); None records
+        nothing (``--no-log``), but tolerances are still judged.
     options : dict
         ``spec``, ``spec_wavelength``, ``decision``, ``part``, ``operator``, ``station``
         from the command line (None: unset, so a preset may fill it).
     """
 
-    log_path: Path | None = None
+    log_path: LogLocation | None = None
     options: dict = field(default_factory=dict)
 
 
@@ -66,7 +67,7 @@ def entry_options(recorder: StationRecorder, preset, photo: str | Path) -> argpa
 
     base = argparse.Namespace(
         **{k: recorder.options.get(k) for k in OPTION_KEYS},
-        log=None if recorder.log_path is None else str(recorder.log_path),
+        log=recorder.log_path,
         no_log=recorder.log_path is None,
         preset=None,
         presets=None,
@@ -97,7 +98,7 @@ def record_result(options: argparse.Namespace, record: dict) -> LogOutcome:
     return LogOutcome(out, spec.get("verdict"), out.get("record_id"), error)
 
 
-def read_log(log_path: Path | None, *, parts=(), limit: int = 2000):
+def read_log(log_path: LogLocation | None, *, parts=(), limit: int = 2000):
     """The log's newest ``limit`` records, each queue part's last verdict, and a note.
 
     Returns ``(rows, verdicts, note)``: rows newest first; ``verdicts`` maps each of
@@ -107,9 +108,9 @@ def read_log(log_path: Path | None, *, parts=(), limit: int = 2000):
     """
     if log_path is None:
         return [], {}, "not logging (--no-log): no history to show"
-    if not Path(log_path).exists():
+    if isinstance(log_path, Path) and not log_path.exists():
         return [], {}, f"no records yet in {log_path}"
-    from ..analysis.inspection_log import query
+    from ..analysis.records.log import query
 
     try:
         rows = query(log_path, limit=limit)

@@ -109,7 +109,7 @@ def test_record_keeping_modules_stay_free_of_the_terminal_libraries():
     import sys
 
     code = ("import sys\n"
-            "import flatsight.analysis.tolerances, flatsight.analysis.inspection_log\n"
+            "import flatsight.analysis.tolerances, flatsight.analysis.records.log\n"
             "import flatsight.analysis.presets, flatsight.analysis.certificate\n"
             "print(sorted(m for m in sys.modules if m.split('.')[0] in ('rich', 'textual')))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,

@@ -57,8 +57,8 @@ sys.exit(cli.main(sys.argv[1:]))
 def test_a_stopped_write_leaves_no_temporary_file(measured, tmp_path):
     import signal
 
-    from flatsight.analysis.inspection_log import record_measurement
     from flatsight.analysis.record import measurement_to_record
+    from flatsight.analysis.records.log import record_measurement
 
     log = tmp_path / "log.sqlite"
     record_measurement(log, measurement_to_record(measured), part="BW-FL-0412")

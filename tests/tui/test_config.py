@@ -9,6 +9,7 @@ import pytest
 from flatsight.analysis.errors import SettingsError
 from flatsight.tui.config import (
     StationSettings,
+    configured_log,
     load_settings,
     save_settings,
     settings_from_toml,
@@ -137,3 +138,26 @@ def test_heights_in_waves_and_fringes():
     assert fmt_height(-12.34, "nm", 632.8, signed=True) == "-12.3 nm"
     assert fmt_height(float("nan"), "nm", 632.8) == "—"
     assert [next_units(u) for u in ("nm", "waves", "fringes")] == ["waves", "fringes", "nm"]
+
+
+def test_a_station_toml_that_cannot_be_read_stops_a_command_rather_than_log_elsewhere(
+        tmp_path, monkeypatch, capsys):
+    from flatsight.tui.cli import main
+
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path))
+    config = tmp_path / "flatsight" / "station.toml"
+    config.parent.mkdir()
+    config.write_text('[station\nlog = "postgresql://flatsight_station@qa-server/flatsight"\n')
+    assert main(["history"]) == 2
+    err = capsys.readouterr().err
+    assert "not valid TOML" in err and "give --log" in err and len(err.splitlines()) == 1
+    log = tmp_path / "local.sqlite"  # --log still works, the file aside
+    assert main(["history", "--log", str(log)]) == 2
+    assert "no inspection log at" in capsys.readouterr().err
+    config.write_text('[station]\nlog = "postgresql://flatsight_station@qa-server/flatsight"\n')
+    assert configured_log() == "postgresql://flatsight_station@qa-server/flatsight"
+    settings, note = load_settings(config)
+    assert note is None and settings.log == configured_log()
+    # the settings screen writes the file anew: the log the shop set stays in it
+    save_settings(settings, config)
+    assert configured_log() == "postgresql://flatsight_station@qa-server/flatsight"

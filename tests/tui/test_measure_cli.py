@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from cli_interrupt import interrupt_once_logged
-from flatsight.analysis import inspection_log
+from flatsight.analysis.records import log as inspection_log
 from flatsight.tui.cli import main
 from PIL import Image
 
@@ -45,6 +45,18 @@ def assert_one_line_error(err: str, *words: str) -> str:
     assert len(lines) == 1, f"expected one line on stderr, got {len(lines)}:\n{err}"
     for word in words:
         assert word in lines[0], (word, lines[0])
+    return lines[0]
+
+
+def assert_log_refused(err: str, unlogged: list[str], *words: str) -> str:
+    """stderr of a batch the log refused: the reason once, then the photos not logged."""
+    assert "Traceback" not in err
+    lines = err.strip().splitlines()
+    assert len(lines) == 2, f"expected the reason and the unlogged photos, got:\n{err}"
+    assert "cannot write the log" in lines[0]
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert lines[1] == f"flatsight measure: not logged ({len(unlogged)}): {', '.join(unlogged)}"
     return lines[0]
 
 
@@ -317,7 +329,7 @@ def test_a_folder_as_the_log_still_shows_every_result(mode, quick_measure, photo
     flags = [mode] if mode != "table" else []
     status, out, err = run_cli(capsys, "measure", *photos, *W, "--log", tmp_path, *flags)
     assert status == 2
-    line = assert_one_line_error(err, "cannot write the log", "is a folder")
+    line = assert_log_refused(err, [p.name for p in photos], "is a folder")
     assert "internal error" not in line
     if mode == "--json":
         records = json_lines(out)
@@ -331,7 +343,7 @@ def test_a_folder_as_the_log_still_shows_every_result(mode, quick_measure, photo
 def test_a_full_disk_mid_batch_still_shows_every_result(quick_measure, photo_set, tmp_path,
                                                        capsys, monkeypatch):
 
-    from flatsight.analysis import inspection_log
+    from flatsight.analysis.records import log as inspection_log
 
     photos = three_photos(tmp_path, photo_set)
     log = tmp_path / "log.sqlite"
@@ -354,7 +366,7 @@ def test_a_full_disk_mid_batch_still_shows_every_result(quick_measure, photo_set
                                "--operator", long_name)
     monkeypatch.undo()
     assert status == 2
-    line = assert_one_line_error(err, "cannot write the log", "the disk is full")
+    line = assert_log_refused(err, [p.name for p in photos[1:]], "the disk is full")
     assert "not a readable" not in line
     records = json_lines(out)
     assert len(records) == 3
@@ -377,7 +389,7 @@ def test_a_log_the_user_cannot_write_still_shows_the_result(existing, photo_set,
     done = run_as_reader(shared_folder, code, "measure", str(photo), *W, "--json",
                          "--log", str(log))
     assert done.returncode == 2, done.stderr
-    line = assert_one_line_error(done.stderr, "cannot write the log")
+    line = assert_log_refused(done.stderr, [photo.name])
     assert "not a readable" not in line
     records = json_lines(done.stdout)
     assert len(records) == 1 and "record_id" not in records[0]

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 from cli_interrupt import interrupt_once_logged
-from flatsight.analysis import inspection_log
+from flatsight.analysis.records import log as inspection_log
 from flatsight.tui.cli import main
 from flatsight.tui.parallel import available_cores
 

@@ -9,7 +9,7 @@ import json
 from datetime import UTC, datetime, timedelta
 
 import pytest
-from flatsight.analysis import inspection_log
+from flatsight.analysis.records import log as inspection_log
 from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo, write_photo
 from flatsight.tui import cmd_records, record_options
 from flatsight.tui.cli import main

@@ -76,7 +76,7 @@ def test_help_screen(snap_compare, tmp_path):
 
 def _logged_app(tmp_path, monkeypatch) -> FlatsightStation:
     """The station logging to a log that already holds a week of one part's inspections."""
-    from flatsight.analysis.inspection_log import record_measurement
+    from flatsight.analysis.records.log import record_measurement
     from flatsight.tui import record_options
     from flatsight.tui.station_log import StationRecorder
 

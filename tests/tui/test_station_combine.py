@@ -7,9 +7,9 @@ import functools
 
 import numpy as np
 import pytest
-from flatsight.analysis.inspection_log import query
 from flatsight.analysis.pipeline import with_terms_removed
 from flatsight.analysis.record import measurement_to_record, save_height_map
+from flatsight.analysis.records.log import query
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings
 from flatsight.tui.station_backend import StationBackend

@@ -15,8 +15,8 @@ import sqlite3
 
 import numpy as np
 import pytest
-from flatsight.analysis.inspection_log import query, record_measurement
 from flatsight.analysis.record import measurement_to_record
+from flatsight.analysis.records.log import query, record_measurement
 from flatsight.analysis.tolerances import evaluate, parse_tolerance
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings

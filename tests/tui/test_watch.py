@@ -15,7 +15,7 @@ import time
 
 import numpy as np
 import pytest
-from flatsight.analysis import inspection_log
+from flatsight.analysis.records import log as inspection_log
 from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo, write_photo
 from flatsight.tui import cmd_watch
 from test_presets_per_photo import PRESETS  # the same two benches as measure's test

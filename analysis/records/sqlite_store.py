@@ -1,4 +1,4 @@
-"""The inspection log: every measurement's record in one SQLite file that many processes share.
+"""The inspection log's SQLite store: every record in one file that a station's processes share.
 
 The file is a plain SQLite database in WAL mode (readers never wait for a writer), with
 its schema version in ``PRAGMA user_version`` and migrations applied in order when a
@@ -12,40 +12,24 @@ watched folder logging at once lose nothing.
 
 Besides columns for searching (part, time, verdict, figures) every row keeps the full
 record JSON, so ``history --json`` gives back exactly what ``measure --json`` printed.
+What a record holds, and the functions callers use, are in :mod:`.log`; this module is
+its SQLite half (``write_row`` and ``read_rows``).
 """
 
 from __future__ import annotations
 
-import json
-import math
 import random
 import sqlite3
 import time
-from collections.abc import Callable, Mapping
-from datetime import UTC, datetime
+from collections.abc import Callable
 from functools import partial
 from pathlib import Path
 
-from .errors import InspectionLogError, SettingsError
-from .formatting import finite_number
+from ..errors import InspectionLogError
+from .log import FIGURE_COLUMNS, SCHEMA_VERSION, Selection
 
-__all__ = [
-    "FIGURE_COLUMNS",
-    "SCHEMA_VERSION",
-    "default_log_path",
-    "get",
-    "parse_since",
-    "query",
-    "record_measurement",
-    "utc_now",
-]
+__all__ = ["MIGRATIONS", "read_rows", "write_row"]
 
-# figures copied into their own columns (all nanometres but the radius, in metres)
-FIGURE_COLUMNS = (
-    "pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm", "astigmatism_nm",
-    "symmetric_irregularity_nm", "rms_irregularity_nm", "rms_asymmetric_nm",
-    "radius_of_curvature_m",
-)
 BUSY_TIMEOUT_MS = 5000
 RETRY_FOR_S = 120.0  # a writer gives up only after this long without getting the lock
 
@@ -77,42 +61,7 @@ CREATE INDEX inspections_part_time ON inspections (part, logged_utc);
 CREATE INDEX inspections_time ON inspections (logged_utc);
 """
 MIGRATIONS: tuple[str, ...] = (_V1, _V2)  # MIGRATIONS[k] takes a log from version k to k+1
-SCHEMA_VERSION = len(MIGRATIONS)
-
-
-def default_log_path() -> Path:
-    """``inspections.sqlite`` in the user's data directory (platformdirs)."""
-    import platformdirs
-
-    return Path(platformdirs.user_data_dir("flatsight")) / "inspections.sqlite"
-
-
-def utc_now() -> str:
-    """The time now in UTC, ISO 8601 with milliseconds and a ``Z``."""
-    return _iso_utc(datetime.now(UTC))
-
-
-def _iso_utc(t: datetime) -> str:
-    return t.astimezone(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
-
-
-def parse_since(text: str) -> str:
-    """A date or date-time (ISO 8601; no zone means UTC) as the log's own time format.
-
-    Raises
-    ------
-    SettingsError
-        When the text is not an ISO 8601 date.
-    """
-    try:
-        t = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
-    except ValueError:
-        raise SettingsError(
-            f"--since {text!r} is not a date: write it as 2026-11-30 or 2026-11-30T08:00"
-        ) from None
-    if t.tzinfo is None:
-        t = t.replace(tzinfo=UTC)
-    return _iso_utc(t)
+assert len(MIGRATIONS) == SCHEMA_VERSION
 
 
 def _is_busy(exc: sqlite3.OperationalError) -> bool:
@@ -177,9 +126,12 @@ def _schema_version(con: sqlite3.Connection, log_path: Path) -> int:
     Only reads: a database that is not a Flatsight log, or one from a newer Flatsight, is
     refused before anything in it is changed.
     """
-    version = con.execute("PRAGMA user_version").fetchone()[0]
+    # the tables before the version: a writer making the log commits both at once, so a
+    # log seen with tables is then seen with its version (the other order could catch
+    # version 0 and then the tables another process had just made)
     tables = {row[0] for row in con.execute(
         "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%'")}
+    version = con.execute("PRAGMA user_version").fetchone()[0]
     if version == 0 and not tables:
         return 0
     columns = {row[1] for row in con.execute("PRAGMA table_info(inspections)")}
@@ -333,71 +285,11 @@ def _migrate(con: sqlite3.Connection, log_path: Path) -> None:
         raise
 
 
-def _json(value) -> str:
-    # NaN is not JSON; a figure that could not be measured is stored as null
-    return json.dumps(_finite(value), allow_nan=False, default=_plain)
-
-
-def _plain(value):
-    """numpy scalars and arrays as plain numbers and lists."""
-    if hasattr(value, "tolist"):
-        return _finite(value.tolist())
-    raise TypeError(f"cannot store {type(value).__name__} in the inspection log")
-
-
-def _finite(value):
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, Mapping):
-        return {str(k): _finite(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_finite(v) for v in value]
-    return value
-
-
-def record_measurement(
-    log_path: str | Path,
-    record: Mapping,
-    *,
-    part: str | None = None,
-    operator: str | None = None,
-    station: str | None = None,
-    logged_utc: str | None = None,
-) -> int:
-    """Log one measurement record and return its ``record_id``.
-
-    Parameters
-    ----------
-    log_path : str or Path
-        The SQLite file; created (with its folder) when missing.
-    record : mapping
-        The ``measure --json`` document, with its ``spec`` section if a tolerance was given.
-    part, operator, station : str, optional
-        Who measured what, where.
-    logged_utc : str, optional
-        The time to record (ISO 8601, UTC); now by default.
-
-    Returns
-    -------
-    int
-        The new record's id, unique in this log.
-    """
-    path = Path(log_path)
-    spec = record.get("spec") or {}
-    row = {
-        "logged_utc": logged_utc or utc_now(),
-        "part": part, "operator": operator, "station": station,
-        "photo": record.get("photo"), "photo_sha256": record.get("photo_sha256"),
-        "wavelength_nm": finite_number(record.get("wavelength_nm")),
-        **{c: finite_number(record.get(c)) for c in FIGURE_COLUMNS},
-        "zernike_json": _json(record.get("zernike")),
-        "settings_json": _json(record.get("settings")),
-        "spec_text": spec.get("tolerance"), "verdict": spec.get("verdict"),
-        "record_json": _json(dict(record)),
-    }
+def write_row(log_path: Path, row: dict) -> int:
+    """Write one record's columns in one ``BEGIN IMMEDIATE`` transaction; its ``record_id``."""
     sql = (f"INSERT INTO inspections ({', '.join(row)}) "
            f"VALUES ({', '.join('?' for _ in row)})")
-    con = _connect_for_writing(path)
+    con = _connect_for_writing(log_path)
     try:
         def write() -> int:
             con.execute("BEGIN IMMEDIATE")
@@ -412,89 +304,20 @@ def record_measurement(
 
         return int(_with_retry(write))
     except sqlite3.Error as exc:  # a full disk, a read-only file: the record is not logged
-        raise _write_error(path, exc) from None
+        raise _write_error(log_path, exc) from None
+    except OSError as exc:
+        raise InspectionLogError(f"{log_path}: {exc.strerror or exc}") from None
     finally:
         con.close()
 
 
-def _row_to_dict(row: sqlite3.Row) -> dict:
-    out = json.loads(row["record_json"])
-    out.pop("record_id", None)
-    return {
-        **out,
-        "record_id": row["record_id"],
-        "logged_utc": row["logged_utc"],
-        "part": row["part"],
-        "operator": row["operator"],
-        "station": row["station"],
-        "verdict": row["verdict"],
-    }
+def read_rows(log_path: Path, selection: Selection) -> list[sqlite3.Row]:
+    """The rows ``selection`` picks, newest first, read without changing the log."""
+    def fetch(con: sqlite3.Connection, table: str) -> list:
+        sql, params = selection.sql(table, "?")
+        return con.execute(sql, params).fetchall()
 
-
-def query(
-    log_path: str | Path,
-    *,
-    part: str | None = None,
-    since: str | None = None,
-    verdict: str | None = None,
-    limit: int | None = None,
-    superseded: bool = False,
-) -> list[dict]:
-    """Logged records, newest first, each the stored record plus the log's own fields.
-
-    A record whose ``supersedes`` names another (the station measured the same photo again
-    in one session: the aperture moved, a setting changed) replaces it: the replaced
-    record stays in the log, but is left out here unless ``superseded`` is true, so each
-    photo of a session counts once in a history, a trend and a pass rate.
-
-    Parameters
-    ----------
-    log_path : str or Path
-        An existing log.
-    part : str, optional
-        Only this part.
-    since : str, optional
-        Only records logged at or after this ISO 8601 date or time (UTC when no zone).
-    verdict : {"pass", "fail", "inconclusive"}, optional
-        Only records with this verdict (records without a tolerance have none).
-    limit : int, optional
-        At most this many.
-    superseded : bool
-        Also the records a later one replaced; each of those carries ``superseded_by``,
-        the id of the record that replaced it.
-
-    Returns
-    -------
-    list of dict
-        The ``measure --json`` fields plus ``record_id``, ``logged_utc``, ``part``,
-        ``operator``, ``station`` and ``verdict``.
-    """
-    if verdict not in (None, "pass", "fail", "inconclusive"):
-        raise SettingsError(f"--verdict {verdict!r}: choose pass, fail or inconclusive")
-    where, params = [], []
-    if part is not None:
-        where.append("part = ?")
-        params.append(part)
-    if since is not None:
-        where.append("logged_utc >= ?")
-        params.append(parse_since(since))
-    if verdict is not None:
-        where.append("verdict = ?")
-        params.append(verdict)
-    if not superseded:
-        where.append(f"record_id NOT IN (SELECT old FROM ({_REPLACED}))")
-    sql = "SELECT * FROM {table}"
-    if where:
-        sql += " WHERE " + " AND ".join(where)
-    sql += " ORDER BY logged_utc DESC, record_id DESC"
-    if limit is not None:
-        sql += " LIMIT ?"
-        params.append(int(limit))
-    # an empty database reads as no rows at all (_read)
-    rows, replaced = _read(Path(log_path), lambda con, table: (
-        con.execute(sql.format(table=table), params).fetchall(),
-        dict(con.execute(_REPLACED).fetchall()) if superseded else {})) or ([], {})
-    return [_with_replacement(_row_to_dict(r), replaced) for r in rows]
+    return _read(log_path, fetch)
 
 
 # which record replaced which: (old id, the newest id that names it in ``supersedes``)
@@ -503,30 +326,7 @@ _REPLACED = ("SELECT CAST(json_extract(record_json, '$.supersedes') AS INTEGER) 
              "WHERE json_extract(record_json, '$.supersedes') IS NOT NULL GROUP BY old")
 
 
-def _with_replacement(row: dict, replaced: dict) -> dict:
-    if row["record_id"] in replaced:
-        row["superseded_by"] = replaced[row["record_id"]]
-    return row
-
-
-def get(log_path: str | Path, record_id: int) -> dict:
-    """One logged record by id, shaped like :func:`query`'s entries.
-
-    A record a later one replaced is found too, with ``superseded_by`` saying which.
-
-    Raises
-    ------
-    SettingsError
-        When the log has no such record.
-    """
-    if not 0 <= record_id < 2**63:
-        raise SettingsError(f"no record {record_id}: record ids are whole numbers from 1; "
-                            "see 'flatsight history' for the ids")
-    rows, replaced = _read(Path(log_path), lambda con, table: (
-        con.execute(f"SELECT * FROM {table} WHERE record_id = ?", (int(record_id),)).fetchall(),
-        dict(con.execute(_REPLACED).fetchall()))) or ([], {})
-    row = rows[0] if rows else None
-    if row is None:
-        raise SettingsError(
-            f"no record {record_id} in {log_path}: see 'flatsight history' for the ids")
-    return _with_replacement(_row_to_dict(row), replaced)
+def replacements(log_path: Path) -> dict[int, int]:
+    """Which record replaced which (see ``log.query``), read without changing the log."""
+    rows = _read(log_path, lambda con, table: con.execute(_REPLACED).fetchall())
+    return {int(old): int(new) for old, new in rows}

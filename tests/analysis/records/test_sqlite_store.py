@@ -1,4 +1,4 @@
-"""The inspection log: records round-trip, many writers at once, a killed writer, migrations."""
+"""The SQLite store of the log: round trips, many writers, a killed writer, migrations."""
 
 from __future__ import annotations
 
@@ -12,8 +12,8 @@ import textwrap
 import time
 
 import pytest
-from flatsight.analysis import inspection_log as log
 from flatsight.analysis.errors import InspectionLogError, SettingsError
+from flatsight.analysis.records import log, sqlite_store
 
 
 def make_record(photo="BW-FL-0412.png", verdict="pass", pv_nm=41.5, n_terms=36):
@@ -109,7 +109,7 @@ def test_clear_errors(tmp_path):
 
 WRITER = textwrap.dedent("""
     import sys
-    from flatsight.analysis import inspection_log as log
+    from flatsight.analysis.records import log
     path, name, count = sys.argv[1], sys.argv[2], int(sys.argv[3])
     record = {
         "photo": "x.png", "wavelength_nm": 632.8, "pv_nm": 1.0,
@@ -189,7 +189,7 @@ def version_1_log(path, *, journal="delete"):
     """A log as version 1 of the schema wrote it, with one failed record."""
     con = sqlite3.connect(path)
     con.execute(f"PRAGMA journal_mode = {journal}")
-    con.executescript(log.MIGRATIONS[0])
+    con.executescript(sqlite_store.MIGRATIONS[0])
     con.execute("PRAGMA user_version = 1")
     con.execute(
         "INSERT INTO inspections (logged_utc, part, record_json) VALUES (?, ?, ?)",
@@ -308,7 +308,7 @@ def test_get_refuses_an_id_sqlite_cannot_hold(tmp_path):
 
 READER = textwrap.dedent("""
     import json, sys
-    from flatsight.analysis import inspection_log as log
+    from flatsight.analysis.records import log
     rows = log.query(sys.argv[1])
     print(json.dumps([[r["part"], r["verdict"]] for r in rows]))
 """)
@@ -323,19 +323,3 @@ def test_a_reader_without_write_access_reads_the_log(shared_folder, run_as_reade
     assert done.returncode == 0, done.stderr
     assert json.loads(done.stdout) == [["BW-FL-0413", "pass"], ["BW-FL-0412", "fail"]]
     assert files_and_bytes(shared_folder) == before
-
-
-def test_a_record_that_supersedes_another_hides_it_but_never_loses_it(tmp_path):
-    # the station's rule (README, "The inspection station"): one photo measured again in a
-    # session counts once; the replaced record stays in the log and is found by its id
-    path = tmp_path / "log.sqlite"
-    first = log.record_measurement(path, {"pv_nm": 90.0}, part="BW-FL-0412")
-    second = log.record_measurement(path, {"pv_nm": 80.0, "supersedes": first}, part="BW-FL-0412")
-    other = log.record_measurement(path, {"pv_nm": 70.0}, part="BW-FL-0413")
-    assert [r["record_id"] for r in log.query(path)] == [other, second]
-    assert [r["record_id"] for r in log.query(path, part="BW-FL-0412")] == [second]
-    every = log.query(path, superseded=True)
-    assert [(r["record_id"], r.get("superseded_by")) for r in every] == [
-        (other, None), (second, None), (first, second)]
-    assert log.get(path, first)["superseded_by"] == second and log.get(path, first)["pv_nm"] == 90.0
-    assert "superseded_by" not in log.get(path, second)
