@@ -42,14 +42,14 @@ import sys
 from flatsight.analysis import atomic
 from flatsight.tui import cli
 
-def held_write(path, text, encoding="utf-8"):
+def held_write(path, data):
     # the certificate's write, held open half done until the test stops the process
     with atomic.atomic_path(path) as tmp:
-        tmp.write_text(text[:100], encoding=encoding)
+        tmp.write_bytes(data[:100])
         print("writing", flush=True)
         sys.stdin.readline()
 
-atomic.atomic_write_text = held_write
+atomic.atomic_write_bytes = held_write
 sys.exit(cli.main(sys.argv[1:]))
 """
 

@@ -586,7 +586,9 @@ def test_an_average_shows_its_photos_carriers_not_a_made_up_one(mode, measured, 
     monkeypatch.setattr(pipeline, "measure", quick)
     photos = three_photos(tmp_path, photo_set)[:2]
     flags = [mode] if mode != "table" else []
-    status, out, err = run_cli(capsys, "measure", *photos, *W, "--average", "--no-log", *flags)
+    # --jobs 1: the stand-in analysis lives in this process, not in worker processes
+    status, out, err = run_cli(capsys, "measure", *photos, *W, "--average", "--no-log",
+                               "--jobs", "1", *flags)
     assert status == 0, err
     if mode == "--json":
         q = json_lines(out)[0]["quality"]
