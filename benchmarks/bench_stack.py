@@ -13,7 +13,7 @@ import argparse
 import time
 
 import numpy as np
-from flatsight.analysis.phase_shifting import demodulate_sequence, measure_stack
+from flatsight.analysis.multiphoto.phase_shifting import demodulate_sequence, measure_stack
 from flatsight.analysis.pipeline import MeasureSettings
 from flatsight.analysis.synthetic import SyntheticSurface
 

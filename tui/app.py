@@ -86,7 +86,7 @@ class FlatsightStation(App):
         entry = QueueEntry(path)
         if self.presets_file is not None:
             from ..analysis.errors import SettingsError
-            from ..analysis.presets import PresetsFile, load_presets_file
+            from ..analysis.records.presets import PresetsFile, load_presets_file
 
             if self._photo_presets is None:  # read the file once, for every photo
                 try:

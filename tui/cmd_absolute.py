@@ -147,8 +147,8 @@ def run(args: argparse.Namespace) -> int:
         UnanalysablePhotoError,
         UnreadablePhotoError,
     )
+    from flatsight.analysis.multiphoto.three_flat import absolute_test
     from flatsight.analysis.pipeline import MeasureSettings, measure
-    from flatsight.analysis.three_flat import absolute_test
 
     err = sys.stderr
     if (args.rotated is None) != (args.angle is None):

@@ -184,11 +184,11 @@ def run(args: argparse.Namespace) -> int:
     chosen = None
     try:
         if presets_file is not None:
-            from ..analysis.presets import load_presets
+            from ..analysis.records.presets import load_presets
 
             load_presets(presets_file)
         if args.preset:
-            from ..analysis.presets import get_preset
+            from ..analysis.records.presets import get_preset
 
             chosen = get_preset(args.preset, path=presets_file)
             # the preset fills the measuring options this command line left unset

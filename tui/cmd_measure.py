@@ -187,7 +187,7 @@ def run(args: argparse.Namespace) -> int:
     presets_file = None
     try:
         if per_photo:
-            from flatsight.analysis.presets import load_presets_file
+            from flatsight.analysis.records.presets import load_presets_file
 
             # read once; a bad presets file fails before any photo
             presets_file = load_presets_file(args.presets)

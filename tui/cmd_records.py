@@ -425,12 +425,12 @@ def run_trend(args: argparse.Namespace) -> int:
 
 def _certificate_bytes(rec: dict, suffix: str, *, log: str, paper: str) -> bytes:
     """The certificate (``.pdf``, ``.html``) or the map (``.png``) of one record."""
-    from ..analysis.certificate import certificate_document, certificate_html, map_png
+    from ..analysis.records.certificate import certificate_document, certificate_html, map_png
 
     if suffix == ".png":
         return map_png(rec)
     if suffix == ".pdf":
-        from ..analysis.certificate_pdf import certificate_pdf
+        from ..analysis.records.certificate_pdf import certificate_pdf
 
         return certificate_pdf(certificate_document(rec, log=log), paper=paper)
     return certificate_html(rec, log=log).encode("utf-8")

@@ -185,7 +185,7 @@ def run(args: argparse.Namespace) -> int:
         UnreadablePhotoError,
     )
     from flatsight.analysis.loading import load_photo
-    from flatsight.analysis.phase_shifting import measure_stack
+    from flatsight.analysis.multiphoto.phase_shifting import measure_stack
     from flatsight.analysis.pipeline import MeasureSettings
 
     err = sys.stderr

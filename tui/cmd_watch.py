@@ -504,7 +504,7 @@ def run(args: argparse.Namespace) -> int:
         args = apply_preset(args)
         by_name = bool(args.presets and not args.preset)
         if by_name:
-            from ..analysis.presets import load_presets_file
+            from ..analysis.records.presets import load_presets_file
 
             # read once; a bad presets file fails before any photo
             args.photo_presets = load_presets_file(args.presets)

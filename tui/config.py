@@ -10,7 +10,7 @@ from pathlib import Path
 from ..analysis.atomic import atomic_write_text
 from ..analysis.errors import InspectionLogError, SettingsError
 from ..analysis.records.log import check_named_log
-from ..analysis.tolerances import DECISION_RULES
+from ..analysis.records.tolerances import DECISION_RULES
 
 __all__ = [
     "StationSettings",

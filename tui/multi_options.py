@@ -43,7 +43,7 @@ def add_multi_options(parser: argparse.ArgumentParser) -> None:
 def check_multi_options(args: argparse.Namespace):
     """Load the reference map before any photo, so a bad file fails at once (exit 2).
 
-    Returns the :class:`~flatsight.analysis.reference.ReferenceMap`, or None. Raises
+    Returns the :class:`~flatsight.analysis.multiphoto.reference.ReferenceMap`, or None. Raises
     ``UnreadablePhotoError`` with a one-line message naming the file.
     """
     if getattr(args, "reference", None) is None:
@@ -51,7 +51,7 @@ def check_multi_options(args: argparse.Namespace):
     cached = getattr(args, "_reference_map", None)
     if cached is not None:
         return cached
-    from flatsight.analysis.reference import load_reference_map
+    from flatsight.analysis.multiphoto.reference import load_reference_map
 
     ref = load_reference_map(args.reference)
     args._reference_map = ref
@@ -119,7 +119,7 @@ def combine_with_sections(args: argparse.Namespace, measurements: list) -> list[
         One-line messages (fewer than two photos to average, a bad reference map, a
         photo with the opposite sign).
     """
-    from flatsight.analysis.reference import subtract_reference
+    from flatsight.analysis.multiphoto.reference import subtract_reference
 
     items = [Combined(m, {}) for m in measurements]
     ref = check_multi_options(args)
@@ -129,7 +129,7 @@ def combine_with_sections(args: argparse.Namespace, measurements: list) -> list[
             sub = subtract_reference(m, ref)
             items.append(Combined(sub.measurement, {"reference": reference_section(sub)}))
     if getattr(args, "average", False):
-        from flatsight.analysis.averaging import average_measurements
+        from flatsight.analysis.multiphoto.averaging import average_measurements
 
         avg = average_measurements([c.measurement for c in items])
         sections = {"average": spread_section(avg)}

@@ -176,7 +176,7 @@ def whole_number_type(what: str, low: int, high: int):
     return _argtype(lambda text: parse_whole(text, what, low, high), "whole number")
 
 
-# the same ranges as a preset's (analysis/presets.py) and the pipeline's
+# the same ranges as a preset's (analysis/records/presets.py) and the pipeline's
 diameter_type = number_type("diameter (mm)", 0.1, 10000.0)
 terms_type = whole_number_type("number of Zernike terms", 15, 231)
 seconds_type = number_type("seconds", 0.0, 1e6)

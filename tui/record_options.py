@@ -31,7 +31,7 @@ from ..analysis.records.log import (
     record_measurement,
     utc_now,
 )
-from ..analysis.tolerances import (
+from ..analysis.records.tolerances import (
     DECISION_RULES,
     Tolerance,
     evaluate,
@@ -95,7 +95,7 @@ DECISION_HELP = (
 VERDICT_STATUS = {"pass": 0, "fail": 1, "inconclusive": 5}
 
 
-# the range a preset's spec_wavelength_nm may take (analysis/presets.py)
+# the range a preset's spec_wavelength_nm may take (analysis/records/presets.py)
 spec_wavelength_type = number_type("--spec-wavelength (nm)", 100.0, 20000.0)
 
 
@@ -160,7 +160,7 @@ def apply_preset(args: argparse.Namespace, preset=None) -> argparse.Namespace:
     """A copy of ``args`` with every unset option (None) filled from ``--preset``.
 
     Options given on the command line win over the preset. ``preset`` (a
-    :class:`~flatsight.analysis.presets.Preset`) overrides ``--preset``; without
+    :class:`~flatsight.analysis.records.presets.Preset`) overrides ``--preset``; without
     either the copy equals ``args``.
 
     Raises
@@ -173,7 +173,7 @@ def apply_preset(args: argparse.Namespace, preset=None) -> argparse.Namespace:
     if preset is None:
         if not name:
             return out
-        from ..analysis.presets import get_preset
+        from ..analysis.records.presets import get_preset
 
         preset = get_preset(name, path=getattr(args, "presets", None))
     for key, dest in PRESET_TO_OPTION.items():

@@ -1,8 +1,8 @@
 """Several photos as one measurement in the station: an average, or a phase-shifted sequence.
 
 Both run in the bench's analysis worker and give back the library's own result objects
-(:class:`~flatsight.analysis.averaging.AveragedMeasurement`,
-:class:`~flatsight.analysis.phase_shifting.StackMeasurement`), so the station records
+(:class:`~flatsight.analysis.multiphoto.averaging.AveragedMeasurement`,
+:class:`~flatsight.analysis.multiphoto.phase_shifting.StackMeasurement`), so the station records
 exactly what ``flatsight measure --average`` and ``flatsight stack`` would.
 """
 
@@ -25,7 +25,7 @@ def measure_average(backend, sources: Sequence[Path], settings, *, progress=None
     of the bench it was taken on), as ``measure --average --presets`` does; without it
     every photo is measured with ``settings``. The averaged figures use ``settings``.
     """
-    from ..analysis.averaging import average_measurements
+    from ..analysis.multiphoto.averaging import average_measurements
 
     if len(sources) < 2:
         raise SettingsError("averaging needs at least two photos of the same part")
@@ -47,7 +47,7 @@ def measure_average(backend, sources: Sequence[Path], settings, *, progress=None
 
 def measure_sequence(backend, sources: Sequence[Path], settings, *, progress=None, cancel=None):
     """A phase-shifted sequence (frames in the order taken) measured as one surface."""
-    from ..analysis.phase_shifting import measure_stack
+    from ..analysis.multiphoto.phase_shifting import measure_stack
 
     if len(sources) < 3:
         raise SettingsError(

@@ -97,8 +97,8 @@ def test_power_and_astigmatism_keep_their_signs(tmp_path):
 
 
 def test_every_verdict_figure_is_scored():
-    # every figure a tolerance can limit (analysis/tolerances.py) is in the score
-    from flatsight.analysis import tolerances
+    # every figure a tolerance can limit (analysis/records/tolerances.py) is in the score
+    from flatsight.analysis.records import tolerances
 
     limited = {v[0] for v in tolerances._PLAIN.values()} | {
         v[0] for v in tolerances._RMS.values()}

@@ -11,7 +11,7 @@ import shutil
 
 import pytest
 from flatsight.analysis.errors import SettingsError
-from flatsight.analysis.presets import load_presets, preset_for_photo
+from flatsight.analysis.records.presets import load_presets, preset_for_photo
 from flatsight.tui.cli import main
 
 PRESETS = """

@@ -11,7 +11,7 @@ import io
 import re
 
 import pytest
-from flatsight.analysis.tolerances import evaluate, parse_tolerance, spec_section
+from flatsight.analysis.records.tolerances import evaluate, parse_tolerance, spec_section
 from flatsight.tui.report_text import Reporter
 from rich.console import Console
 from station_fakes import fake_backend, write_photos

@@ -219,7 +219,7 @@ def test_absolute_solves_the_even_terms_and_saves_maps_keeping_a_flat_whose_map_
         assert "pv_nm" in rec and "aperture" in rec
 
     # a saved map is accepted as --reference
-    from flatsight.analysis.reference import load_reference_map
+    from flatsight.analysis.multiphoto.reference import load_reference_map
 
     ref = load_reference_map(maps / "A.npy")
     assert ref.radius_px > 50

@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 from flatsight.analysis.record import measurement_to_record
 from flatsight.analysis.records.log import query, record_measurement
-from flatsight.analysis.tolerances import evaluate, parse_tolerance
+from flatsight.analysis.records.tolerances import evaluate, parse_tolerance
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings
 from flatsight.tui.screens.bench import BenchScreen

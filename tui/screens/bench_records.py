@@ -159,7 +159,7 @@ class RecordActions:
     # ---- presets --------------------------------------------------------------------------
     def action_pick_preset(self) -> None:
         from ...analysis.errors import SettingsError
-        from ...analysis.presets import default_presets_path, load_presets
+        from ...analysis.records.presets import default_presets_path, load_presets
         from .preset_screen import BY_NAME, PresetScreen
 
         source = self.presets_file or default_presets_path()

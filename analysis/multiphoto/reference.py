@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 from scipy import ndimage
 
-from .errors import UnanalysablePhotoError, UnreadablePhotoError
+from ..errors import UnanalysablePhotoError, UnreadablePhotoError
 
 __all__ = [
     "ReferenceMap",
@@ -217,7 +217,7 @@ def subtract_reference(measurement, reference: ReferenceMap) -> ReferenceSubtrac
     UnanalysablePhotoError
         When the reference leaves too few pixels measured.
     """
-    from .pipeline import measurement_from_height
+    from ..pipeline import measurement_from_height
 
     m = measurement
     xu, yu = m.geometry.unit_xy(m.aperture)

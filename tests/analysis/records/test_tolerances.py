@@ -14,7 +14,7 @@ import re
 
 import pytest
 from flatsight.analysis.errors import SettingsError
-from flatsight.analysis.tolerances import (
+from flatsight.analysis.records.tolerances import (
     ToleranceSyntaxError,
     evaluate,
     parse_tolerance,

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from flatsight.analysis.aperture import Aperture
 from flatsight.analysis.errors import UnreadablePhotoError
+from flatsight.analysis.multiphoto.reference import load_reference_map, subtract_reference
 from flatsight.analysis.pipeline import MapGeometry, MeasureSettings, measurement_from_height
-from flatsight.analysis.reference import load_reference_map, subtract_reference
 from flatsight.analysis.synthetic import SyntheticSurface
 from PIL import Image
 

@@ -34,8 +34,8 @@ import tomllib
 from dataclasses import dataclass, fields
 from pathlib import Path
 
-from .errors import SettingsError
-from .records.log import check_named_log
+from ..errors import SettingsError
+from ..records.log import check_named_log
 from .tolerances import DECISION_RULES, parse_tolerance
 
 __all__ = ["Preset", "PresetsFile", "default_presets_path", "get_preset", "load_presets",

@@ -66,7 +66,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 
-from .errors import SettingsError
+from ..errors import SettingsError
 
 __all__ = [
     "DECISION_RULES",

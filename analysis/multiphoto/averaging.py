@@ -18,9 +18,9 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import ndimage
 
-from .aperture import Aperture
-from .errors import SettingsError, UnanalysablePhotoError
-from .zernike import fit_zernike
+from ..aperture import Aperture
+from ..errors import SettingsError, UnanalysablePhotoError
+from ..zernike import fit_zernike
 
 __all__ = [
     "FIGURE_NAMES",
@@ -61,7 +61,7 @@ def unit_grid(size: int) -> tuple[np.ndarray, np.ndarray]:
 
 def grid_geometry(aperture: Aperture, size: int):
     """The :class:`MapGeometry` that places :func:`unit_grid` on a photo's aperture."""
-    from .pipeline import MapGeometry
+    from ..pipeline import MapGeometry
 
     step = 2.0 * aperture.radius_px / (size - 1)
     return MapGeometry(
@@ -256,7 +256,7 @@ def average_measurements(
     UnanalysablePhotoError
         A photo reads with the opposite sign, or too little of the aperture is common.
     """
-    from .pipeline import measurement_from_height
+    from ..pipeline import measurement_from_height
 
     ms = list(measurements)
     if len(ms) < 2:

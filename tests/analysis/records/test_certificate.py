@@ -10,10 +10,10 @@ import subprocess
 
 import numpy as np
 import pytest
-from flatsight.analysis import certificate
 from flatsight.analysis.colormap import diverging_rgb
 from flatsight.analysis.figures import compute_figures
-from flatsight.analysis.tolerances import evaluate, parse_tolerance, spec_section
+from flatsight.analysis.records import certificate
+from flatsight.analysis.records.tolerances import evaluate, parse_tolerance, spec_section
 from flatsight.analysis.version import flatsight_version
 from flatsight.analysis.zernike import ZernikeFit, zernike_basis
 from PIL import Image
@@ -312,7 +312,7 @@ def test_browser_shows_the_map_and_the_verdict(tmp_path):
     chromium(tmp_path, f"--screenshot={shot}", "--window-size=900,1200",
              "--force-device-scale-factor=1", html_path.as_uri())
     img = np.asarray(Image.open(shot).convert("RGB"))
-    # the red verdict banner (analysis/certificate.VERDICT_RGB) fills a large block
+    # the red verdict banner (analysis/records/certificate.VERDICT_RGB) fills a large block
     assert near_count(img, certificate.VERDICT_RGB["fail"], tol=4) > 20000
     # green appears only as the word PASS of a limit that passed, never as a banner
     assert near_count(img, certificate.VERDICT_RGB["pass"], tol=4) < 1000

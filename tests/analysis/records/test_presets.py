@@ -5,8 +5,8 @@ from __future__ import annotations
 import tomllib
 
 import pytest
-from flatsight.analysis import presets
 from flatsight.analysis.errors import SettingsError
+from flatsight.analysis.records import presets
 
 GOOD = """
 # Brindlewick Optical Works, bench 2 (demo data)
@@ -109,8 +109,8 @@ def test_record_keeping_modules_stay_free_of_the_terminal_libraries():
     import sys
 
     code = ("import sys\n"
-            "import flatsight.analysis.tolerances, flatsight.analysis.records.log\n"
-            "import flatsight.analysis.presets, flatsight.analysis.certificate\n"
+            "import flatsight.analysis.records.tolerances, flatsight.analysis.records.log\n"
+            "import flatsight.analysis.records.presets, flatsight.analysis.records.certificate\n"
             "print(sorted(m for m in sys.modules if m.split('.')[0] in ('rich', 'textual')))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True).stdout

@@ -33,9 +33,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .formatting import finite_number, format_number, printable
-from .version import flatsight_version
-from .zernike import nm_to_noll, noll_to_nm, osa_to_noll, term_name, zernike_basis
+from ..formatting import finite_number, format_number, printable
+from ..version import flatsight_version
+from ..zernike import nm_to_noll, noll_to_nm, osa_to_noll, term_name, zernike_basis
 
 __all__ = [
     "MAP_PAD_PX",
@@ -88,7 +88,7 @@ _FIGURE_ROWS = [
 
 def map_colours(values: np.ndarray, vmin: float, vmax: float) -> np.ndarray:
     """The project's diverging colour map (``colormap.diverging_rgb``): values to sRGB uint8."""
-    from .colormap import diverging_rgb
+    from ..colormap import diverging_rgb
 
     return diverging_rgb(values, vmin, vmax)
 
@@ -614,8 +614,8 @@ def _uncertainty_text(record: Mapping) -> str:
 
 def _method_items(record: Mapping) -> tuple[tuple[str | None, str], list[str], str | None]:
     """How the figures were taken, in words: its lead paragraph, its items, a note."""
-    from . import figures
-    from .record import FIGURES_METHOD
+    from .. import figures
+    from ..record import FIGURES_METHOD
 
     recorded = record.get("figures_method")
     if recorded and recorded != FIGURES_METHOD:

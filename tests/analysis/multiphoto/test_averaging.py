@@ -5,13 +5,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from flatsight.analysis.aperture import Aperture
-from flatsight.analysis.averaging import (
+from flatsight.analysis.errors import SettingsError, UnanalysablePhotoError
+from flatsight.analysis.multiphoto.averaging import (
     average_measurements,
     check_signs,
     resample_to_unit_disk,
     unit_grid,
 )
-from flatsight.analysis.errors import SettingsError, UnanalysablePhotoError
 from flatsight.analysis.pipeline import MapGeometry, MeasureSettings, measurement_from_height
 from flatsight.analysis.synthetic import SyntheticSurface
 from flatsight.analysis.zernike import fit_zernike

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from flatsight.analysis import phase_shifting as ps
 from flatsight.analysis.errors import SettingsError, UnanalysablePhotoError
+from flatsight.analysis.multiphoto import phase_shifting as ps
 
 RNG_SEED = 20261202
 

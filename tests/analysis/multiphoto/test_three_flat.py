@@ -5,11 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from flatsight.analysis.aperture import Aperture
-from flatsight.analysis.averaging import unit_grid
 from flatsight.analysis.errors import SettingsError
-from flatsight.analysis.pipeline import MapGeometry, MeasureSettings, measurement_from_height
-from flatsight.analysis.synthetic import SyntheticSurface
-from flatsight.analysis.three_flat import (
+from flatsight.analysis.multiphoto.averaging import unit_grid
+from flatsight.analysis.multiphoto.three_flat import (
     PairTest,
     absolute_test,
     flip_matrix,
@@ -17,6 +15,8 @@ from flatsight.analysis.three_flat import (
     rotation_matrix,
     solve_three_flat,
 )
+from flatsight.analysis.pipeline import MapGeometry, MeasureSettings, measurement_from_height
+from flatsight.analysis.synthetic import SyntheticSurface
 from flatsight.analysis.zernike import fit_zernike, noll_to_nm, zernike_basis
 
 SIZE = 81

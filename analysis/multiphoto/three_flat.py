@@ -40,9 +40,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..errors import SettingsError, UnanalysablePhotoError
+from ..zernike import fit_zernike, nm_to_noll, noll_to_nm, zernike_basis
 from .averaging import grid_geometry, resample_to_unit_disk, unit_grid
-from .errors import SettingsError, UnanalysablePhotoError
-from .zernike import fit_zernike, nm_to_noll, noll_to_nm, zernike_basis
 
 __all__ = [
     "AbsoluteResult",
@@ -109,7 +109,7 @@ def _whole_orders(n_terms: int) -> int:
 
 @dataclass(frozen=True)
 class PairTest:
-    """One pair photo resampled onto :func:`~flatsight.analysis.averaging.unit_grid`.
+    """One pair photo resampled onto :func:`~flatsight.analysis.multiphoto.averaging.unit_grid`.
 
     Attributes
     ----------
@@ -349,7 +349,7 @@ def absolute_test(
     :func:`solve_three_flat`, and each flat's map becomes a measurement placed on the
     AB photo's aperture (fit and figures by ``measurement_from_height``).
     """
-    from .pipeline import measurement_from_height
+    from ..pipeline import measurement_from_height
 
     if (rotated is None) != (angle_deg is None):
         raise SettingsError("--rotated and --angle go together: give both or neither")

@@ -37,8 +37,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import ndimage
 
-from .aperture import Aperture
-from .errors import MeasurementCancelled, SettingsError, UnanalysablePhotoError
+from ..aperture import Aperture
+from ..errors import MeasurementCancelled, SettingsError, UnanalysablePhotoError
 
 __all__ = [
     "ALGORITHMS",
@@ -589,8 +589,8 @@ def measure_stack(
     binning : int, optional
         Photo pixels per map pixel along each axis; by default chosen from the size.
     """
-    from .pipeline import MapGeometry, _validate, measurement_from_phase
-    from .unwrapping import unwrap
+    from ..pipeline import MapGeometry, _validate, measurement_from_phase
+    from ..unwrapping import unwrap
 
     def tick(stage: str, fraction: float) -> None:
         if cancel is not None and cancel.is_set():

@@ -1,4 +1,4 @@
-"""The PDF certificate (analysis/certificate_pdf.py), read back as a customer's reader would.
+"""The PDF certificate (analysis/records/certificate_pdf.py), read back as a reader would.
 
 Each PDF is opened with pypdf, a general-purpose PDF library from the registry (not the
 library that wrote it): its page count, its page size and the text of every figure the
@@ -17,8 +17,8 @@ import subprocess
 
 import numpy as np
 import pytest
-from flatsight.analysis import certificate
-from flatsight.analysis.certificate_pdf import certificate_pdf
+from flatsight.analysis.records import certificate
+from flatsight.analysis.records.certificate_pdf import certificate_pdf
 from PIL import Image
 from pypdf import PdfReader
 from test_certificate import full_record, make_record, near_count
@@ -113,7 +113,7 @@ def test_the_page_shows_the_verdict_banner_and_the_map(tmp_path):
     pages = sorted(tmp_path.glob("p-*.png"))
     assert len(pages) == 1
     img = np.asarray(Image.open(pages[0]).convert("RGB"))
-    # the red banner of a failed part (analysis/certificate.VERDICT_RGB) fills a block
+    # the red banner of a failed part (analysis/records/certificate.VERDICT_RGB) fills a block
     assert near_count(img, certificate.VERDICT_RGB["fail"], tol=6) > 8000
     # the map's own colours are on the page: sample the PNG at points inside the disk
     map_img = np.asarray(Image.open(io.BytesIO(certificate.map_png(rec))).convert("RGB"))

@@ -21,8 +21,8 @@ from __future__ import annotations
 import io
 from xml.sax.saxutils import escape
 
+from ..formatting import printable
 from .certificate import VERDICT_RGB, CertificateDocument, Table
-from .formatting import printable
 
 __all__ = ["PAPERS", "certificate_pdf"]
 
