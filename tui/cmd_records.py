@@ -443,12 +443,17 @@ def _file_name(rec: dict, suffix: str) -> str:
 
 
 def _wrote(out: Path, rec: dict, record_id, which: str) -> str:
+    """What a written certificate was made from, and whether a later record replaced it."""
     verdict = (rec.get("spec") or {}).get("verdict") or "no tolerance"
     when = (rec.get("logged_utc") or "")[:16].replace("T", " ")
     photo = Path(rec.get("photo") or "").name or "no photo"
-    return shown(f"wrote {out} from record {record_id} of {which}: part "
+    line = shown(f"wrote {out} from record {record_id} of {which}: part "
                  f"{rec.get('part') or '(none)'}, photo {photo}, logged {when or '?'} UTC, "
                  f"{verdict}")
+    if rec.get("superseded_by") is not None:
+        line += (f"\nnote: record {record_id} was replaced by record {rec['superseded_by']} "
+                 "(the same photo measured again in one station session)")
+    return line
 
 
 def run_report(args: argparse.Namespace) -> int:

@@ -475,6 +475,9 @@ def _facts(record: Mapping, log: str | None, map_source: str) -> tuple[tuple[str
         ("Record", (f"{record.get('record_id')} in {log}" if log and
                     record.get("record_id") is not None else record.get("record_id"))),
     ]
+    if record.get("superseded_by") is not None:  # a later record of the same photo
+        rows.append(("Replaced by", f"record {record['superseded_by']}: the same photo "
+                                    "measured again in one station session"))
     # an average or a sequence names its photos; one photo its path
     rows.append(("Made from", _measured_from(record)) if _measured_from(record)
                 else ("Photo", record.get("photo")))

@@ -399,3 +399,10 @@ def test_saved_tif_map_is_read(tmp_path):
                                                            str(tmp_path / "map.tif")})
     assert "saved with the record" in source and got.shape == (20, 20)
     assert np.all(got == 7.0)
+
+
+def test_a_replaced_record_says_which_record_replaced_it():
+    # a certificate written for a record the station later superseded must say so
+    page = certificate.certificate_html(make_record() | {"superseded_by": 18})
+    assert "<th>Replaced by</th><td>record 18: the same photo measured again" in page
+    assert "Replaced by" not in certificate.certificate_html(make_record())
