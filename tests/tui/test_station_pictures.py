@@ -12,6 +12,7 @@ import threading
 
 import numpy as np
 from flatsight.analysis.colormap import diverging_rgb
+from flatsight.analysis.formatting import format_number
 from flatsight.tui.app import FlatsightStation
 from flatsight.tui.config import StationSettings
 from flatsight.tui.render.photo import EXCLUDED_RGB
@@ -76,7 +77,7 @@ async def test_the_map_is_a_sixel_picture_in_the_maps_colours(tmp_path):
         # the legend names the mode and states the scale the picture uses
         text = view.render().plain
         assert "picture: Sixel" in text and "Sixel" in bar(app)
-        assert f"{vmax:.1f} nm" in text
+        assert f"{format_number(vmax, 1, sign=True)} nm" in text  # the top of the colour bar
         # the next photo, still being measured: its text, and no picture of the last map
         lib.gate = threading.Event()
         await pilot.press("right_square_bracket")
