@@ -46,6 +46,11 @@ class FlatsightStation(App):
         nothing is logged (``flatsight inspect`` passes the default log).
     preset : Preset, optional
         A preset chosen at start (``--preset``), used for every photo.
+    pictures : {"sixel", "kitty"}, optional
+        The terminal's graphics protocol, to draw the photo and the map as pictures
+        (``picture_mode.picture_protocol``); None draws them in half-block cells.
+    cell_px : (int, int)
+        One terminal cell's width and height in pixels, the size pictures are made at.
     """
 
     TITLE = "Flatsight"
@@ -65,8 +70,12 @@ class FlatsightStation(App):
         presets_file: Path | None = None,
         recorder=None,
         preset=None,
+        pictures: str | None = None,
+        cell_px: tuple[int, int] = (10, 20),
     ) -> None:
         super().__init__()
+        self.pictures = pictures
+        self.cell_px = cell_px
         self.presets_file = presets_file
         self._photo_presets = None  # the presets file, read at the first photo
         self.recorder = recorder

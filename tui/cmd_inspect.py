@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from dataclasses import replace
 from pathlib import Path
 
 from .options import STATION_EXIT_CODES, diameter_type, expand_photos, wavelength_type
+from .picture_mode import ENV_VAR, PICTURE_CHOICES
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -112,6 +114,15 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
         "256 colours otherwise, characters with NO_COLOR)",
     )
     p.add_argument(
+        "--images",
+        choices=PICTURE_CHOICES,
+        default=None,
+        help="draw the photo and the surface map as pictures: auto (default, or "
+        "$FLATSIGHT_IMAGES) where the terminal answers that it draws Sixel or Kitty "
+        "graphics and NO_COLOR is unset; on for them even unasked (behind tmux: Kitty's "
+        "in kitty, else Sixel); sixel or kitty for that one; off for half-block cells",
+    )
+    p.add_argument(
         "--config",
         metavar="FILE",
         default=None,
@@ -208,11 +219,23 @@ def run(args: argparse.Namespace) -> int:
         )
         return 2
 
+    images = args.images or os.environ.get(ENV_VAR) or "auto"
+    if images not in PICTURE_CHOICES:
+        print(f"flatsight inspect: error: {ENV_VAR}={shown(images)} is not one of "
+              f"{', '.join(PICTURE_CHOICES)}", file=sys.stderr)
+        return 2
+    from .picture_mode import cell_pixels, picture_protocol
+
+    # asked before Textual starts: it reads the keyboard, where the terminal answers
+    pictures = picture_protocol(images)
+    cell_px = cell_pixels() if pictures else (10, 20)
+
     from .app import FlatsightStation  # Textual only now, so `flatsight --help` stays quick
 
     app = FlatsightStation(
         photos, settings=settings, config_path=config_path, out_dir=out_dir, notice=notice,
-        presets_file=presets_file, recorder=recorder, preset=chosen,
+        presets_file=presets_file, recorder=recorder, preset=chosen, pictures=pictures,
+        cell_px=cell_px,
     )
     app.run()
     return int(app.return_code or 0)

@@ -8,6 +8,7 @@ so figures, term removal and saving run the real code.
 from __future__ import annotations
 
 import asyncio
+import functools
 import threading
 from pathlib import Path
 
@@ -147,6 +148,16 @@ def fake_backend(lib: FakeLibrary | None = None) -> tuple[StationBackend, FakeLi
 # workers that live as long as their widget, waiting for work (the directory tree of the
 # open screen keeps one to load folders as they are opened): never waited for
 LONG_LIVED_WORKER_GROUPS = frozenset({"_loader"})
+
+
+def sync(scenario):
+    """Run an async Pilot scenario as a plain test (the suite has no asyncio plugin)."""
+
+    @functools.wraps(scenario)
+    def test(*args, **kwargs):
+        asyncio.run(scenario(*args, **kwargs))
+
+    return test
 
 
 async def settle(pilot, *, most_rounds: int = 200) -> None:

@@ -324,18 +324,22 @@ def legend_lines(
     n: int = 7,
     mode: str = "truecolor",
     sequential: bool = False,
+    swatches: bool = True,
 ) -> list[Text]:
     """Colour (or character) swatches with their heights in nm and in waves.
 
     A wave is one ``wavelength_nm`` of height; the values run from the top of the scale
-    to the bottom so the legend reads like the map (high above, low below).
+    to the bottom so the legend reads like the map (high above, low below). Without
+    ``swatches`` the lines hold the values alone, for a colour bar drawn beside them.
     """
     styles = _StyleCache(mode)
     ticks = legend_ticks(vmin_nm, vmax_nm, n)
     lines = []
     for value in ticks:
         line = Text()
-        if mode == "mono":
+        if not swatches:
+            pass
+        elif mode == "mono":
             line.append(f" {mono_char(np.array([value]), vmin_nm, vmax_nm)[0]}  ")
         else:
             colours = sequential_rgb if sequential else diverging_rgb
@@ -346,7 +350,9 @@ def legend_lines(
                     f"{format_number(value / wavelength_nm, 3, sign=True):>6} λ")
         lines.append(line)
     no_data = Text()
-    if mode == "mono":
+    if not swatches:
+        pass
+    elif mode == "mono":
         no_data.append("    ")
     else:
         no_data.append("  ", styles.get(None, NO_DATA_RGB))

@@ -10,8 +10,8 @@ from rich.text import Text
 from ...analysis.aperture import Aperture
 from .heatmap import _StyleCache, fit_cells, resample_nanmean
 
-__all__ = ["CellGrid", "GREY_RAMP", "aperture_region", "downsample_photo", "render_photo",
-           "render_spectrum"]
+__all__ = ["CellGrid", "GREY_RAMP", "aperture_region", "crop_region", "downsample_photo",
+           "photo_layers", "render_photo", "render_spectrum"]
 
 # Dark to light, for terminals without colour.
 GREY_RAMP = " .:-=+*#%@"
@@ -109,6 +109,17 @@ def aperture_region(
     return (x0, y0, x1, y1)
 
 
+def crop_region(
+    pixels: np.ndarray, region: tuple[int, int, int, int] | None
+) -> tuple[np.ndarray, tuple[int, int]]:
+    """The part of the photo ``region`` bounds (all of it for None), as floats, and its corner."""
+    p = np.asarray(pixels, dtype=float)
+    if region is None:
+        return p, (0, 0)
+    x0, y0, x1, y1 = region
+    return p[y0:y1, x0:x1], (x0, y0)
+
+
 def _ring(x, y, cx, cy, r, half_width):
     d = np.hypot(x - cx, y - cy)
     return np.abs(d - r) <= half_width
@@ -136,6 +147,48 @@ def _cells_to_lines(rgb: np.ndarray, mode: str, grey: np.ndarray, marks: dict) -
             text.append("▀", styles.get(top, bot))
         lines.append(text)
     return lines
+
+
+def photo_layers(
+    pixels: np.ndarray,
+    grid: CellGrid,
+    aperture: Aperture | None,
+    selected: int | None,
+    *,
+    line_steps: float = 0.5,
+) -> tuple[np.ndarray, np.ndarray, list]:
+    """The photo on ``grid`` with the aperture drawn over it, as colours and as grey shades.
+
+    Returns ``(rgb, shade, outlines)``: ``(rows, cols, 3)`` colours in 0..255 with the photo
+    dimmed outside the aperture, the exclusions tinted and the outlines drawn
+    ``line_steps`` grid steps either side of their circles; the grey shades the
+    character mode draws; and ``(k, ring, colour, cx, cy)`` for each outline drawn
+    (``k`` -1 for the aperture, else the exclusion's index; ``ring`` its grid pixels).
+    """
+    grey = _stretch(downsample_photo(pixels, (grid.rows, grid.cols)))
+    shade = grey.copy()
+    rgb = np.repeat((grey * 255.0)[..., None], 3, axis=-1)
+    outlines = []
+    if aperture is None:
+        return rgb, shade, outlines
+    x, y = grid.source_xy()
+    half = line_steps * grid.step_px
+    inside_disk = np.hypot(x - aperture.center_x_px, y - aperture.center_y_px) <= aperture.radius_px
+    rgb[~inside_disk] *= OUTSIDE_DIM
+    shade[~inside_disk] *= OUTSIDE_DIM
+    circles = [(-1, aperture.center_x_px, aperture.center_y_px, aperture.radius_px)]
+    for k, e in enumerate(aperture.exclusions):
+        hole = np.hypot(x - e.center_x_px, y - e.center_y_px) <= e.radius_px
+        rgb[hole] = 0.5 * rgb[hole] + 0.5 * np.array(EXCLUDED_RGB)
+        shade[hole] = 0.0
+        circles.append((k, e.center_x_px, e.center_y_px, e.radius_px))
+    for k, cx, cy, r in circles:
+        ring = _ring(x, y, cx, cy, r, half)
+        colour = SELECTED_RGB if k == selected else (OUTLINE_RGB if k < 0 else EXCLUDED_RGB)
+        rgb[ring] = colour
+        shade[ring] = 1.0
+        outlines.append((k, ring, colour, cx, cy))
+    return rgb, shade, outlines
 
 
 def render_photo(
@@ -167,44 +220,19 @@ def render_photo(
         aperture's surroundings from :func:`aperture_region`, so the fringes get
         more terminal cells than the whole frame would leave them.
     """
-    p = np.asarray(pixels, dtype=float)
-    origin = (0, 0)
-    if region is not None:
-        x0, y0, x1, y1 = region
-        p = p[y0:y1, x0:x1]
-        origin = (x0, y0)
+    p, origin = crop_region(pixels, region)
     grid = _grid_for(p.shape, width, height, origin)
     if grid.rows == 0:
         return [], grid
-    grey = _stretch(downsample_photo(p, (grid.rows, grid.cols)))
-    shade = grey.copy()
-    rgb = np.repeat((grey * 255.0)[..., None], 3, axis=-1)
+    rgb, shade, outlines = photo_layers(p, grid, aperture, selected)
     marks: dict[tuple[int, int], tuple[str, tuple[int, int, int]]] = {}
-    if aperture is not None:
-        x, y = grid.source_xy()
-        half = 0.5 * grid.step_px
-        inside_disk = (
-            np.hypot(x - aperture.center_x_px, y - aperture.center_y_px) <= aperture.radius_px
-        )
-        rgb[~inside_disk] *= OUTSIDE_DIM
-        shade[~inside_disk] *= OUTSIDE_DIM
-        outlines = [(-1, aperture.center_x_px, aperture.center_y_px, aperture.radius_px)]
-        for k, e in enumerate(aperture.exclusions):
-            hole = np.hypot(x - e.center_x_px, y - e.center_y_px) <= e.radius_px
-            rgb[hole] = 0.5 * rgb[hole] + 0.5 * np.array(EXCLUDED_RGB)
-            shade[hole] = 0.0
-            outlines.append((k, e.center_x_px, e.center_y_px, e.radius_px))
-        for k, cx, cy, r in outlines:
-            ring = _ring(x, y, cx, cy, r, half)
-            colour = SELECTED_RGB if k == selected else (OUTLINE_RGB if k < 0 else EXCLUDED_RGB)
-            rgb[ring] = colour
-            shade[ring] = 1.0
-            if mode == "mono":
-                for rr, cc in zip(*np.nonzero(ring), strict=True):
-                    marks[(rr // 2, cc)] = ("@" if k == selected else "o", colour)
-            cr, cc = grid.cell_of(cx, cy)
-            if 0 <= cr < grid.rows // 2 and 0 <= cc < grid.cols and (k == selected or k < 0):
-                marks[(cr, cc)] = ("+", colour)
+    for k, ring, colour, cx, cy in outlines:
+        if mode == "mono":
+            for rr, cc in zip(*np.nonzero(ring), strict=True):
+                marks[(rr // 2, cc)] = ("@" if k == selected else "o", colour)
+        cr, cc = grid.cell_of(cx, cy)
+        if 0 <= cr < grid.rows // 2 and 0 <= cc < grid.cols and (k == selected or k < 0):
+            marks[(cr, cc)] = ("+", colour)
     return _cells_to_lines(rgb, mode, shade, marks), grid
 
 

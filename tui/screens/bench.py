@@ -193,6 +193,11 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
         diameter = "—" if s.diameter_mm is None else f"{s.diameter_mm:g} mm"
         sign = "inverted" if s.invert else "normal"
         preset = f" [dim]│[/dim] {self.chosen_preset.name}" if self.chosen_preset else ""
+        protocol = getattr(self.app, "pictures", None)
+        if protocol is not None and self.colour != "mono":  # pictures: say in which protocol
+            from ..picture_mode import PROTOCOL_NAMES
+
+            preset += f" [dim]│[/dim] {PROTOCOL_NAMES[protocol]}"
         self.query_one("#bench-bar", Static).update(
             f"[b]Flatsight[/b] [dim]│[/dim] λ {self.wavelength_for(self.entry):g} nm [dim]│[/dim] "
             f"{s.n_terms} terms [dim]│[/dim] sign {sign} [dim]│[/dim] ⌀ {diameter} "

@@ -8,6 +8,7 @@ from rich.text import Text
 from textual.binding import Binding
 
 from ..render.photo import aperture_region, render_photo
+from ..render.picture import photo_picture
 from ..render.summary import carrier_short, quality_lines
 from ..safe_text import shown
 from .view_base import StationView, side_by_side
@@ -18,7 +19,10 @@ PANEL_WIDTH = 24
 
 
 class FringeView(StationView):
-    """The photo in half-block grey cells. Keys move and size the outline being edited."""
+    """The photo in half-block grey cells, or as a picture where the terminal draws them, the
+    outlines drawn into it either way. Keys move and size the outline being edited."""
+
+    DRAWS_PICTURES = True
 
     BINDINGS = [
         Binding("left", "screen.nudge(-1, 0)", "Move ←", show=False),
@@ -40,6 +44,7 @@ class FringeView(StationView):
 
     def draw(self) -> Text:
         e = self.entry
+        self._shown_picture = None  # where a click lands: the picture, else the cells
         if e is None or e.pixels is None:
             return self.placeholder() or Text("Loading photo…", style="dim")
         w, h = self.size.width, self.size.height
@@ -52,15 +57,18 @@ class FringeView(StationView):
             if self.ctx.zoom and aperture is not None
             else None
         )
-        lines, self._grid = render_photo(
-            e.pixels,
-            width=map_w,
-            height=map_h,
-            aperture=aperture,
-            selected=self.ctx.selected,
-            mode=self.ctx.colour,
-            region=region,
-        )
+        if self.pictures_shown():
+            lines = self._picture_lines(e.pixels, map_w, map_h, aperture, region)
+        else:
+            lines, self._grid = render_photo(
+                e.pixels,
+                width=map_w,
+                height=map_h,
+                aperture=aperture,
+                selected=self.ctx.selected,
+                mode=self.ctx.colour,
+                region=region,
+            )
         panel = self._panel(aperture)
         if wide:
             return side_by_side(
@@ -73,13 +81,29 @@ class FringeView(StationView):
             out.append_text(line)
         return out
 
+    def _picture_lines(self, pixels, width, height, aperture, region) -> list[Text]:
+        """Show the photo as a picture; blank lines where it lies, for the text around it."""
+        selected = self.ctx.selected
+        cell_px = self.cell_px()
+        key = (id(pixels), aperture, selected, region, width, height, cell_px)
+        cells_w, cells_h, pic = self.place_picture(key, lambda: photo_picture(
+            pixels, width=width, height=height, cell_px=cell_px, aperture=aperture,
+            selected=selected, region=region))
+        self._grid = None
+        self._shown_picture = pic
+        return [Text(" " * cells_w) for _ in range(cells_h)]
+
     async def on_click(self, event) -> None:
         """A click on the photo moves the outline being edited to that point."""
+        pic = getattr(self, "_shown_picture", None)
         grid = getattr(self, "_grid", None)
-        if grid is None or not (0 <= event.x < grid.cols and 0 <= 2 * event.y < grid.rows):
+        if pic is not None and 0 <= event.x < pic.cells_w and 0 <= event.y < pic.cells_h:
+            x, y = pic.photo_xy(event.x + 0.5, event.y + 0.5, self.cell_px())
+        elif grid is not None and 0 <= event.x < grid.cols and 0 <= 2 * event.y < grid.rows:
+            x = grid.origin_x_px + (event.x + 0.5) * grid.step_px - 0.5
+            y = grid.origin_y_px + (2 * event.y + 1.0) * grid.step_px - 0.5
+        else:
             return
-        x = grid.origin_x_px + (event.x + 0.5) * grid.step_px - 0.5
-        y = grid.origin_y_px + (2 * event.y + 1.0) * grid.step_px - 0.5
         await self.screen.run_action(f"centre_at({x:.1f}, {y:.1f})")
 
     def _summary(self, aperture) -> list[Text]:
@@ -122,8 +146,10 @@ class FringeView(StationView):
             Text(f"exclusions {len(aperture.exclusions)}"),
             Text.assemble(("editing ", "dim"), (editing, "bold #60e8ff")),
             Text("z: whole photo" if self.ctx.zoom else "z: zoom to aperture", style="dim"),
-            Text(""),
         ]
+        if self.pictures_shown():
+            rows.append(self.picture_note())
+        rows.append(Text(""))
         m = e.measurement
         if m is not None:
             q = m.quality
