@@ -99,7 +99,7 @@ def main() -> None:
             surface = SyntheticSurface({4: 30.0 + k, 5: -10.0, 6: 8.0, 11: 4.0},
                                        ripple_nm=0.8)
             photo = make_fringe_photo(surface, shape=shape, fringes=18.0 + k % 5,
-                                      angle_deg=20.0 + 7 * k, seed=k)
+                                      angle_deg=(20.0 + 7 * k) % 180.0, seed=k)
             photos.append(folder / f"BW-FL-{1000 + k:04d}.png")
             write_photo(photo, photos[-1])
         expected = [p.name for p in photos]

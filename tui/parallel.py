@@ -19,6 +19,9 @@ __all__ = ["Finished", "available_cores", "jobs_type", "measure_in_parallel"]
 
 #: the environment variable the analysis reads for its FFT threads (analysis/extension.py)
 FFT_THREADS_ENV = "FLATSIGHT_FFT_THREADS"
+#: what a worker process reads for its threads when it starts: the FFTs', and those of
+#: the BLAS and OpenMP libraries numpy and scipy use (read once, when they load)
+THREAD_ENV = (FFT_THREADS_ENV, "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 def available_cores() -> int:
@@ -80,10 +83,11 @@ def measure_in_parallel(jobs: list[tuple[str, Any]], workers: int) -> Iterator[F
     from concurrent.futures.process import BrokenProcessPool
 
     workers = max(1, min(workers, len(jobs)))
-    # each worker's FFTs get their share of the cores, not all of them
-    threads = max(1, available_cores() // workers)
-    previous = os.environ.get(FFT_THREADS_ENV)
-    os.environ[FFT_THREADS_ENV] = str(threads)
+    # each worker's FFTs and linear algebra get their share of the cores, not all of
+    # them: N processes each running N threads only fight over the cores
+    threads = str(max(1, available_cores() // workers))
+    previous = {name: os.environ.get(name) for name in THREAD_ENV}
+    os.environ.update(dict.fromkeys(THREAD_ENV, threads))
     # forkserver: workers start from a clean process, not a copy of this one's threads
     method = "forkserver" if "forkserver" in multiprocessing.get_all_start_methods() else None
     pool = ProcessPoolExecutor(max_workers=workers, initializer=_start_worker,
@@ -120,7 +124,8 @@ def measure_in_parallel(jobs: list[tuple[str, Any]], workers: int) -> Iterator[F
                 proc.terminate()
             for proc in procs:
                 proc.join(timeout=5)
-        if previous is None:
-            os.environ.pop(FFT_THREADS_ENV, None)
-        else:
-            os.environ[FFT_THREADS_ENV] = previous
+        for name, value in previous.items():
+            if value is None:
+                os.environ.pop(name, None)
+            else:
+                os.environ[name] = value
