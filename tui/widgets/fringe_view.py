@@ -85,8 +85,8 @@ class FringeView(StationView):
         """Show the photo as a picture; blank lines where it lies, for the text around it."""
         selected = self.ctx.selected
         cell_px = self.cell_px()
-        key = (id(pixels), aperture, selected, region, width, height, cell_px)
-        cells_w, cells_h, pic = self.place_picture(key, lambda: photo_picture(
+        key = (aperture, selected, region, width, height, cell_px)
+        cells_w, cells_h, pic = self.place_picture(pixels, key, lambda: photo_picture(
             pixels, width=width, height=height, cell_px=cell_px, aperture=aperture,
             selected=selected, region=region))
         self._grid = None

@@ -56,8 +56,8 @@ class SurfaceView(StationView):
     def _map_picture(self, height_map, inside, width: int, height: int, n_ticks: int):
         """Show the map and its colour bar as a picture, below the terms line."""
         cell_px = self.cell_px()
-        key = (id(height_map), width, height, n_ticks, cell_px)
-        return self.place_picture(key, lambda: map_picture(
+        key = (width, height, n_ticks, cell_px)
+        return self.place_picture(height_map, key, lambda: map_picture(
             height_map, width=width, height=height, cell_px=cell_px, n_ticks=n_ticks,
             inside=inside), top=1)[2]
 

@@ -69,15 +69,20 @@ class StationView(Widget, can_focus=True):
     def cell_px(self) -> tuple[int, int]:
         return getattr(self.app, "cell_px", (10, 20))
 
-    def place_picture(self, key, make, *, top: int = 0) -> tuple[int, int, object]:
-        """Show the picture ``make()`` returns (remade only when ``key`` changes).
+    def place_picture(self, source, key, make, *, top: int = 0) -> tuple[int, int, object]:
+        """Show the picture ``make()`` returns of ``source`` (an array).
 
+        It is remade only when ``source`` is another object or ``key`` (the drawing's
+        settings) changes; the source is held while its picture is shown, so a new
+        array can never be taken for it.
         ``make`` returns None or an object with ``image``, ``cells_w`` and ``cells_h``.
         Returns the cells it fills, ``(0, 0, None)`` for none, and that object.
         """
         self._picture_placed = True
         widget = self.query_one(".picture")
-        if key != getattr(self, "_picture_key", None):
+        if (source is not getattr(self, "_picture_source", None)
+                or key != getattr(self, "_picture_key", None)):
+            self._picture_source = source
             self._picture_key = key
             self._picture = make()
             widget.image = None if self._picture is None else self._picture.image
