@@ -414,7 +414,7 @@ def demodulate(
     if inframe is not None:
         weight &= np.pad(inframe, ((0, pad), (0, pad))) if pad else inframe
     weight = weight.astype(np.float32)
-    env_mean, env_half = fringe_envelope(data, rho, weight > 0)
+    env_mean, env_half = fringe_envelope(data, rho, weight > 0, ring_width=0.5 / r_b)
     fit_data = ((data - env_mean) / env_half).astype(np.float32)
     m = size // step
     rho_m = rho[::step, ::step][:m, :m]

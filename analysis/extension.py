@@ -107,7 +107,8 @@ def find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: n
 
 
 def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
-                    *, inner: float = 0.85) -> tuple[np.ndarray, np.ndarray]:
+                    *, inner: float = 0.85, ring_width: float = 0.01
+                    ) -> tuple[np.ndarray, np.ndarray]:
     """The fringes' local mean and half-amplitude, following the aperture's soft edge.
 
     The light is a smooth illumination (a quadratic fitted over the inner disk, where
@@ -116,7 +117,8 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
     upper and lower envelope of the photo divided by the illumination (its 95th and
     5th percentiles, which the fringes reach on every ring whatever their direction).
     Dividing the photo by them leaves fringes of constant mean and amplitude out to
-    the rim, so the local fit no longer rings against a fading edge.
+    the rim, so the local fit no longer rings against a fading edge. ``ring_width``
+    (in units of the radius) should be under a pixel.
 
     Returns
     -------
@@ -137,17 +139,28 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
              @ coef)
     illum = np.maximum(illum, 1e-6 * max(float(np.max(illum)), 1e-12))
     q = data / illum
-    width = 0.01
-    edges = np.arange(inner - 0.1, 1.0 + width, width)
-    centres, upper, lower = [], [], []
-    for lo in edges:
-        ring = known & (rho >= lo) & (rho < lo + width)
-        if ring.sum() < 64:
-            continue
-        v = q[ring]
-        centres.append(lo + 0.5 * width)
-        upper.append(np.percentile(v, 95))
-        lower.append(np.percentile(v, 5))
+    # rings as thin as the edge's detail: a soft edge fades over a few pixels, and a
+    # ring wider than that averages its profile, which bends the fringes where they run
+    # along the rim
+    width = ring_width
+    lo_r = inner - 0.1
+    sel_r = known & (rho >= lo_r) & (rho < 1.0 + width)
+    ring_of = ((rho[sel_r] - lo_r) / width).astype(np.int64)
+    values = q[sel_r]
+    order = np.lexsort((values, ring_of))
+    ring_sorted, v_sorted = ring_of[order], values[order]
+    rings, starts, counts = np.unique(ring_sorted, return_index=True, return_counts=True)
+    full = counts >= 64
+    rings, starts, counts = rings[full], starts[full], counts[full]
+    centres = list(lo_r + (rings + 0.5) * width)
+
+    def percentile(p: float) -> list[float]:  # linear interpolation, as numpy's default
+        pos = starts + (counts - 1) * (p / 100.0)
+        i0 = np.floor(pos).astype(np.int64)
+        i1 = np.minimum(i0 + 1, starts + counts - 1)
+        return list(v_sorted[i0] + (pos - i0) * (v_sorted[i1] - v_sorted[i0]))
+
+    upper, lower = percentile(95), percentile(5)
     if len(centres) < 4:
         mean = illum * np.median(q[sel])
         return mean, 0.5 * (np.percentile(q[sel], 95) - np.percentile(q[sel], 5)) * illum
