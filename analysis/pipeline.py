@@ -169,8 +169,8 @@ def measure(
     ------
     UnreadablePhotoError, UnanalysablePhotoError, SettingsError, MeasurementCancelled
     """
-    from .aperture import find_aperture
     from .loading import FringePhoto, load_photo, photo_from_array
+    from .outline import find_part_aperture
 
     _validate(settings)
     timings: dict[str, float] = {}
@@ -218,7 +218,7 @@ def measure(
                 f"aperture {given} does not fit the {W}x{H} photo (centre inside, "
                 f"radius from 16 px to {max(W, H) / 2:g} px, half the photo's longer side)")
     else:
-        aperture = find_aperture(image, photo_name=name)
+        aperture = find_part_aperture(image, photo_name=name)
     if settings.exclusions:
         aperture = aperture.with_exclusions(tuple(aperture.exclusions) + settings.exclusions)
     if fringe_photo.saturated_fraction > 0.01:

@@ -34,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["SHAPE_FORMS", "Annulus", "Ellipse", "Polygon", "Rectangle", "Shape",
-           "parse_shape", "shape_from_dict"]
+           "parse_shape", "shape_from_dict", "shape_words"]
 
 #: the forms ``--aperture`` takes, for help texts and error messages
 SHAPE_FORMS = ("X,Y,R", "circle:X,Y,R", "ellipse:CX,CY,A,B,ANGLE", "rect:CX,CY,W,H,ANGLE",
@@ -433,6 +433,24 @@ def parse_shape(text: str) -> tuple[float, float, float] | Shape:
         return Annulus(cx, cy, r, rin)
     raise ValueError(f"{text!r}: unknown aperture shape {kind!r}; use one of "
                      + ", ".join(SHAPE_FORMS))
+
+
+def shape_words(d: dict | None) -> str | None:
+    """What a record's ``aperture.shape`` means, in a sentence for a certificate or a
+    report (None for a circle, which has no ``shape``)."""
+    if not d:
+        return None
+    try:
+        shape = shape_from_dict(d)
+    except (KeyError, TypeError, ValueError):
+        return f"outline {d.get('kind')!s}"
+    if isinstance(shape, Ellipse):
+        return (f"a round part photographed {shape.view_angle_deg:.1f} deg off its axis "
+                f"(an ellipse {_fmt(2 * shape.a_px)} x {_fmt(2 * shape.b_px)} px), mapped "
+                "back to its circle; figures over that circle")
+    return (f"{shape.describe()}; figures over its outline, fitted by polynomials "
+            "orthonormal over it; power is the best-fit sphere's sag from the centre to "
+            "the farthest point")
 
 
 def shape_from_dict(d: dict) -> Shape:

@@ -57,6 +57,17 @@ def _part_coordinates(kind: str, part: dict, px: np.ndarray, py: np.ndarray):
     return px / half_diag, py / half_diag, dist
 
 
+def _extent(kind: str, part: dict, angle_deg: float) -> float:
+    """The part's width in the photo along the direction ``angle_deg`` (px)."""
+    if kind == "ellipse":
+        a = part["radius_px"]
+        b = a * math.cos(math.radians(part["view_deg"]))
+        t = math.radians(angle_deg - part["axis_deg"])
+        return 2.0 * math.hypot(a * math.cos(t), b * math.sin(t))
+    t = math.radians(angle_deg - part["angle_deg"])
+    return abs(part["width_px"] * math.cos(t)) + abs(part["height_px"] * math.sin(t))
+
+
 def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960),
                   center_px=None, fringes: float = 20.0, angle_deg: float = 30.0,
                   wavelength_nm: float = 632.8, visibility: float = 0.7, level: float = 0.45,
@@ -64,12 +75,13 @@ def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960
                   edge_width_px: float = 2.0, seed: int = 0) -> np.ndarray:
     """An 8-bit photo of a shaped part (see the module docstring); ``part`` holds
     ``radius_px, view_deg, axis_deg`` (ellipse) or ``width_px, height_px, angle_deg``
-    (rect). The fringe count is across the part's longest chord in the photo."""
+    (rect). ``fringes`` is the count across the part along the carrier, as the
+    operator sees it."""
     rows, cols = shape
     cx, cy = center_px if center_px is not None else ((cols - 1) / 2.0, (rows - 1) / 2.0)
     span = (part["radius_px"] if kind == "ellipse"
             else 0.5 * math.hypot(part["width_px"], part["height_px"]))
-    fx, fy = carrier_for(fringes, angle_deg, span)
+    fx, fy = carrier_for(fringes, angle_deg, 0.5 * _extent(kind, part, angle_deg))
     yy, xx = np.mgrid[0:rows, 0:cols].astype(float)
     px, py = xx - cx, cy - yy
     xu, yu, dist = _part_coordinates(kind, part, px, py)
@@ -129,30 +141,35 @@ class ShapedCase:
     settings: dict = field(default_factory=dict)
 
 
-def random_shaped_case(seed: int, kind: str) -> ShapedCase:
-    """A random ellipse (15-35 deg of view) or rectangle (1:1 to 4:1, any rotation)."""
+def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
+                       aspect: float | None = None, scale: float = 1.0) -> ShapedCase:
+    """A random ellipse (15-35 deg of view) or rectangle (1:1 to 4:1, any rotation) on a
+    720 x 960 photo (times ``scale``); ``view_deg`` or ``aspect`` fix that one draw."""
     rng = np.random.default_rng([seed, 1 if kind == "ellipse" else 2])
     wavelength = float(rng.choice([632.8, 589.3, 546.07]))
     fringes = float(rng.uniform(12.0, 24.0))
     surface = random_surface(rng, wavelength_nm=wavelength, fringes=fringes)
-    rows, cols = 720, 960
-    cx = (cols - 1) / 2.0 + rng.uniform(-30, 30)
-    cy = (rows - 1) / 2.0 + rng.uniform(-20, 20)
+    rows, cols = int(round(720 * scale)), int(round(960 * scale))
+    cx = (cols - 1) / 2.0 + scale * rng.uniform(-30, 30)
+    cy = (rows - 1) / 2.0 + scale * rng.uniform(-20, 20)
     if kind == "ellipse":
-        part = {"radius_px": float(rng.uniform(230, 320)), "view_deg": float(rng.uniform(15, 35)),
-                "axis_deg": float(rng.uniform(0, 180))}
+        part = {"radius_px": scale * float(rng.uniform(230, 320)),
+                "view_deg": float(rng.uniform(15, 35)), "axis_deg": float(rng.uniform(0, 180))}
+        if view_deg is not None:
+            part["view_deg"] = float(view_deg)
         answer = truth(surface, wavelength)
     else:
-        aspect = float(rng.uniform(1.0, 4.0))
-        diag = float(rng.uniform(520, 660))
+        drawn = float(rng.uniform(1.0, 4.0))
+        aspect = drawn if aspect is None else float(aspect)
+        diag = scale * float(rng.uniform(520, 660))
         height = diag / math.hypot(aspect, 1.0)
         part = {"width_px": aspect * height, "height_px": height,
                 "angle_deg": float(rng.uniform(0, 180))}
         # the rectangle stays inside the frame whatever its turn
         u, v = _turn(np.array([1, -1, -1, 1]) * part["width_px"] / 2,
                      np.array([1, 1, -1, -1]) * part["height_px"] / 2, part["angle_deg"])
-        shrink = min(1.0, 0.95 * min((cols / 2 - 32) / np.max(np.abs(u)),
-                                     (rows / 2 - 24) / np.max(np.abs(v))))
+        shrink = min(1.0, 0.95 * min((cols / 2 - 32 * scale) / np.max(np.abs(u)),
+                                     (rows / 2 - 24 * scale) / np.max(np.abs(v))))
         part["width_px"] *= shrink
         part["height_px"] *= shrink
         answer = rect_truth(surface, part)
