@@ -12,7 +12,7 @@ from skimage.filters import threshold_otsu
 from skimage.measure import label
 
 from .errors import SettingsError, UnanalysablePhotoError
-from .shapes import Shape
+from .shapes import Ellipse, Shape
 
 __all__ = ["Aperture", "Exclusion", "find_aperture"]
 
@@ -69,9 +69,14 @@ class Aperture:
                         max(2.0, self.radius_px + dr), self.exclusions)
 
     def reshaped(self, turn_deg: float = 0.0, stretch: float = 1.0) -> Aperture:
-        """A copy turned counter-clockwise and stretched across (no change to a circle)."""
+        """A copy turned counter-clockwise and stretched across; a circle stretched becomes
+        an ellipse (a round part seen at an angle), turned it stays as it is."""
         if self.shape is None:
-            return self
+            if stretch >= 1.0:
+                return self
+            return Aperture.of_shape(Ellipse(self.center_x_px, self.center_y_px,
+                                             self.radius_px, self.radius_px * stretch, 0.0),
+                                     self.exclusions)
         return Aperture.of_shape(self.shape.moved(turn_deg=turn_deg, stretch=stretch),
                                  self.exclusions)
 

@@ -72,3 +72,24 @@ def test_the_record_and_certificate_name_the_shape(measured):
         assert record["zernike"]["normalisation"].startswith("Noll: orthonormal over the unit")
     else:
         assert "orthonormal over the part" in record["zernike"]["normalisation"]
+
+
+@pytest.mark.parametrize("outline", ["annulus:360,270,200,70",
+                                     "poly:560,270;422,460;198,388;198,152;422,80"])
+def test_annulus_and_polygon_figures_follow_their_outline(outline):
+    # A consistency check, not an accuracy one: photo and truth both come from the
+    # project's own demo generator (analysis.synthetic), whose truth samples the surface
+    # over the outline's area with the same orthonormal terms. The independent
+    # generator draws no annulus or polygon yet.
+    from flatsight.analysis.aperture import Aperture
+    from flatsight.analysis.shapes import parse_shape
+    from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo
+
+    surface = SyntheticSurface(zernike_nm={4: 12.0, 5: 4.0, 6: -3.0, 8: 2.0, 11: 1.5})
+    photo = make_fringe_photo(surface, shape=(540, 720), center_xy=(360, 270),
+                              radius_px=215, fringes=18, dust=0, bad_pixels=0, seed=3)
+    aperture = Aperture.of_shape(parse_shape(outline))
+    truth = photo.truth(reported=aperture)
+    m = measure(photo.image, MeasureSettings(wavelength_nm=632.8, aperture=aperture))
+    assert m.aperture.kind == aperture.kind
+    assert abs(m.figures.rms_nm - truth.rms_nm) <= _allowed(truth.rms_nm, 1.0)

@@ -95,6 +95,9 @@ def test_aperture_of_a_shape_is_its_bounding_circle():
     # a circle has no outline to turn, and keeps today's fields and form
     c = Aperture(10.0, 20.0, 30.0)
     assert c.reshaped(turn_deg=30) is c and c.kind == "circle" and c.maps_to_disk
+    # narrowed, a circle becomes the ellipse of a round part seen at an angle
+    seen = c.reshaped(stretch=0.9)
+    assert seen.kind == "ellipse" and seen.shape.b_px == pytest.approx(27.0)
     assert c.edge_rho(np.array([10.0 + 30.0]), np.array([20.0])) == pytest.approx(1.0)
 
 
