@@ -12,6 +12,7 @@ from skimage.filters import threshold_otsu
 from skimage.measure import label
 
 from .errors import SettingsError, UnanalysablePhotoError
+from .shapes import Ellipse, Shape
 
 __all__ = ["Aperture", "Exclusion", "find_aperture"]
 
@@ -30,29 +31,98 @@ class Exclusion:
 
 @dataclass(frozen=True)
 class Aperture:
-    """The clear aperture in photo pixels (x to the right, y down, from pixel centres)."""
+    """The clear aperture in photo pixels (x right, y down, from pixel centres).
+
+    A circular part is its centre and radius. Any other outline is ``shape`` (see
+    ``shapes``); centre and radius are then the outline's bounding circle, which the
+    demodulation crops by, and ``inside`` and ``unit_xy`` follow the outline.
+    """
 
     center_x_px: float
     center_y_px: float
     radius_px: float
     exclusions: tuple[Exclusion, ...] = field(default=())
+    shape: Shape | None = None
+
+    @classmethod
+    def of_shape(cls, shape: Shape, exclusions: tuple[Exclusion, ...] = ()) -> Aperture:
+        """The aperture of an outline, centred on it with its bounding radius."""
+        return cls(float(shape.center_x_px), float(shape.center_y_px),
+                   float(shape.bounding_radius_px), tuple(exclusions), shape)
+
+    @property
+    def kind(self) -> str:
+        """``circle``, or the outline's kind (``ellipse``, ``rect``, ``poly``, ``annulus``)."""
+        return "circle" if self.shape is None else self.shape.kind
+
+    @property
+    def maps_to_disk(self) -> bool:
+        """Whether ``unit_xy`` fills the unit disk (circle, ellipse): plain Zernike terms."""
+        return self.shape is None or self.shape.maps_to_disk
 
     def moved(self, dx: float = 0.0, dy: float = 0.0, dr: float = 0.0) -> Aperture:
         """A copy shifted by ``(dx, dy)`` pixels and grown by ``dr``."""
+        if self.shape is not None:
+            grow = max(2.0, self.radius_px + dr) / self.radius_px
+            return Aperture.of_shape(self.shape.moved(dx, dy, grow), self.exclusions)
         return Aperture(self.center_x_px + dx, self.center_y_px + dy,
                         max(2.0, self.radius_px + dr), self.exclusions)
 
-    def with_exclusions(self, exclusions: tuple[Exclusion, ...]) -> Aperture:
-        return Aperture(self.center_x_px, self.center_y_px, self.radius_px, tuple(exclusions))
+    def reshaped(self, turn_deg: float = 0.0, stretch: float = 1.0) -> Aperture:
+        """A copy turned counter-clockwise and stretched across; a circle stretched becomes
+        an ellipse (a round part seen at an angle), turned it stays as it is."""
+        if self.shape is None:
+            if stretch >= 1.0:
+                return self
+            return Aperture.of_shape(Ellipse(self.center_x_px, self.center_y_px,
+                                             self.radius_px, self.radius_px * stretch, 0.0),
+                                     self.exclusions)
+        return Aperture.of_shape(self.shape.moved(turn_deg=turn_deg, stretch=stretch),
+                                 self.exclusions)
 
-    def inside(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
-        """True for photo points inside the disk and outside every exclusion."""
+    def with_exclusions(self, exclusions: tuple[Exclusion, ...]) -> Aperture:
+        return Aperture(self.center_x_px, self.center_y_px, self.radius_px, tuple(exclusions),
+                        self.shape)
+
+    def region(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """True for photo points on the part (its outline; exclusions not taken out)."""
+        if self.shape is not None:
+            return self.shape.inside(x, y)
         x = np.asarray(x, dtype=float)
         y = np.asarray(y, dtype=float)
-        keep = (x - self.center_x_px) ** 2 + (y - self.center_y_px) ** 2 <= self.radius_px**2
+        return (x - self.center_x_px) ** 2 + (y - self.center_y_px) ** 2 <= self.radius_px**2
+
+    def inside(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """True for photo points on the part and outside every exclusion."""
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        keep = self.region(x, y)
         for e in self.exclusions:
             keep &= (x - e.center_x_px) ** 2 + (y - e.center_y_px) ** 2 > e.radius_px**2
         return keep
+
+    def edge_rho(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """``1 + d / radius`` with ``d`` the signed distance to the outline (photo px,
+        negative inside): for a circle the radius over its radius, and for any outline
+        1 on its edge, so the demodulation's edge model follows the outline."""
+        if self.shape is None:
+            return np.hypot(np.asarray(x, dtype=float) - self.center_x_px,
+                            np.asarray(y, dtype=float) - self.center_y_px) / self.radius_px
+        return 1.0 + self.shape.edge_distance_px(x, y) / self.radius_px
+
+    def unit_xy(self, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Fit coordinates of photo points: x right, y up, over the radius (a circle), the
+        part's unit circle (an ellipse), or scaled into the unit disk (other outlines)."""
+        if self.shape is not None:
+            return self.shape.unit_xy(x, y)
+        return ((np.asarray(x, dtype=float) - self.center_x_px) / self.radius_px,
+                (self.center_y_px - np.asarray(y, dtype=float)) / self.radius_px)
+
+    def to_text(self) -> str:
+        """The command line's form (``X,Y,R`` for a circle)."""
+        if self.shape is not None:
+            return self.shape.to_text()
+        return f"{self.center_x_px:.1f},{self.center_y_px:.1f},{self.radius_px:.1f}"
 
 
 # --- finding the aperture ---------------------------------------------------------------

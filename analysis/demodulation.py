@@ -83,10 +83,8 @@ class MapGeometry:
         return np.meshgrid(x, y)
 
     def unit_xy(self, aperture: Aperture) -> tuple[np.ndarray, np.ndarray]:
-        """Zernike coordinates of every map pixel: x right, y up, divided by the radius."""
-        px, py = self.photo_xy()
-        return ((px - aperture.center_x_px) / aperture.radius_px,
-                (aperture.center_y_px - py) / aperture.radius_px)
+        """Fit coordinates of every map pixel (``Aperture.unit_xy``): x right, y up."""
+        return aperture.unit_xy(*self.photo_xy())
 
 
 @dataclass(frozen=True)
@@ -184,15 +182,55 @@ def _unwrap_small(wrapped: np.ndarray, inside: np.ndarray) -> np.ndarray:
     return np.ma.filled(out, np.nan)
 
 
+def _rho_grid(aperture: Aperture, shape: tuple[int, int], center_rc: tuple[float, float],
+              r_b: float, origin: tuple[float, float], k: int) -> np.ndarray:
+    """The binned crop's radius over the aperture's: 1 on the rim, and for an outline
+    other than a circle 1 on that outline (``Aperture.edge_rho``), so the pupil, the
+    fringe envelope's edge and the speck finder follow the part's own edge."""
+    if aperture.shape is None:
+        return radius_grid(shape, center_rc, r_b)
+    yy, xx = np.mgrid[0:shape[0], 0:shape[1]].astype(np.float64)
+    return aperture.edge_rho(origin[0] + k * xx, origin[1] + k * yy).astype(np.float32)
+
+
+def _on_part(aperture: Aperture, shape: tuple[int, int], origin: tuple[float, float],
+             k: float) -> np.ndarray:
+    """Which pixels of a grid (pixel (0, 0) at photo ``origin``, ``k`` photo px apart) lie
+    on the part's outline (``Aperture.region``)."""
+    yy, xx = np.mgrid[0:shape[0], 0:shape[1]].astype(np.float64)
+    return aperture.region(origin[0] + k * xx, origin[1] + k * yy)
+
+
+def _model_tilt_on_part(model_coef: np.ndarray, aperture: Aperture) -> tuple[float, float]:
+    """The phase model's tilt (as Noll 2 and 3 coefficients) fitted over the part alone.
+
+    Off the unit disk the Zernike terms are far from orthogonal, and the model's own
+    Noll 2 and 3 coefficients can differ widely from the plane its sum leaves.
+    """
+    gy, gx = np.mgrid[-1:1:81j, -1:1:81j]
+    r = aperture.radius_px
+    on = (np.hypot(gx, gy) <= 1.0) & aperture.region(aperture.center_x_px + r * gx,
+                                                      aperture.center_y_px - r * gy)
+    x, y = gx[on], gy[on]
+    psi = zernike_basis(model_coef.size, x, y) @ model_coef
+    plane = solve_least_squares(np.column_stack([np.ones_like(x), x, y]), psi)
+    return float(plane[1] / 2.0), float(plane[2] / 2.0)  # Noll 2 = 2x, Noll 3 = 2y
+
+
 def _slowest_fringes(model_coef: np.ndarray, fc: tuple[int, int],
-                     bins_per_cpa: float) -> tuple[float, float]:
-    """Slowest local fringe frequency over the disk, in cycles per aperture diameter.
+                     bins_per_cpa: float, aperture: Aperture | None = None
+                     ) -> tuple[float, float]:
+    """Slowest local fringe frequency over the disk (or the part's outline within it), in
+    cycles per aperture diameter.
 
     Returns its magnitude and its smallest component along the carrier (which reaches
     zero where the fringes close).
     """
     gy, gx = np.mgrid[-1:1:41j, -1:1:41j]
     on = np.hypot(gx, gy) <= 1.0
+    if aperture is not None and aperture.shape is not None:
+        r = aperture.radius_px
+        on &= aperture.region(aperture.center_x_px + r * gx, aperture.center_y_px - r * gy)
     psi = (zernike_basis(model_coef.size, gx.ravel(), gy.ravel()) @ model_coef).reshape(gx.shape)
     dpsi_dy_up, dpsi_dx = np.gradient(psi, gy[:, 0], gx[0, :])
     # the model's unit is the radius, hence the factor 2; rows run down, its y runs up
@@ -256,10 +294,12 @@ def demodulate(
     # 1. coarse carrier on a small copy, to choose how far to bin
     report("carrier", 0.0)
     k0 = max(1, int(diameter_px // 256))
-    coarse, _, _ = crop_aperture(img, aperture, k0, stride=True)
+    coarse, _, origin0 = crop_aperture(img, aperture, k0, stride=True)
     rc = aperture.radius_px / k0
     cc = (coarse.shape[0] / 2 - 0.5, coarse.shape[1] / 2 - 0.5)
     pupil0 = radius_grid(coarse.shape, cc, rc) <= 1.0
+    if aperture.shape is not None:
+        pupil0 &= _on_part(aperture, coarse.shape, origin0, k0)
     filled0 = np.where(pupil0, coarse - coarse[pupil0].mean(), 0.0).astype(np.float32)
     mag0 = np.abs(sfft.rfft2(filled0, workers=WORKERS))
     bins_per_cpa0 = coarse.shape[0] / (2 * rc)  # bins per cycle-per-aperture
@@ -286,7 +326,7 @@ def demodulate(
     n = data.shape[0]
     r_b = aperture.radius_px / k
     center_rc = ((aperture.center_y_px - origin[1]) / k, (aperture.center_x_px - origin[0]) / k)
-    rho = radius_grid(data.shape, center_rc, r_b)
+    rho = _rho_grid(aperture, data.shape, center_rc, r_b, origin, k)
     # measured pixels run to the rim (the edge's 50 % point): the fit below works on the
     # photo divided by its fringe envelope, so a soft edge's fading does not bend it
     pupil = rho <= 1.0
@@ -312,7 +352,7 @@ def demodulate(
         known = np.pad(known, ((0, pad), (0, pad)))
         pupil = np.pad(pupil, ((0, pad), (0, pad)))
         excluded = np.pad(excluded, ((0, pad), (0, pad)))
-        rho = radius_grid(data.shape, center_rc, r_b)
+        rho = _rho_grid(aperture, data.shape, center_rc, r_b, origin, k)
     ny = nx = size
     bins_per_cpa = size / cpa  # FFT bins per cycle-per-aperture
 
@@ -369,6 +409,8 @@ def demodulate(
     c1 = _decimated_block(spec, fc, w1, (m1, m1))
     grid1 = np.arange(m1) * step1
     rho1 = np.hypot(grid1[:, None] - center_rc[0], grid1[None, :] - center_rc[1]) / r_b
+    if aperture.shape is not None:
+        rho1 = rho[::step1, ::step1][:m1, :m1].astype(np.float64)
     inside1 = rho1 <= 1.0
     phase1 = _unwrap_small(np.angle(c1), inside1)
     speck1 = ndimage.maximum_filter(specks.astype(np.uint8), size=step1)[::step1, ::step1] > 0
@@ -385,7 +427,7 @@ def demodulate(
     report("first pass", 1.0)
     check_cancel(cancel)
 
-    f_min, along_min = _slowest_fringes(model_coef, fc, bins_per_cpa)
+    f_min, along_min = _slowest_fringes(model_coef, fc, bins_per_cpa, aperture)
     if along_min <= 0.5:
         raise UnanalysablePhotoError(
             "closed fringes: the surface's own slope cancels the tilt somewhere on the "
@@ -465,7 +507,7 @@ def demodulate(
         if np.sqrt(np.sum(delta[3:] ** 2)) < 0.02:  # well under a hundredth of a fringe
             c2 = referenced(model_coef, w2_cpa * bins_per_cpa)
             break
-        f_min, _ = _slowest_fringes(model_coef, fc, bins_per_cpa)
+        f_min, _ = _slowest_fringes(model_coef, fc, bins_per_cpa, aperture)
     if f_min < 0.35 * fringes:
         warnings.append(
             f"fringes nearly close somewhere on the aperture ({f_min:.1f} fringes per "
@@ -506,8 +548,11 @@ def demodulate(
     # coefficient a gives 2a/pi cycles per diameter; rows run down, the model's y up).
     # A surface's slope can pull the spectrum's peak across the x axis when the fringes
     # are near vertical; the sign convention follows this fitted tilt, not the peak.
-    fx_cpa = fc[1] / bins_per_cpa + 2.0 * model_coef[1] / np.pi
-    fy_cpa = fc[0] / bins_per_cpa - 2.0 * model_coef[2] / np.pi
+    a2, a3 = model_coef[1], model_coef[2]
+    if aperture.shape is not None:
+        a2, a3 = _model_tilt_on_part(model_coef, aperture)
+    fx_cpa = fc[1] / bins_per_cpa + 2.0 * a2 / np.pi
+    fy_cpa = fc[0] / bins_per_cpa - 2.0 * a3 / np.pi
     # within about 0.2 degrees of the x axis the fit cannot tell down from up: point right
     along_x = abs(fy_cpa) <= 0.0035 * math.hypot(fx_cpa, fy_cpa)
     if (fx_cpa < 0) if along_x else (fy_cpa < 0):

@@ -49,7 +49,14 @@ from functools import cached_property
 import numpy as np
 from scipy import ndimage
 
-from .zernike import ZernikeFit, fringe_to_nm, nm_basis, noll_to_nm, zernike_basis
+from .zernike import (
+    ZernikeFit,
+    aperture_basis,
+    fringe_to_nm,
+    nm_basis,
+    noll_to_nm,
+    orthonormalized,
+)
 
 __all__ = [
     "FIGURE_TERMS",
@@ -207,10 +214,16 @@ class MapFigures:
     resolution_px: float | None
     radial_bins: np.ndarray  # (Q,) ring index of each disk pixel, for the C figure
     sectors: np.ndarray  # (Q,) angular sector of each disk pixel
+    # an outline other than the unit disk: the terms are orthonormal over it, and the
+    # best-fit sphere's sag (power) is this many times the fourth term's coefficient
+    # (on the disk -2 sqrt 3: Noll 4 is sqrt 3 (2 rho^2 - 1), from centre to rim)
+    orthonormal: bool = False
+    power_per_a4: float = -2.0 * SQRT3
 
     @classmethod
     def of(cls, height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray, *,
-           resolution_px: float | None = None, n_terms: int = FIGURE_TERMS) -> MapFigures:
+           resolution_px: float | None = None, n_terms: int = FIGURE_TERMS,
+           region: np.ndarray | None = None) -> MapFigures:
         """Prepare a map.
 
         Parameters
@@ -226,13 +239,23 @@ class MapFigures:
             detail finer than this is noise. None takes the raw map as it is.
         n_terms : int
             Terms of the stand-in fit (at least 45).
+        region : (M, N) bool ndarray, optional
+            The part's pixels when its outline is not the unit disk of ``xu, yu`` (a
+            rectangle, a polygon, an annulus): every figure is taken over them, and the
+            terms are made orthonormal over them (:func:`zernike.orthonormalized`).
         """
-        disk = np.hypot(xu, yu) <= 1.0
+        orthonormal = region is not None
+        disk = np.hypot(xu, yu) <= 1.0 if region is None else np.asarray(region, bool)
         measured = np.asarray(valid, bool)[disk]
         x, y = xu[disk], yu[disk]
-        basis = zernike_basis(max(n_terms, FIGURE_TERMS), x, y)
+        basis = aperture_basis(max(n_terms, FIGURE_TERMS), x, y, orthonormal=orthonormal)
         fringe = nm_basis([fringe_to_nm(j) for j in range(1, PVR_TERMS + 1)], x, y)
         rho = np.hypot(x, y)
+        power_per_a4 = -2.0 * SQRT3
+        if orthonormal:
+            # Fringe 1..3 are piston and the tilts too: PVr's terms then leave the plane out
+            fringe = orthonormalized(fringe)
+            power_per_a4 = _sphere_sag_per_coefficient(basis[:, 3], x, y)
         step = float(np.max(np.abs(np.diff(xu, axis=1)))) if xu.shape[1] > 1 else 0.01
         # rings two map pixels wide; the last partial ring joins the one inside it
         width = 2.0 * max(step, 1e-3)
@@ -243,7 +266,8 @@ class MapFigures:
             fit_inverse=_least_squares_inverse(basis[measured]),
             fringe_basis=fringe, fringe_inverse=_least_squares_inverse(fringe[measured]),
             measured_nm=np.asarray(height_nm, dtype=float)[disk][measured],
-            noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors)
+            noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors,
+            orthonormal=orthonormal, power_per_a4=power_per_a4)
         return prepared.with_noise_measured()
 
     def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
@@ -303,7 +327,13 @@ class MapFigures:
 
     @property
     def symmetric_terms(self) -> list[int]:
-        """The fit's rotationally symmetric Noll terms (m = 0), piston and power included."""
+        """The fit's rotationally symmetric Noll terms (m = 0), piston and power included.
+
+        None on an outline other than the disk: made orthonormal over it, no term is
+        exactly radial, and the mean around each ring alone gives the symmetric part.
+        """
+        if self.orthonormal:
+            return []
         return [j for j in range(1, self.coefficients_nm.size + 1) if noll_to_nm(j)[1] == 0]
 
     def terms(self, js) -> np.ndarray:
@@ -392,11 +422,14 @@ class MapFigures:
         removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
         peaks = self.peak_figures(self.filtered_nm, removed)
         a4 = a[3] if a.size >= 4 else 0.0
-        power = -2.0 * SQRT3 * a4 if 4 not in removed else 0.0
+        power = self.power_per_a4 * a4 if 4 not in removed else 0.0
         a5 = a[4] if a.size >= 6 and 5 not in removed else 0.0
         a6 = a[5] if a.size >= 6 and 6 not in removed else 0.0
         # a6 cos 2t + a5 sin 2t = A cos 2(t - t0) with t0 = atan2(a5, a6) / 2
         axis = float(np.degrees(0.5 * np.arctan2(a5, a6))) % 180.0 % 180.0
+        astigmatism = float(2.0 * SQRT6 * np.hypot(a5, a6))
+        if self.orthonormal:  # the two terms' PV over the part itself
+            astigmatism = _ptp(self.basis[:, 4:6] @ np.array([a5, a6]))
         return Figures(
             pv_nm=peaks["pv_nm"],
             rms_nm=peaks["rms_nm"],
@@ -406,7 +439,7 @@ class MapFigures:
             radius_of_curvature_m=(radius_of_curvature_m(power, diameter_mm)
                                    if diameter_mm else None),
             irregularity_nm=peaks["irregularity_nm"],
-            astigmatism_nm=float(2.0 * SQRT6 * np.hypot(a5, a6)),
+            astigmatism_nm=astigmatism,
             astigmatism_axis_deg=axis,
             symmetric_irregularity_nm=peaks["symmetric_irregularity_nm"],
             rms_irregularity_nm=peaks["rms_irregularity_nm"],
@@ -417,6 +450,15 @@ class MapFigures:
         )
 
 
+def _sphere_sag_per_coefficient(term: np.ndarray, x: np.ndarray, y: np.ndarray) -> float:
+    """Sag from the centre to the farthest point of the part of the sphere a unit
+    coefficient of ``term`` (the orthonormal fourth term: ``k rho^2`` plus a plane) makes;
+    signed so that a centre standing high is positive, as for the disk."""
+    design = np.column_stack([np.ones_like(x), x, y, x * x + y * y])
+    k = np.linalg.lstsq(design, term, rcond=None)[0][3]
+    return float(-k * np.max(x * x + y * y))
+
+
 def _fringe_removed(j_fringe: int, removed: tuple[int, ...]) -> bool:
     """Is Fringe term ``j_fringe`` one of the Noll terms in ``removed``?"""
     n, m = fringe_to_nm(j_fringe)
@@ -424,10 +466,12 @@ def _fringe_removed(j_fringe: int, removed: tuple[int, ...]) -> bool:
 
 
 def prepare_map(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray,
-                fit: ZernikeFit, *, resolution_px: float | None = None) -> MapFigures:
-    """The map prepared for :func:`compute_figures` (keep it to figure the map again)."""
+                fit: ZernikeFit, *, resolution_px: float | None = None,
+                region: np.ndarray | None = None) -> MapFigures:
+    """The map prepared for :func:`compute_figures` (keep it to figure the map again);
+    ``region``: the part's pixels when it is not the unit disk (see :meth:`MapFigures.of`)."""
     return MapFigures.of(height_nm, valid, xu, yu, resolution_px=resolution_px,
-                         n_terms=max(FIGURE_TERMS, fit.n_terms))
+                         n_terms=max(FIGURE_TERMS, fit.n_terms), region=region)
 
 
 def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray,
@@ -437,7 +481,8 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
                     height_sigma_nm: np.ndarray | None = None,
                     wavelength_uncertainty_nm: float = 0.0,
                     reference_uncertainty_nm: float = 0.0, photos: int = 1,
-                    prepared: MapFigures | None = None) -> Figures:
+                    prepared: MapFigures | None = None,
+                    region: np.ndarray | None = None) -> Figures:
     """Figures of a height map with their expanded uncertainties (see the module docstring).
 
     Parameters
@@ -465,6 +510,8 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
         What the operator states (see ``uncertainty``).
     photos : int
         How many photos were averaged into the map.
+    region : (M, N) bool ndarray, optional
+        The part's pixels when its outline is not the unit disk (see :meth:`MapFigures.of`).
     prepared : MapFigures, optional
         The same map already prepared (:func:`prepare_map`): figures with other terms
         removed then reuse its fits and its Monte Carlo copies instead of redoing them.
@@ -473,7 +520,7 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
 
     if prepared is None:
         prepared = prepare_map(height_nm, valid, xu, yu, fit,
-                               resolution_px=resolution_px)
+                               resolution_px=resolution_px, region=region)
     figures = prepared.figures(wavelength_nm=wavelength_nm, diameter_mm=diameter_mm,
                                removed_terms=removed_terms, report_fit=fit)
     scale = None

@@ -16,7 +16,7 @@ from .demodulation import MapGeometry, Spectrum, demodulate
 from .errors import SettingsError, UnanalysablePhotoError
 from .figures import PISTON_TILT, Figures, MapFigures, compute_figures, prepare_map
 from .unwrapping import phase_to_height_nm, unwrap
-from .zernike import ZernikeFit, fit_zernike, zernike_basis
+from .zernike import ZernikeFit, aperture_basis, fit_zernike
 
 __all__ = [
     "MapGeometry",
@@ -169,8 +169,8 @@ def measure(
     ------
     UnreadablePhotoError, UnanalysablePhotoError, SettingsError, MeasurementCancelled
     """
-    from .aperture import find_aperture
     from .loading import FringePhoto, load_photo, photo_from_array
+    from .outline import find_part_aperture
 
     _validate(settings)
     timings: dict[str, float] = {}
@@ -211,12 +211,14 @@ def measure(
         # the operator's own numbers: a mistake in them is a usage error, said at once
         if not (0 <= aperture.center_x_px < W and 0 <= aperture.center_y_px < H
                 and 16 <= aperture.radius_px <= max(W, H) / 2):
+            given = (aperture.shape.to_text() if aperture.shape is not None else
+                     f"{aperture.center_x_px:g},{aperture.center_y_px:g},"
+                     f"{aperture.radius_px:g}")
             raise SettingsError(
-                f"aperture {aperture.center_x_px:g},{aperture.center_y_px:g},"
-                f"{aperture.radius_px:g} does not fit the {W}x{H} photo (centre inside, "
+                f"aperture {given} does not fit the {W}x{H} photo (centre inside, "
                 f"radius from 16 px to {max(W, H) / 2:g} px, half the photo's longer side)")
     else:
-        aperture = find_aperture(image, photo_name=name)
+        aperture = find_part_aperture(image, photo_name=name)
     if settings.exclusions:
         aperture = aperture.with_exclusions(tuple(aperture.exclusions) + settings.exclusions)
     if fringe_photo.saturated_fraction > 0.01:
@@ -243,7 +245,8 @@ def measure(
     m = measurement_from_phase(
         phase, valid, demod.disk, aperture=aperture, geometry=demod.geometry,
         settings=settings, photo=name, modulation=demod.modulation,
-        height_sigma_nm=demod.phase_sigma * (settings.wavelength_nm / (4.0 * np.pi)),
+        height_sigma_nm=demod.phase_sigma * (settings.wavelength_nm * _obliquity(aperture)
+                                             / (4.0 * np.pi)),
         quality_fields=quality, spectrum=demod.spectrum, warnings=tuple(warnings),
         photo_sha256=fringe_photo.sha256,
     )
@@ -273,6 +276,30 @@ def _drop_spikes(residual: np.ndarray, valid: np.ndarray) -> np.ndarray:
         sigma = 1.4826 * float(np.median(dev[ok])) + 1e-9
         keep &= ~(ok & (dev > max(8.0 * sigma, 0.15)))  # 0.15 rad: under 1/40 fringe
     return keep
+
+
+def _obliquity(aperture: Aperture) -> float:
+    """Height per fringe over its square-on value: ``1 / cos`` of the viewing angle.
+
+    A round part seen as an ellipse was photographed at an angle, and the fringes seen
+    from there come from light that crossed the air gap at that angle: a fringe is then
+    ``lambda / (2 cos angle)`` of height, not ``lambda / 2`` (the thin-film fringe's
+    ``2 t cos angle`` path, common practice). 1 for every other outline.
+    """
+    angle = aperture.shape.view_angle_deg if aperture.shape is not None else None
+    return 1.0 / math.cos(math.radians(angle)) if angle else 1.0
+
+
+def _part_pixels(aperture: Aperture, geometry: MapGeometry, xu: np.ndarray,
+                 yu: np.ndarray) -> tuple[np.ndarray, bool]:
+    """The part's map pixels, and whether the fit's terms are made orthonormal over them.
+
+    A circle and an ellipse (mapped back to the part's circle) fill the unit disk of
+    ``xu, yu``, and plain Zernike terms apply; any other outline is its own region.
+    """
+    if aperture.maps_to_disk:
+        return np.hypot(xu, yu) <= 1.0, False
+    return aperture.region(*geometry.photo_xy()), True
 
 
 def _resolution_px(resolution_cycles_per_aperture: float, xu: np.ndarray) -> float | None:
@@ -320,7 +347,8 @@ def measurement_from_phase(
     height_sigma_nm: np.ndarray | None = None,
 ) -> Measurement:
     """A measurement from an unwrapped phase map (radians) on ``geometry``'s grid."""
-    height = phase_to_height_nm(phase, settings.wavelength_nm, invert=settings.invert)
+    height = phase_to_height_nm(phase, settings.wavelength_nm * _obliquity(aperture),
+                                invert=settings.invert)
     return measurement_from_height(
         height, valid, disk, aperture=aperture, geometry=geometry, settings=settings,
         photo=photo, modulation=modulation, quality_fields=quality_fields,
@@ -351,29 +379,32 @@ def measurement_from_height(
     ``aperture`` on the grid). Piston and tilt are removed from the stored map.
     """
     xu, yu = geometry.unit_xy(aperture)
-    if disk is None:
-        disk = np.hypot(xu, yu) <= 1.0
+    orthonormal = False
+    if disk is None or aperture.shape is not None:
+        disk, orthonormal = _part_pixels(aperture, geometry, xu, yu)
     valid = np.asarray(valid, bool) & disk & np.isfinite(height_nm)
     n_valid = int(valid.sum())
     if n_valid < 3 * settings.n_terms:
         raise UnanalysablePhotoError(
             f"only {n_valid} map pixels could be measured: too few to fit "
             f"{settings.n_terms} Zernike terms")
-    disk_basis = zernike_basis(settings.n_terms, xu[disk], yu[disk])
+    disk_basis = aperture_basis(settings.n_terms, xu[disk], yu[disk], orthonormal=orthonormal)
     basis = disk_basis[valid[disk]]
     h = np.asarray(height_nm, dtype=float)[valid]
     fit = fit_zernike(h, None, None, n_terms=settings.n_terms, basis=basis)
     qf = dict(quality_fields or {})
     resolution_px = _resolution_px(float(qf.get("resolution_cycles_per_aperture", 0.0)),
                                    xu)
-    prepared = prepare_map(height_nm, valid, xu, yu, fit, resolution_px=resolution_px)
+    region = disk if orthonormal else None
+    prepared = prepare_map(height_nm, valid, xu, yu, fit, resolution_px=resolution_px,
+                           region=region)
     figures = compute_figures(
         height_nm, valid, xu, yu, fit, wavelength_nm=settings.wavelength_nm,
         diameter_mm=settings.diameter_mm, resolution_px=resolution_px,
         height_sigma_nm=height_sigma_nm,
         wavelength_uncertainty_nm=settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=settings.reference_uncertainty_nm,
-        photos=int(qf.get("photos", 1)), prepared=prepared)
+        photos=int(qf.get("photos", 1)), prepared=prepared, region=region)
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
@@ -454,8 +485,9 @@ def with_terms_removed(
     """
     xu, yu = m.geometry.unit_xy(m.aperture)
     valid = m.valid
-    disk = np.hypot(xu, yu) <= 1.0
-    disk_basis = zernike_basis(m.zernike.n_terms, xu[disk], yu[disk])
+    disk, orthonormal = _part_pixels(m.aperture, m.geometry, xu, yu)
+    region = disk if orthonormal else None
+    disk_basis = aperture_basis(m.zernike.n_terms, xu[disk], yu[disk], orthonormal=orthonormal)
     basis = disk_basis[valid[disk]]
     # the stored map has piston and tilt out; put them back so the fit stays the same
     h = m.height_nm[valid] + basis[:, :3] @ m.zernike.coefficients_nm[:3]
@@ -465,7 +497,8 @@ def with_terms_removed(
     resolution_px = _resolution_px(m.quality.resolution_cycles_per_aperture, xu)
     prepared = _recalled_map(m)
     if prepared is None:
-        prepared = prepare_map(full, valid, xu, yu, m.zernike, resolution_px=resolution_px)
+        prepared = prepare_map(full, valid, xu, yu, m.zernike, resolution_px=resolution_px,
+                               region=region)
         _remember_map(m, prepared)
     figures = compute_figures(
         full, valid, xu, yu, m.zernike, wavelength_nm=m.settings.wavelength_nm,
@@ -473,7 +506,7 @@ def with_terms_removed(
         resolution_px=resolution_px, height_sigma_nm=m.height_sigma_nm,
         wavelength_uncertainty_nm=m.settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=m.settings.reference_uncertainty_nm,
-        photos=m.quality.photos, prepared=prepared)
+        photos=m.quality.photos, prepared=prepared, region=region)
     idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
     out = np.full(m.height_nm.shape, np.nan)
     out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]

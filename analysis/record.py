@@ -47,6 +47,34 @@ def _num(value: float | None, digits: int = 4) -> float | None:
     return round(float(value), digits)
 
 
+_NORMALISATION = {
+    True: "Noll: orthonormal over the unit disk, each coefficient is that term's RMS",
+    False: "Noll terms made orthonormal over the part's own outline (Gram-Schmidt over "
+           "its map pixels, Mahajan & Dai 2007): each coefficient is that polynomial's RMS "
+           "over the part; 1 piston, 2 and 3 tilt, 4 the best-fit sphere",
+}
+_COORDINATES = {
+    "circle": "x right, y toward the top of the photo, over the aperture radius",
+    "ellipse": "the part's own circle: the photo's ellipse mapped back to the unit disk "
+               "(x right, y toward the top of the photo)",
+    "other": "x right, y toward the top of the photo, from the outline's centre, over the "
+             "radius of its bounding circle",
+}
+
+
+def _shape_fields(aperture) -> dict:
+    """A non-circular outline's ``shape`` (a circle keeps only today's fields): its kind
+    and parameters in photo pixels and degrees, and an ellipse's viewing angle."""
+    if aperture.shape is None:
+        return {}
+    shape = {k: (_num(v, 3) if isinstance(v, float) else v)
+             for k, v in aperture.shape.to_dict().items()}
+    if aperture.shape.view_angle_deg is not None:
+        shape["view_angle_deg"] = _num(aperture.shape.view_angle_deg, 2)
+    shape["text"] = aperture.shape.to_text()
+    return {"shape": shape}
+
+
 def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
     """The JSON document of a measurement (one line of ``flatsight measure --json``).
 
@@ -75,7 +103,7 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
                 for e in m.aperture.exclusions
             ],
             "source": "given" if m.settings.aperture is not None else "found",
-        },
+        } | _shape_fields(m.aperture),
         "pv_nm": _num(f.pv_nm, 3),
         "rms_nm": _num(f.rms_nm, 3),
         "pvr_nm": _num(f.pvr_nm, 3),
@@ -112,9 +140,8 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
     rec["zernike"] = {
         "ordering": ordering,
         "first_index": first_index,
-        "normalisation": "Noll: orthonormal over the unit disk, each coefficient is that "
-                         "term's RMS",
-        "coordinates": "x right, y toward the top of the photo, over the aperture radius",
+        "normalisation": _NORMALISATION[m.aperture.maps_to_disk],
+        "coordinates": _COORDINATES.get(m.aperture.kind, _COORDINATES["other"]),
         "radius_px": _num(m.aperture.radius_px, 2),
         "coefficients_nm": [_num(c, 4) for c in coefficients],
         "fit_residual_rms_nm": _num(m.zernike.residual_rms_nm, 4),

@@ -37,7 +37,8 @@ from PIL import Image
 from .aperture import Aperture
 from .atomic import atomic_path
 from .errors import SettingsError
-from .zernike import fit_zernike, zernike, zernike_basis
+from .shapes import Shape
+from .zernike import aperture_basis, fit_zernike, zernike
 
 __all__ = [
     "SyntheticPhoto",
@@ -162,17 +163,15 @@ class SyntheticPhoto:
 
     def true_height_nm(self, x_px: np.ndarray, y_px: np.ndarray) -> np.ndarray:
         """True surface height (nm) at photo pixel coordinates (x right, y down)."""
-        ap = self.aperture
-        return self.surface.height_nm(
-            (np.asarray(x_px, dtype=float) - ap.center_x_px) / ap.radius_px,
-            (ap.center_y_px - np.asarray(y_px, dtype=float)) / ap.radius_px,
-        )
+        return self.surface.height_nm(*self.aperture.unit_xy(x_px, y_px))
 
     def truth(self, reported: Aperture | None = None, n_terms: int = 36) -> Truth:
         """True figures over the ``reported`` disk (the true aperture when None).
 
         The surface is sampled on a grid aligned with the photo's pixels, one sample per
         pixel for disks up to 200 px radius and about 400 samples across larger ones.
+        A part of another outline is sampled over that outline, in its fit coordinates,
+        with the terms orthonormal over it when it is not a (foreshortened) circle.
         """
         ap = self.aperture if reported is None else reported
         r = float(ap.radius_px)
@@ -187,9 +186,8 @@ class SyntheticPhoto:
         keep = ap.inside(x, y)
         x, y = x[keep], y[keep]
         h = self.true_height_nm(x, y)
-        xu = (x - ap.center_x_px) / r
-        yu = (ap.center_y_px - y) / r
-        basis = zernike_basis(n_terms, xu, yu)
+        xu, yu = ap.unit_xy(x, y)
+        basis = aperture_basis(n_terms, xu, yu, orthonormal=not ap.maps_to_disk)
         fit = fit_zernike(h, xu, yu, n_terms=n_terms, basis=basis)
         a = fit.coefficients_nm
         surface = h - basis[:, :3] @ a[:3]
@@ -244,6 +242,7 @@ def make_fringe_photo(
     mount_ring: bool = True,
     bit_depth: int = 8,
     seed: int = 0,
+    outline: Shape | None = None,
 ) -> SyntheticPhoto:
     """A fringe photo of ``surface`` with the imperfections real photos have.
 
@@ -290,6 +289,11 @@ def make_fringe_photo(
         Quantisation of the result.
     seed : int
         Seed for everything random (light direction, dust, noise, bad pixels).
+    outline : Shape, optional
+        A part that is not a circle (``shapes``): its outline replaces the centre and
+        radius, and the surface is laid over its fit coordinates. An ellipse is a round
+        part seen at an angle: the surface is on the part's circle, and a fringe is
+        ``lambda / (2 cos angle)`` of height.
 
     Returns
     -------
@@ -300,7 +304,17 @@ def make_fringe_photo(
         raise SettingsError(f"synthetic photo shape {shape} is too small; use at least 32 x 32 px")
     radius = 0.4 * min(rows, cols) if radius_px is None else float(radius_px)
     cx, cy = ((cols - 1) / 2.0, (rows - 1) / 2.0) if center_xy is None else map(float, center_xy)
-    if not (
+    oblique = 1.0
+    if outline is not None:
+        cx, cy, radius = outline.center_x_px, outline.center_y_px, outline.bounding_radius_px
+        oblique = np.cos(np.radians(outline.view_angle_deg or 0.0))
+    if outline is not None:
+        edge = np.vstack(outline.outline(64))
+        if not (edge.min() >= 0 and edge[:, 0].max() <= cols - 1
+                and edge[:, 1].max() <= rows - 1):
+            raise SettingsError(f"outline {outline.to_text()} does not fit in a {cols} x "
+                                f"{rows} photo")
+    elif not (
         cx - radius >= 0
         and cy - radius >= 0
         and cx + radius <= cols - 1
@@ -358,7 +372,10 @@ def make_fringe_photo(
         y = np.arange(r0, min(rows, r0 + band), dtype=float)[:, None]
         u = (x[None, :] - cx) / radius
         v = (y - cy) / radius  # photo orientation (down) for the light only
-        d = np.hypot(u, v) * radius - radius
+        if outline is None:
+            d = np.hypot(u, v) * radius - radius
+        else:
+            d = outline.edge_distance_px(*np.broadcast_arrays(x[None, :], y))
         step = _smooth_step(d, edge_px)
         lamp = (
             level
@@ -372,11 +389,14 @@ def make_fringe_photo(
         # fringes only where the lamp reaches (the soft step is negligible 8 widths out)
         near = d < 8.0 * max(edge_px, 1.0)
         if near.any():
-            h = surface.height_nm(
-                np.broadcast_to(u, d.shape)[near], -np.broadcast_to(v, d.shape)[near]
-            )
             xx = np.broadcast_to(x[None, :], d.shape)[near]
             yy = np.broadcast_to(y, d.shape)[near]
+            if outline is None:
+                h = surface.height_nm(
+                    np.broadcast_to(u, d.shape)[near], -np.broadcast_to(v, d.shape)[near]
+                )
+            else:  # the fringes of an obliquely seen part are further apart in height
+                h = surface.height_nm(*outline.unit_xy(xx, yy)) * oblique
             phase = 2.0 * np.pi * (fx * xx + fy * yy) + 4.0 * np.pi * h / wavelength_nm
             out[near] += step[near] * lamp[near] * (1.0 + visibility * np.cos(phase))
         intensity[r0 : r0 + band] = out
@@ -441,9 +461,11 @@ def make_fringe_photo(
         ripple_nm=float(surface.ripple_nm),
         ripple_cycles=float(surface.ripple_cycles),
     )
+    if outline is not None:
+        params["outline"] = outline.to_text()
     return SyntheticPhoto(
         image=intensity,
-        aperture=Aperture(cx, cy, radius),
+        aperture=Aperture(cx, cy, radius) if outline is None else Aperture.of_shape(outline),
         surface=surface,
         wavelength_nm=float(wavelength_nm),
         params=params,

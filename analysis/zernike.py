@@ -24,11 +24,13 @@ import numpy as np
 
 __all__ = [
     "ZernikeFit",
+    "aperture_basis",
     "fit_zernike",
     "fringe_to_nm",
     "nm_basis",
     "noll_to_nm",
     "noll_to_osa",
+    "orthonormalized",
     "osa_to_noll",
     "radial",
     "term_name",
@@ -166,6 +168,37 @@ def zernike_basis(n_terms: int, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         Coordinates divided by the aperture radius (``y`` toward the photo's top).
     """
     return nm_basis([noll_to_nm(j) for j in range(1, n_terms + 1)], x, y)
+
+
+def orthonormalized(basis: np.ndarray) -> np.ndarray:
+    """Terms made orthonormal over the points they were evaluated at: ``(P, J)`` as given.
+
+    Gram-Schmidt in the terms' own order, done as a QR decomposition: term ``j`` becomes
+    what of it the terms before it cannot represent, scaled to unit RMS over the points
+    and signed to agree with the term it came from. Over any outline Noll 1 stays the
+    piston, 2 and 3 the tilts (planes), and 4 the best-fit sphere's ``rho^2`` less what
+    the plane carries. On a full disk it changes the terms only by the grid's sampling.
+
+    References
+    ----------
+    V. N. Mahajan, G.-m. Dai, "Orthonormal polynomials in wavefront analysis: analytical
+    solution", JOSA A 24(9), 2994 (2007): the same polynomials by their numerical
+    Gram-Schmidt over the aperture (from memory).
+    """
+    q, r = np.linalg.qr(np.asarray(basis, dtype=float))
+    sign = np.where(np.diag(r) < 0, -1.0, 1.0)
+    return q * (sign * np.sqrt(basis.shape[0]))[None, :]
+
+
+def aperture_basis(n_terms: int, x: np.ndarray, y: np.ndarray, *,
+                   orthonormal: bool) -> np.ndarray:
+    """Noll terms ``1..n_terms`` at every point of an aperture, ``(P, n_terms)``.
+
+    ``orthonormal`` makes them orthonormal over exactly these points (an outline other
+    than the unit disk: :func:`orthonormalized`); else they are the plain terms.
+    """
+    basis = zernike_basis(n_terms, x, y)
+    return orthonormalized(basis) if orthonormal else basis
 
 
 def nm_basis(orders: list[tuple[int, int]], x: np.ndarray, y: np.ndarray) -> np.ndarray:

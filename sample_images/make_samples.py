@@ -13,6 +13,7 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
+from flatsight.analysis.shapes import parse_shape
 from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo, write_photo
 
 HERE = Path(__file__).resolve().parent
@@ -145,6 +146,61 @@ SAMPLES = [
         ),
     ),
     dict(
+        # a round flat photographed with a phone held off to the side, over a test plate
+        file="BW-FL-0596_sodium.png",
+        part="workshop flat, 80 mm, grade lambda/4, photographed at an angle",
+        serial="BW-FL-0596",
+        diameter_mm=80.0,
+        operator="Ruben Halloway",
+        station="bench-1",
+        lamp="sodium",
+        bit_depth=8,
+        shape=(720, 960),
+        outline="ellipse:470,352,300,250,12",  # 300 x 250 px semi-axes: 33.6 deg off axis
+        surface=dict(zernike_nm={4: -22.0, 5: 6.0, 6: -3.0, 9: 2.0}, ripple_nm=0.8,
+                     ripple_cycles=6.0),
+        photo=dict(
+            fringes=18.0,
+            angle_deg=64.0,
+            visibility=0.6,
+            illumination=0.3,
+            surround="dark",
+            gamma=0.7,
+            noise=0.015,
+            dust=2,
+            edge_px=3.0,
+            mount_ring=False,
+            seed=596,
+        ),
+    ),
+    dict(
+        # a rectangular window, 75 x 25 mm, laid on the reference flat at a slant
+        file="BW-RW-0118_hene.png",
+        part="rectangular window, 75 x 25 mm",
+        serial="BW-RW-0118",
+        diameter_mm=79.06,  # the diagonal: power is the sag from the centre to a corner
+        operator="Tamsin Ode",
+        station="bench-2",
+        lamp="hene",
+        bit_depth=8,
+        shape=(720, 960),
+        outline="rect:482,356,690,230,-17",
+        surface=dict(zernike_nm={4: 14.0, 6: 5.0, 7: 2.0}, ripple_nm=0.5, ripple_cycles=5.0),
+        photo=dict(
+            fringes=15.0,
+            angle_deg=100.0,
+            visibility=0.7,
+            illumination=0.2,
+            surround="dark",
+            gamma=0.75,
+            noise=0.012,
+            dust=2,
+            edge_px=2.5,
+            mount_ring=False,
+            seed=118,
+        ),
+    ),
+    dict(
         file="BW-TP-0031_hene.tif",
         part="test plate, 150 mm, grade lambda/20",
         serial="BW-TP-0031",
@@ -220,8 +276,13 @@ def make_samples(folder: Path = HERE) -> dict:
     entries = []
     for spec in SAMPLES:
         rows, cols = spec["shape"]
-        radius = spec["radius_frac"] * min(rows, cols)
-        center = (spec["center_frac"][0] * (cols - 1), spec["center_frac"][1] * (rows - 1))
+        outline = parse_shape(spec["outline"]) if "outline" in spec else None
+        if outline is None:
+            radius = spec["radius_frac"] * min(rows, cols)
+            center = (spec["center_frac"][0] * (cols - 1), spec["center_frac"][1] * (rows - 1))
+        else:  # a part that is not a circle: its bounding circle
+            radius = outline.bounding_radius_px
+            center = (outline.center_x_px, outline.center_y_px)
         lamp_name, wavelength = LAMPS[spec["lamp"]]
         surface = SyntheticSurface(**spec["surface"])
         photo = make_fringe_photo(
@@ -231,6 +292,7 @@ def make_samples(folder: Path = HERE) -> dict:
             radius_px=radius,
             wavelength_nm=wavelength,
             bit_depth=spec["bit_depth"],
+            outline=outline,
             **spec["photo"],
         )
         path = folder / spec["file"]
@@ -255,7 +317,7 @@ def make_samples(folder: Path = HERE) -> dict:
                     center_x_px=round(center[0], 3),
                     center_y_px=round(center[1], 3),
                     radius_px=round(radius, 3),
-                ),
+                ) | ({"outline": outline.to_text()} if outline is not None else {}),
                 truth=dict(
                     note="over the true aperture, piston and tilt removed",
                     pv_nm=round(truth.pv_nm, 2),
@@ -264,7 +326,9 @@ def make_samples(folder: Path = HERE) -> dict:
                     pv_waves=round(truth.pv_nm / wavelength, 4),
                     # sag of the best-fit sphere, edge to centre, positive when the centre is high
                     # (figures.py): -2 sqrt(3) a4
-                    power_nm=round(-2.0 * SQRT3 * float(a[3]), 2),
+                    # (an outline other than a circle: terms orthonormal over it, no closed form)
+                    power_nm=(round(-2.0 * SQRT3 * float(a[3]), 2)
+                              if photo.aperture.maps_to_disk else None),
                     zernike_nm={str(j): round(float(a[j - 1]), 3) for j in range(1, 16)},
                 ),
                 surface=dict(

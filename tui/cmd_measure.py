@@ -10,8 +10,11 @@ from pathlib import Path
 
 from .multi_options import add_multi_options
 from .options import (
+    APERTURE_HELP,
+    APERTURE_METAVAR,
     TOLERANCE_EXIT_CODES,
     MapNames,
+    aperture_type,
     check_map_path,
     circle_type,
     diameter_type,
@@ -83,9 +86,8 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     out.add_argument("--json", action="store_true",
                      help="one JSON object per photo per line (JSON Lines) on stdout")
     out.add_argument("--csv", action="store_true", help="one CSV row per photo on stdout")
-    p.add_argument("--aperture", type=circle_type, metavar="X,Y,R",
-                   help="clear aperture in photo pixels (x right, y down); default: found "
-                        "automatically")
+    p.add_argument("--aperture", type=aperture_type, metavar=APERTURE_METAVAR,
+                   help=APERTURE_HELP)
     p.add_argument("--exclude", type=circle_type, metavar="X,Y,R", action="append",
                    default=[], help="leave a circle out (a chip, a central hole); repeatable")
     p.add_argument("--diameter", type=diameter_type, metavar="MM", default=None,
@@ -115,12 +117,12 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
 
 
 def _settings(args: argparse.Namespace):
-    from flatsight.analysis.aperture import Aperture, Exclusion
+    from flatsight.analysis.aperture import Exclusion
     from flatsight.analysis.pipeline import MeasureSettings
 
     from .record_options import uncertainty_settings
 
-    aperture = Aperture(*args.aperture) if args.aperture else None
+    aperture = args.aperture  # an Aperture (options.parse_aperture) or None
     return MeasureSettings(
         wavelength_nm=float(args.wavelength),
         n_terms=int(args.terms) if args.terms is not None else 36,

@@ -22,7 +22,10 @@ from pathlib import Path
 
 from ..analysis.formatting import format_number
 from .options import (
+    APERTURE_HELP,
+    APERTURE_METAVAR,
     MapNames,
+    aperture_type,
     check_map_path,
     circle_type,
     count_type,
@@ -79,9 +82,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     w.add_argument("--terms", type=terms_type, metavar="N", default=None,
                    help="Zernike terms to fit (Noll, default 36)")
     w.add_argument("--invert", action="store_true", help="flip the sign of the surface")
-    w.add_argument("--aperture", type=circle_type, metavar="X,Y,R",
-                   help="clear aperture in photo pixels (x right, y down) for every photo; "
-                        "default: found in each photo")
+    w.add_argument("--aperture", type=aperture_type, metavar=APERTURE_METAVAR,
+                   help=APERTURE_HELP.replace("default: found automatically",
+                                              "for every photo; default: found in each"))
     w.add_argument("--exclude", type=circle_type, metavar="X,Y,R", action="append",
                    default=[], help="leave a circle out of every photo; repeatable")
     w.add_argument("--save-map", metavar="FILE", default=None,
@@ -241,7 +244,7 @@ class FolderWatcher:
 
 def watch_settings(args: argparse.Namespace):
     """The MeasureSettings the watch's options (one photo's, presets applied) give."""
-    from ..analysis.aperture import Aperture, Exclusion
+    from ..analysis.aperture import Exclusion
     from ..analysis.pipeline import MeasureSettings
     from .record_options import uncertainty_settings
 
@@ -251,7 +254,7 @@ def watch_settings(args: argparse.Namespace):
         n_terms=int(args.terms) if args.terms is not None else 36,
         invert=bool(args.invert),
         diameter_mm=float(args.diameter) if args.diameter is not None else None,
-        aperture=Aperture(*aperture) if aperture else None,
+        aperture=aperture,  # an Aperture (options.parse_aperture) or None
         exclusions=tuple(Exclusion(*c) for c in getattr(args, "exclude", []) or []),
         **uncertainty_settings(args),
     )

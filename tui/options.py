@@ -10,7 +10,8 @@ import os
 from .safe_text import shown
 
 __all__ = ["SPECTRAL_LINES", "expand_photos", "parse_wavelength", "parse_circle", "wavelength_type",
-           "circle_type", "diameter_type", "terms_type", "angle_type", "number_type",
+           "circle_type", "parse_aperture", "aperture_type", "APERTURE_HELP", "APERTURE_METAVAR",
+           "diameter_type", "terms_type", "angle_type", "number_type",
            "whole_number_type", "seconds_type", "count_type",
            "check_map_path", "save_map", "MapNames", "EXIT_CODES", "TOLERANCE_EXIT_CODES",
            "STATUS_SEVERITY", "worst_status", "parse_uncertainty", "uncertainty_type",
@@ -112,6 +113,28 @@ def parse_circle(text: str) -> tuple[float, float, float]:
     return x, y, r
 
 
+APERTURE_METAVAR = "X,Y,R|SHAPE:..."
+APERTURE_HELP = (
+    "the part's outline in photo pixels (x right, y down; angles in degrees counter-"
+    "clockwise as the photo is seen); default: found automatically. X,Y,R a circle; "
+    "ellipse:CX,CY,A,B,ANGLE a round part photographed at an angle (semi-axes A >= B, "
+    "ANGLE of the A axis; measured over the part's own circle); rect:CX,CY,W,H,ANGLE a "
+    "rectangle (W along ANGLE); poly:X1,Y1;X2,Y2;X3,Y3;... corners in order; "
+    "annulus:CX,CY,R,RIN a ring")
+
+
+def parse_aperture(text: str):
+    """An ``--aperture`` value as an ``Aperture``: today's ``X,Y,R`` circle, or a shape
+    (``analysis.shapes``: ``ellipse:``, ``rect:``, ``poly:``, ``annulus:``, ``circle:``)."""
+    from ..analysis.aperture import Aperture
+    from ..analysis.shapes import parse_shape
+
+    if ":" not in text:
+        return Aperture(*parse_circle(text))
+    value = parse_shape(text)
+    return Aperture(*value) if isinstance(value, tuple) else Aperture.of_shape(value)
+
+
 def _quoted(text: str) -> str:
     """``text`` quoted for a message, cut short when it is long (a 400-digit number)."""
     return repr(text) if len(text) <= 40 else repr(text[:37]) + "…"
@@ -164,6 +187,7 @@ def parse_uncertainty(text: str) -> float:
 wavelength_type = _argtype(parse_wavelength, "wavelength")
 uncertainty_type = _argtype(parse_uncertainty, "uncertainty")
 circle_type = _argtype(parse_circle, "circle")
+aperture_type = _argtype(parse_aperture, "aperture")
 
 
 def number_type(what: str, low: float, high: float):

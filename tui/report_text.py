@@ -10,6 +10,7 @@ from typing import TextIO
 
 from flatsight.analysis.formatting import format_number
 from flatsight.analysis.record import flat_fields
+from flatsight.analysis.shapes import shape_words
 from flatsight.analysis.zernike import noll_to_osa, term_name
 from rich import box
 from rich.console import Console
@@ -370,6 +371,8 @@ class Reporter:
                     f"({_fmt(ap['center_x_px'])}, {_fmt(ap['center_y_px'])}) {ap['source']}")
         if r.get("part"):
             head.append(f"   part {shown(r['part'])}")
+        if ap.get("shape"):
+            head.append(f"\n   outline: {shape_words(ap['shape'])}")
         c.print(head)
         ref = r.get("reference")
         if ref:

@@ -34,6 +34,7 @@ from pathlib import Path
 import numpy as np
 
 from ..formatting import finite_number, format_number, printable
+from ..shapes import shape_words
 from ..version import flatsight_version
 from ..zernike import nm_to_noll, noll_to_nm, osa_to_noll, term_name, zernike_basis
 
@@ -488,6 +489,10 @@ def _facts(record: Mapping, log: str | None, map_source: str) -> tuple[tuple[str
         ("Aperture", (f"{_fmt(settings.get('diameter_mm'), 1)} mm diameter"
                       if settings.get("diameter_mm") else
                       f"radius {_fmt(ap.get('radius_px'), 1)} px in the photo")),
+    ]
+    if ap.get("shape"):  # a part that is not a circle seen square-on
+        rows.append(("Outline", shape_words(ap["shape"])))
+    rows += [
         ("Software", software(record)),
         ("Map", "height in nm, the photo's top up, + high; "
                 + map_source.removeprefix("Map: ").removeprefix("Map ")),

@@ -152,6 +152,28 @@ async def test_moving_and_sizing_the_aperture_reruns_the_analysis(tmp_path):
 
 
 @sync
+async def test_narrowing_turning_and_widening_the_outline(tmp_path):
+    # a round part seen at an angle: `<` narrows the circle into an ellipse, `,` and `.`
+    # turn it by a degree, `>` widens it again; the re-run measures that outline
+    app, lib = make_app(tmp_path, names=PARTS[:1])
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot)
+        bench = app.screen
+        timers = ManualTimers(bench)
+        bench.query_one("#fringes-view").focus()
+        await pilot.press("less_than_sign", "less_than_sign", "comma", "comma", "full_stop")
+        shape = bench.entries[0].aperture.shape
+        assert shape.kind == "ellipse"
+        assert shape.b_px == pytest.approx(FOUND_APERTURE.radius_px / 1.02**2)
+        assert shape.angle_deg == pytest.approx(1.0)
+        await pilot.press("greater_than_sign")
+        await rerun(pilot, timers)
+        used = lib.measured[-1][1].aperture
+        assert used.kind == "ellipse"
+        assert used.shape.b_px == pytest.approx(FOUND_APERTURE.radius_px / 1.02)
+
+
+@sync
 async def test_a_click_on_the_photo_moves_the_outline_there(tmp_path):
     app, lib = make_app(tmp_path, names=PARTS[:1])
     async with app.run_test(size=(120, 40)) as pilot:

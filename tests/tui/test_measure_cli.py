@@ -231,13 +231,22 @@ def test_bad_wavelength(photo_set, capsys, value):
     assert_one_line_error(err, value)
 
 
-@pytest.mark.parametrize("value", ["1,2", "a,b,c", "300,200,-5"])
+@pytest.mark.parametrize("value", ["1,2", "a,b,c", "300,200,-5", "ellipse:1,2,3",
+                                   "rect:300,200,0,50,10", "poly:1,2;3,4", "annulus:9,9,5,8",
+                                   "hexagon:1,2,3"])
 def test_malformed_aperture(photo_set, capsys, value):
     # same argparse usage-block BUG as test_bad_wavelength
     status, out, err = run_cli(capsys, "measure", photo_set.good_png, *W, "--aperture", value,
                                "--no-log")
     assert status == 2 and out == ""
     assert_one_line_error(err, value)
+
+
+def test_a_shaped_aperture_off_the_photo_names_its_shape(photo_set, capsys):
+    status, out, err = run_cli(capsys, "measure", photo_set.good_png, *W, "--aperture",
+                               "rect:5000,5000,100,50,30", "--no-log")
+    assert status == 2 and out == ""
+    assert_one_line_error(err, "rect:5000,5000,100,50,30", "does not fit")
 
 
 def test_aperture_off_the_photo(photo_set, capsys):

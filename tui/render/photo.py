@@ -173,7 +173,11 @@ def photo_layers(
         return rgb, shade, outlines
     x, y = grid.source_xy()
     half = line_steps * grid.step_px
-    inside_disk = np.hypot(x - aperture.center_x_px, y - aperture.center_y_px) <= aperture.radius_px
+    if aperture.shape is None:
+        inside_disk = (np.hypot(x - aperture.center_x_px, y - aperture.center_y_px)
+                       <= aperture.radius_px)
+    else:  # an ellipse, a rectangle, a polygon, an annulus: its own outline
+        inside_disk = aperture.region(x, y)
     rgb[~inside_disk] *= OUTSIDE_DIM
     shade[~inside_disk] *= OUTSIDE_DIM
     circles = [(-1, aperture.center_x_px, aperture.center_y_px, aperture.radius_px)]
@@ -183,7 +187,10 @@ def photo_layers(
         shade[hole] = 0.0
         circles.append((k, e.center_x_px, e.center_y_px, e.radius_px))
     for k, cx, cy, r in circles:
-        ring = _ring(x, y, cx, cy, r, half)
+        if k < 0 and aperture.shape is not None:
+            ring = np.abs(aperture.shape.edge_distance_px(x, y)) <= half
+        else:
+            ring = _ring(x, y, cx, cy, r, half)
         colour = SELECTED_RGB if k == selected else (OUTLINE_RGB if k < 0 else EXCLUDED_RGB)
         rgb[ring] = colour
         shade[ring] = 1.0

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from ...analysis.formatting import format_number
+from ...analysis.shapes import shape_words
 from ...analysis.version import flatsight_version
 from ...analysis.zernike import term_name
 from .units import fmt_height
@@ -131,6 +132,8 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
         f"aperture       centre ({a.center_x_px:.1f}, {a.center_y_px:.1f}) px, "
         f"radius {a.radius_px:.1f} px, {len(a.exclusions)} exclusion(s)",
     ]
+    if a.shape is not None:
+        out.append(f"outline        {a.shape.to_text()}: {shape_words(a.shape.to_dict())}")
     if m.settings.diameter_mm:
         out.append(f"diameter       {m.settings.diameter_mm:g} mm")
     out += ["", "Figures (piston and tilt removed; ± U is the expanded uncertainty, k = 2)"]

@@ -125,6 +125,16 @@ class ViewActions:
         step = self._step_px()
         self._edit(lambda c: _moved(c, 0.0, 0.0, sign * step))
 
+    def action_turn(self, degrees: float) -> None:
+        """Turn the part's outline (an ellipse, a rectangle, a polygon) counter-clockwise."""
+        if self.selected < 0:
+            self._edit(lambda c: c.reshaped(turn_deg=degrees))
+
+    def action_stretch(self, sign: int) -> None:
+        """Scale the outline's second dimension by 2 % (a circle becomes an ellipse)."""
+        if self.selected < 0:
+            self._edit(lambda c: c.reshaped(stretch=1.02 if sign > 0 else 1 / 1.02))
+
     def action_auto_aperture(self) -> None:
         e = self.entry
         if e is not None:

@@ -16,6 +16,10 @@ KEY_NAMES = {
     "equals_sign": "=",
     "plus": "+",
     "minus": "-",
+    "comma": ",",
+    "full_stop": ".",
+    "less_than_sign": "<",
+    "greater_than_sign": ">",
 }
 
 

@@ -1,0 +1,184 @@
+"""Fringe photos of parts that are not a circle square-on, and their truth figures.
+
+Two kinds, rendered and judged with no project code:
+
+* ``ellipse``: a round part photographed ``view_deg`` off its axis. The surface is defined
+  on the part's unit circle; a photo point is taken back to the part by undoing the
+  foreshortening (the part's circle seen at an angle is an ellipse whose minor axis is
+  ``cos(view)`` of its major, an affine projection). Fringes seen at that angle come from
+  light crossing the air gap obliquely, so a height ``h`` gives a phase of
+  ``4 pi h cos(view) / lambda`` (the thin-film path ``2 t cos(angle)``, common practice).
+  The truth is :func:`surface.truth` over the part's circle.
+* ``rect``: a rectangular part of any aspect and rotation. The surface is the reference
+  surface over the unit disk that circumscribes the rectangle (photo axes, scaled by the
+  half-diagonal), and the truth is direct Gauss-Legendre quadrature over the rectangle
+  (:func:`rect_truth`): RMS with piston and tilt removed, RMSi with the best-fit
+  ``{1, x, y, rho^2}`` removed, power as that fit's ``rho^2`` sag from the centre to the
+  corners (the farthest point), PV over the quadrature nodes.
+
+Pixel coordinates as in :mod:`photo`: x right, y down, from pixel centres.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .cases import random_surface
+from .photo import carrier_for
+from .surface import RefSurface, truth
+
+__all__ = ["ShapedCase", "random_shaped_case", "rect_truth", "render_shaped"]
+
+
+def _turn(px, py, angle_deg):
+    c, s = math.cos(math.radians(angle_deg)), math.sin(math.radians(angle_deg))
+    return px * c - py * s, px * s + py * c
+
+
+def _part_coordinates(kind: str, part: dict, px: np.ndarray, py: np.ndarray):
+    """Part unit coordinates and a signed distance to the outline (px, positive outside)
+    of photo offsets ``(px, py)`` from the centre, y up."""
+    if kind == "ellipse":
+        r, view, axis = part["radius_px"], part["view_deg"], part["axis_deg"]
+        b = r * math.cos(math.radians(view))
+        u, v = _turn(px, py, -axis)  # u along the major axis (the tilt axis)
+        xu, yu = _turn(u / r, v / b, axis)
+        rho_e = np.hypot(u / r, v / b)
+        # first-order distance to the ellipse: (rho_e - 1) / |grad rho_e|
+        grad = np.hypot(u / (r * r), v / (b * b)) / np.maximum(rho_e, 1e-9)
+        return xu, yu, (rho_e - 1.0) / np.maximum(grad, 1e-12)
+    w, h, angle = part["width_px"], part["height_px"], part["angle_deg"]
+    half_diag = 0.5 * math.hypot(w, h)
+    u, v = _turn(px, py, -angle)
+    dist = np.maximum(np.abs(u) - 0.5 * w, np.abs(v) - 0.5 * h)
+    return px / half_diag, py / half_diag, dist
+
+
+def _extent(kind: str, part: dict, angle_deg: float) -> float:
+    """The part's width in the photo along the direction ``angle_deg`` (px)."""
+    if kind == "ellipse":
+        a = part["radius_px"]
+        b = a * math.cos(math.radians(part["view_deg"]))
+        t = math.radians(angle_deg - part["axis_deg"])
+        return 2.0 * math.hypot(a * math.cos(t), b * math.sin(t))
+    t = math.radians(angle_deg - part["angle_deg"])
+    return abs(part["width_px"] * math.cos(t)) + abs(part["height_px"] * math.sin(t))
+
+
+def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960),
+                  center_px=None, fringes: float = 20.0, angle_deg: float = 30.0,
+                  wavelength_nm: float = 632.8, visibility: float = 0.7, level: float = 0.45,
+                  noise: float = 0.01, illumination: float = 0.2,
+                  edge_width_px: float = 2.0, seed: int = 0) -> np.ndarray:
+    """An 8-bit photo of a shaped part (see the module docstring); ``part`` holds
+    ``radius_px, view_deg, axis_deg`` (ellipse) or ``width_px, height_px, angle_deg``
+    (rect). ``fringes`` is the count across the part along the carrier, as the
+    operator sees it."""
+    rows, cols = shape
+    cx, cy = center_px if center_px is not None else ((cols - 1) / 2.0, (rows - 1) / 2.0)
+    span = (part["radius_px"] if kind == "ellipse"
+            else 0.5 * math.hypot(part["width_px"], part["height_px"]))
+    fx, fy = carrier_for(fringes, angle_deg, 0.5 * _extent(kind, part, angle_deg))
+    yy, xx = np.mgrid[0:rows, 0:cols].astype(float)
+    px, py = xx - cx, cy - yy
+    xu, yu, dist = _part_coordinates(kind, part, px, py)
+    near = dist <= 4.0 * edge_width_px + 2.0
+    h = np.zeros((rows, cols))
+    h[near] = surface.height_nm(np.clip(xu[near], -1.5, 1.5), np.clip(yu[near], -1.5, 1.5))
+    oblique = math.cos(math.radians(part.get("view_deg", 0.0)))
+    phase = 2.0 * math.pi * (fx * (xx - cx) + fy * (yy - cy)) + 4.0 * math.pi * h * oblique \
+        / wavelength_nm
+    edge = np.clip(0.5 - dist / (edge_width_px / 0.8), 0.0, 1.0)  # a linear ramp
+    light = 1.0 + illumination * 0.5 * (px * 0.8 - py * 0.6) / span
+    img = level * light * (0.02 + edge * (1.0 + visibility * np.cos(phase)))
+    rng = np.random.default_rng(seed)
+    img = img + noise * rng.standard_normal(img.shape)
+    return np.clip(np.rint(np.clip(img, 0.0, 1.0) * 255.0), 0, 255).astype(np.uint8)
+
+
+def rect_truth(surface: RefSurface, part: dict, nodes: int = 160) -> dict:
+    """Figures of ``surface`` over a rectangle by Gauss-Legendre quadrature
+    (``numpy.polynomial.legendre.leggauss``), in the rectangle's own axes."""
+    w, h, angle = part["width_px"], part["height_px"], part["angle_deg"]
+    half_diag = 0.5 * math.hypot(w, h)
+    t, wt = np.polynomial.legendre.leggauss(nodes)
+    u = 0.5 * w * t[None, :]
+    v = 0.5 * h * t[:, None]
+    weight = (wt[:, None] * wt[None, :]).ravel()
+    px, py = _turn(*np.broadcast_arrays(u, v), angle)
+    x, y = (px / half_diag).ravel(), (py / half_diag).ravel()
+    values = surface.height_nm(x, y)
+
+    def residual(columns):
+        design = np.column_stack(columns) * np.sqrt(weight)[:, None]
+        coef = np.linalg.lstsq(design, values * np.sqrt(weight), rcond=None)[0]
+        return values - np.column_stack(columns) @ coef, coef
+
+    def rms(r):
+        return float(np.sqrt(np.sum(weight * r * r) / weight.sum()))
+
+    one = np.ones_like(x)
+    res_t, _ = residual([one, x, y])
+    res_p, c_p = residual([one, x, y, x * x + y * y])
+    return {"rms_nm": rms(res_t), "pv_nm": float(np.ptp(res_t)),
+            "rms_irregularity_nm": rms(res_p), "irregularity_nm": float(np.ptp(res_p)),
+            "power_nm": float(-c_p[3] * np.max(x * x + y * y))}
+
+
+@dataclass(frozen=True)
+class ShapedCase:
+    """One photo of a shaped part, with what a measurement of it should find."""
+
+    kind: str
+    pixels: np.ndarray
+    part: dict
+    center_px: tuple[float, float]
+    wavelength_nm: float
+    truth: dict
+    settings: dict = field(default_factory=dict)
+
+
+def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
+                       aspect: float | None = None, scale: float = 1.0) -> ShapedCase:
+    """A random ellipse (15-35 deg of view) or rectangle (1:1 to 4:1, any rotation) on a
+    720 x 960 photo (times ``scale``); ``view_deg`` or ``aspect`` fix that one draw."""
+    rng = np.random.default_rng([seed, 1 if kind == "ellipse" else 2])
+    wavelength = float(rng.choice([632.8, 589.3, 546.07]))
+    fringes = float(rng.uniform(12.0, 24.0))
+    surface = random_surface(rng, wavelength_nm=wavelength, fringes=fringes)
+    rows, cols = int(round(720 * scale)), int(round(960 * scale))
+    cx = (cols - 1) / 2.0 + scale * rng.uniform(-30, 30)
+    cy = (rows - 1) / 2.0 + scale * rng.uniform(-20, 20)
+    if kind == "ellipse":
+        part = {"radius_px": scale * float(rng.uniform(230, 320)),
+                "view_deg": float(rng.uniform(15, 35)), "axis_deg": float(rng.uniform(0, 180))}
+        if view_deg is not None:
+            part["view_deg"] = float(view_deg)
+        answer = truth(surface, wavelength)
+    else:
+        drawn = float(rng.uniform(1.0, 4.0))
+        aspect = drawn if aspect is None else float(aspect)
+        diag = scale * float(rng.uniform(520, 660))
+        height = diag / math.hypot(aspect, 1.0)
+        part = {"width_px": aspect * height, "height_px": height,
+                "angle_deg": float(rng.uniform(0, 180))}
+        # the rectangle stays inside the frame whatever its turn
+        u, v = _turn(np.array([1, -1, -1, 1]) * part["width_px"] / 2,
+                     np.array([1, 1, -1, -1]) * part["height_px"] / 2, part["angle_deg"])
+        shrink = min(1.0, 0.95 * min((cols / 2 - 32 * scale) / np.max(np.abs(u)),
+                                     (rows / 2 - 24 * scale) / np.max(np.abs(v))))
+        part["width_px"] *= shrink
+        part["height_px"] *= shrink
+        answer = rect_truth(surface, part)
+    settings = {"fringes": fringes, "angle_deg": float(rng.uniform(0, 180)),
+                "noise": float(rng.uniform(0.003, 0.02)),
+                "illumination": float(rng.uniform(0.0, 0.4)),
+                "visibility": float(rng.uniform(0.5, 0.9)),
+                "edge_width_px": float(rng.uniform(1.0, 4.0))}
+    pixels = render_shaped(surface, kind, part, shape=(rows, cols), center_px=(cx, cy),
+                           wavelength_nm=wavelength, seed=seed, **settings)
+    return ShapedCase(kind=kind, pixels=pixels, part=part, center_px=(cx, cy),
+                      wavelength_nm=wavelength, truth=answer, settings=settings)
