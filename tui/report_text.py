@@ -367,8 +367,13 @@ class Reporter:
         ap = r["aperture"]
         head = Text()
         head.append(shown(r["photo"]), style="bold")
-        head.append(f"   {r['wavelength_nm']:g} nm   aperture r={_fmt(ap['radius_px'])} px at "
-                    f"({_fmt(ap['center_x_px'])}, {_fmt(ap['center_y_px'])}) {ap['source']}")
+        if ap.get("shape"):  # an outline: its own form, never a circle it is not
+            head.append(f"   {r['wavelength_nm']:g} nm   aperture "
+                        f"{shown(ap['shape'].get('text', '?'))} {ap['source']}")
+        else:
+            head.append(f"   {r['wavelength_nm']:g} nm   aperture r={_fmt(ap['radius_px'])} "
+                        f"px at ({_fmt(ap['center_x_px'])}, {_fmt(ap['center_y_px'])}) "
+                        f"{ap['source']}")
         if r.get("part"):
             head.append(f"   part {shown(r['part'])}")
         if ap.get("shape"):
