@@ -112,7 +112,7 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
                    help="physical clear-aperture diameter, for the radius of curvature")
     p.add_argument("--invert", action="store_true",
                    help="flip the sign of the surface (see 'Sign' above)")
-    p.add_argument("--method", choices=METHOD_CHOICES, default="auto",
+    p.add_argument("--method", choices=METHOD_CHOICES, default=None,
                    help="how the fringes become phase: auto (default: carrier when it "
                         "finds tilt fringes, else intensity-fit), carrier or "
                         "intensity-fit (see 'Method' above)")
@@ -156,8 +156,8 @@ def _settings(args: argparse.Namespace):
         aperture=aperture,
         exclusions=tuple(Exclusion(*c) for c in args.exclude),
         report_wavelength_nm=args.report_wavelength,
-        method=args.method,
-        ring_sign=args.ring_sign,
+        method=getattr(args, "method", None) or "auto",
+        ring_sign=getattr(args, "ring_sign", None),
         **uncertainty_settings(args),
     )
 

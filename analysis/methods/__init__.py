@@ -9,8 +9,8 @@ PhaseResult``:
   few, bent or closed fringes.
 
 :func:`run_method` picks one (``"auto"``) or runs the one asked for, and says which and
-why: the carrier method whenever it finds its carrier, the intensity fit when it finds
-too few fringes or closed ones.
+why: the carrier method when it finds its carrier and ten or more tilt fringes, the
+intensity fit when it finds fewer, or closed ones.
 """
 
 from __future__ import annotations
@@ -31,6 +31,9 @@ __all__ = ["METHODS", "METHOD_CHOICES", "RING_SIGNS", "PhaseResult", "run_method
 #: Methods by the name the command line, the record and the station use.
 METHODS = ("carrier", "intensity-fit")
 METHOD_CHOICES = ("auto", *METHODS)
+#: Under this many tilt fringes auto prefers the intensity fit even where the carrier
+#: method finds its carrier (it warns below 10 itself).
+CARRIER_MIN_FRINGES = 10.0
 #: What the operator may state about closed fringes (the push test, README).
 RING_SIGNS = ("convex", "concave")
 
@@ -105,8 +108,8 @@ def run_method(
     aperture : Aperture
         The clear aperture in photo pixels.
     method : {"auto", "carrier", "intensity-fit"}
-        ``"auto"`` runs the carrier method and, when it finds too few fringes or closed
-        ones, the intensity fit.
+        ``"auto"`` runs the carrier method and, when it finds under ten tilt fringes or
+        closed ones, the intensity fit.
     ring_sign : {"convex", "concave"} or None
         The operator's statement for closed fringes (the push test).
     invert : bool
@@ -138,6 +141,17 @@ def run_method(
         return intensity_fit.run(image, aperture, reason=None, **fit_options)
     if method == "carrier":
         return _replace_reason(result, "chosen by the operator")
+    if result.quality["carrier_fringes"] < CARRIER_MIN_FRINGES:
+        # the carrier method measures so few fringes, but misses its targets on a third
+        # of them (benchmarks/few_fringe_accuracy.py); the fit meets them. Keep the
+        # carrier's result only when the fit cannot do better.
+        try:
+            fitted = intensity_fit.run(image, aperture, reason="too few fringes",
+                                       **fit_options)
+        except UnanalysablePhotoError:
+            return result
+        if not fitted.warnings:
+            return fitted
     return result
 
 

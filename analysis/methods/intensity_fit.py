@@ -58,6 +58,9 @@ SEED_RADII = (0.35, 0.6)  # the first search's disks
 # spherical, which rings at the rim already show
 GROWTH = ((0.35, 6), (0.5, 11), (0.65, 11), (0.8, 11), (FIT_RADIUS, 11))
 SEEDS_PER_DISK = 3
+# a camera's tone curve puts a second harmonic of a fifth of the fringe or less; far more
+# means the fit found half the phase and let the harmonic draw the fringes
+MAX_HARMONIC = 0.4
 CLOSED_TILT_FRINGES = 2.0  # under this much tilt the fringes close: the sign is stated
 MAX_ORDER = 6
 
@@ -348,12 +351,18 @@ def fit_intensity(
             sel = np.flatnonzero(r_all <= radius)
             sel = sel[::max(1, sel.size // 6000)]
             c, cost = _fit(values[sel], x_all[sel], y_all[sel], c, terms, cancel)
+        if _harmonic_share(values[sel], x_all[sel], y_all[sel], c) > MAX_HARMONIC:
+            continue  # half the phase with its second harmonic standing in for the fringes
         if cost < best_cost:
             best, best_cost = c, cost
         report("intensity fit", 0.2 + 0.5 * (i + 1) / len(seeds))
         if best_cost < _expected_misfit(noise / spread, values, x_all, y_all, best):
             break  # as good as the photo's noise allows: no other seed can do better
 
+    if best is None:
+        raise UnanalysablePhotoError(
+            f"no fringe pattern found in {photo_name}: check the lamp, the focus and the "
+            "contact between the flats, or give the aperture with --aperture X,Y,R")
     # 3. as many terms as the fringes carry, on every fitted pixel
     fringes = _fringes_spanned(best, xu[usable], yu[usable])
     order, n_terms = terms_for_fringes(fringes)
@@ -436,6 +445,15 @@ def fit_intensity(
         tilt_fringes=tilt_fringes, closed=closed, sign=sign, residual_rms=residual_rms,
         spectrum=spectrum, warnings=tuple(warnings),
     )
+
+
+def _harmonic_share(data, x, y, c) -> float:
+    """The second harmonic's amplitude over the fringe's (RMS over the pixels)."""
+    model = _Model(data, x, y, c.size)
+    _, _, lin = model.linear(c)
+    ne = model.e.shape[1]
+    b_rms = float(np.sqrt(np.mean((model.e @ lin[ne:2 * ne]) ** 2)))
+    return abs(float(lin[-1])) / max(b_rms, 1e-12)
 
 
 def _noise_level(data: np.ndarray, inside: np.ndarray) -> float:
