@@ -32,13 +32,13 @@ Measure the flatness of each photo: find the aperture, turn the fringes into
 phase, fit Zernike terms (Noll), and report PV, RMS, PVr, power and
 irregularity in nm, waves and fringes (one fringe = half a wavelength of height).
 
-Method (--method): with about eight or more nearly straight tilt fringes, the
-carrier method (Fourier transform, Takeda) demodulates and unwraps them. With
-fewer fringes, fringes bent by power, or closed rings, it finds no carrier, and
-auto (the default) fits a Zernike phase directly to the fringe intensity
-instead (intensity-fit). That fit carries only the low orders a few fringes
-show: it fits up to radial order fringes + 2 (15 to 28 terms) and says how
-many. Every output names the method and why it was chosen.
+Method (--method): with ten or more nearly straight tilt fringes, the carrier
+method (Fourier transform, Takeda) demodulates and unwraps them. With fewer
+fringes, fringes bent by power, or closed rings, auto (the default) fits a
+Zernike phase directly to the fringe intensity instead (intensity-fit). That
+fit carries only the low orders a few fringes show: it fits up to radial order
+fringes + 2 (15 to 28 terms) and says how many. Every output names the method
+and why it was chosen.
 
 Closed fringes (rings, under two fringes of tilt) look the same for a convex
 and a concave part, so say which with --ring-sign. The push test: press gently

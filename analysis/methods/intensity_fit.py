@@ -187,23 +187,26 @@ def _fit(data, x, y, start: np.ndarray, n_terms: int, cancel) -> tuple[np.ndarra
     return out.x, float(np.sqrt(np.mean(out.fun**2)))
 
 
-def _seed_search(data, x, y) -> list[np.ndarray]:
-    """Tilt and power that best explain the central disk: a few distinct candidates.
+def _seed_search(data, x, y, radius: float) -> list[np.ndarray]:
+    """Tilt and power that best explain a central disk: a few distinct candidates.
 
-    Over a disk a third of the radius across, tilt steps of 0.6 fringes per diameter
-    and power steps of 1.5 fringes move the phase by at most about a tenth of a fringe,
-    so the best point of the grid lies in the fit's basin.
+    The grid's steps move the phase over the disk by at most about a tenth of a fringe
+    (tilt in fringes per diameter, power in fringes edge to centre, both scaled to the
+    disk's radius), so the best point of the grid lies in the fit's basin.
     """
     bg = np.stack([np.ones_like(x), x, y], axis=1)
     q, _ = np.linalg.qr(bg)
     d = data - q @ (q.T @ data)
-    tilts = np.arange(-10.2, 10.21, 0.6)  # fringes across the diameter
-    powers = np.arange(-9.0, 9.01, 0.75)  # fringes of power, edge to centre
+    tilt_step, power_step = 0.35 / radius, 0.2 / radius**2
+    tilts = np.arange(-10.0, 10.0 + 1e-9, tilt_step)  # fringes across the diameter
+    powers = np.arange(-9.0, 9.0 + 1e-9, power_step)  # fringes of power, edge to centre
     tx, ty, pw = np.meshgrid(tilts, tilts[tilts >= 0], powers, indexing="ij")
     tx, ty, pw = tx.ravel(), ty.ravel(), pw.ravel()
     # phase in radians: tilt T fringes across the diameter is pi T x; power P is 2 pi P rho^2
     phi = (np.pi * (tx[:, None] * x[None, :] + ty[:, None] * y[None, :])
-           + 2.0 * np.pi * pw[:, None] * (x * x + y * y)[None, :])
+           + 2.0 * np.pi * pw[:, None] * (x * x + y * y)[None, :]).astype(np.float32)
+    q = q.astype(np.float32)
+    d = d.astype(np.float32)
     cos_, sin_ = np.cos(phi), np.sin(phi)
     cos_ -= (cos_ @ q) @ q.T
     sin_ -= (sin_ @ q) @ q.T
@@ -213,11 +216,13 @@ def _seed_search(data, x, y) -> list[np.ndarray]:
     p1, p2 = cos_ @ d, sin_ @ d
     det = np.maximum(g11 * g22 - g12 * g12, 1e-12)
     explained = (g22 * p1 * p1 - 2 * g12 * p1 * p2 + g11 * p2 * p2) / det
+    del phi, cos_, sin_
     order = np.argsort(-explained)
     picks: list[np.ndarray] = []
     for i in order[:200]:
         cand = np.array([tx[i], ty[i], pw[i]])
-        if all(np.max(np.abs(cand - p) / (0.61, 0.61, 0.76)) > 1.0 for p in picks):
+        steps = (1.01 * tilt_step, 1.01 * tilt_step, 1.01 * power_step)
+        if all(np.max(np.abs(cand - p) / steps) > 1.0 for p in picks):
             picks.append(cand)
         if len(picks) == SEEDS_PER_DISK:
             break
@@ -339,8 +344,8 @@ def fit_intensity(
     seeds = [_ring_seed(values, r_all)]
     for radius in SEED_RADII:
         centre = np.flatnonzero(r_all <= radius)
-        sub = centre[::max(1, int(centre.size // 1500))]
-        seeds += _seed_search(values[sub], x_all[sub], y_all[sub])
+        sub = centre[::max(1, int(centre.size // 700))]
+        seeds += _seed_search(values[sub], x_all[sub], y_all[sub], radius)
     report("intensity fit", 0.2)
 
     # 2. each seed grown to the rim with tilt, power and astigmatism; keep the best
