@@ -523,7 +523,7 @@ def run(
     tilt_x, tilt_down = fit.coefficients[1], -fit.coefficients[2]
     has_tilt = fit.tilt_fringes >= CLOSED_TILT_FRINGES
     quality = {
-        "carrier_fringes": fit.tilt_fringes,
+        "carrier_fringes": fit.tilt_fringes if has_tilt else float("nan"),
         "carrier_angle_deg": (math.degrees(math.atan2(tilt_down, tilt_x)) % 180.0
                               if has_tilt else float("nan")),
         "fringe_period_px": (2.0 * aperture.radius_px / fit.tilt_fringes

@@ -92,10 +92,7 @@ def method_lines(q) -> list[str]:
 
 def quality_lines(q) -> list[str]:
     """:func:`carrier_lines` of a measurement's ``Quality``, then its method."""
-    fringes = q.carrier_fringes
-    if getattr(q, "sign", "") == "stated":
-        fringes = float("nan")  # closed fringes: the little tilt there is is no carrier
-    return carrier_lines(fringes, q.fringe_period_px, q.mean_modulation,
+    return carrier_lines(q.carrier_fringes, q.fringe_period_px, q.mean_modulation,
                          _quality_triples(q)) + method_lines(q)
 
 
