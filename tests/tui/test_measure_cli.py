@@ -171,7 +171,7 @@ BAD_FILES = [
     ("one-pixel.png", 2, "too small"),
     ("blank-grey.png", 3, "aperture"),
     ("noise.png", 3, "aperture"),
-    ("rings.png", 3, "tilt"),
+    ("rings.png", 3, "--ring-sign"),  # closed rings: measurable once the sign is stated
     ("white-disk.png", 3, "aperture"),
 ]
 
