@@ -12,10 +12,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .aperture import Aperture, Exclusion
-from .demodulation import MapGeometry, Spectrum, demodulate
+from .demodulation import MapGeometry, Spectrum
 from .errors import SettingsError, UnanalysablePhotoError
 from .figures import PISTON_TILT, Figures, MapFigures, compute_figures, prepare_map
-from .unwrapping import phase_to_height_nm, unwrap
+from .unwrapping import phase_to_height_nm
 from .zernike import ZernikeFit, aperture_basis, fit_zernike
 
 __all__ = [
@@ -57,6 +57,11 @@ class MeasureSettings:
         Standard uncertainty of the test wavelength (0: a known spectral line).
     reference_uncertainty_nm : float
         Expanded uncertainty (k = 2) of the reference flat's form, in every figure.
+    method : {"auto", "carrier", "intensity-fit"}
+        How the fringes become phase (``analysis/methods``); auto picks by the photo.
+    ring_sign : {"convex", "concave"} or None
+        The part's form as the operator's push test shows it: needed for closed fringes,
+        which cannot show it themselves (README, "Closed fringes").
     """
 
     wavelength_nm: float = 632.8
@@ -68,6 +73,8 @@ class MeasureSettings:
     report_wavelength_nm: float | None = None
     wavelength_uncertainty_nm: float = 0.0
     reference_uncertainty_nm: float = 0.0
+    method: str = "auto"
+    ring_sign: str | None = None
 
 
 @dataclass(frozen=True)
@@ -86,6 +93,10 @@ class Quality:
     binning: int  # photo pixels binned into one before the Fourier transform
     photos: int = 1  # photos averaged into the map
     per_photo: tuple[Quality, ...] = ()  # an average: each photo's own quality, in order
+    method: str = ""  # the single-photo method (analysis/methods); "" for combined maps
+    method_reason: str = ""  # why it was chosen: "carrier found", "closed fringes" ...
+    sign: str = "measured"  # "stated": the operator said convex or concave (closed fringes)
+    terms_fitted: int = 0  # Noll terms the photo resolves and the method fitted (0: no limit)
 
 
 @dataclass(frozen=True)
@@ -138,6 +149,13 @@ def _validate(settings: MeasureSettings) -> None:
                         ("reference flat uncertainty", settings.reference_uncertainty_nm)):
         if not (math.isfinite(value) and 0.0 <= value <= 1000.0):
             raise SettingsError(f"{what} {value:g} nm must be 0 to 1000 nm")
+    from .methods import METHOD_CHOICES, RING_SIGNS
+
+    if settings.method not in METHOD_CHOICES:
+        raise SettingsError(f"unknown method {settings.method!r}: use "
+                            + ", ".join(METHOD_CHOICES))
+    if settings.ring_sign is not None and settings.ring_sign not in RING_SIGNS:
+        raise SettingsError(f"unknown ring sign {settings.ring_sign!r}: use convex or concave")
     if settings.report_wavelength_nm is not None and not (
             100.0 <= settings.report_wavelength_nm <= 20000.0):
         raise SettingsError(f"reporting wavelength {settings.report_wavelength_nm:g} nm is "
@@ -169,7 +187,9 @@ def measure(
     ------
     UnreadablePhotoError, UnanalysablePhotoError, SettingsError, MeasurementCancelled
     """
+    from .lit_disk import find_lit_disk
     from .loading import FringePhoto, load_photo, photo_from_array
+    from .methods import run_method
     from .outline import find_part_aperture
 
     _validate(settings)
@@ -218,7 +238,13 @@ def measure(
                 f"aperture {given} does not fit the {W}x{H} photo (centre inside, "
                 f"radius from 16 px to {max(W, H) / 2:g} px, half the photo's longer side)")
     else:
-        aperture = find_part_aperture(image, photo_name=name)
+        try:
+            aperture = find_part_aperture(image, photo_name=name)
+        except UnanalysablePhotoError:
+            if settings.method == "carrier":
+                raise
+            # too few fringes for the contrast finder's carrier: the lit disk by its light
+            aperture = find_lit_disk(image, photo_name=name)
     if settings.exclusions:
         aperture = aperture.with_exclusions(tuple(aperture.exclusions) + settings.exclusions)
     if fringe_photo.saturated_fraction > 0.01:
@@ -226,56 +252,25 @@ def measure(
                         "saturated: shorten the exposure")
     lap("aperture")
 
-    demod = demodulate(image, aperture, progress=progress, cancel=cancel)
+    result = run_method(image, aperture, method=settings.method,
+                        ring_sign=settings.ring_sign, invert=settings.invert,
+                        photo_name=name, progress=progress, cancel=cancel)
     lap("demodulate")
-    warnings.extend(demod.warnings)
-    valid = demod.disk & ~demod.masked
-    report("unwrap", 0.0)
-    residual = unwrap(demod.wrapped_residual, valid)
-    valid = _drop_spikes(residual, valid)
-    phase = demod.model_phase + residual
-    lap("unwrap")
-    quality = {
-        "carrier_fringes": demod.carrier.fringes_across(2 * aperture.radius_px),
-        "carrier_angle_deg": demod.carrier.angle_deg,
-        "fringe_period_px": demod.carrier.period_px,
-        "resolution_cycles_per_aperture": demod.resolution_cycles_per_aperture,
-        "binning": demod.binning,
-    }
+    warnings.extend(result.warnings)
+    quality = dict(result.quality, method=result.method, method_reason=result.reason,
+                   sign=result.sign)
     m = measurement_from_phase(
-        phase, valid, demod.disk, aperture=aperture, geometry=demod.geometry,
-        settings=settings, photo=name, modulation=demod.modulation,
-        height_sigma_nm=demod.phase_sigma * (settings.wavelength_nm * _obliquity(aperture)
-                                             / (4.0 * np.pi)),
-        quality_fields=quality, spectrum=demod.spectrum, warnings=tuple(warnings),
+        result.phase, result.valid, result.disk, aperture=aperture,
+        geometry=result.geometry, settings=settings, photo=name,
+        modulation=result.modulation,
+        height_sigma_nm=result.phase_sigma * (settings.wavelength_nm * _obliquity(aperture)
+                                              / (4.0 * np.pi)),
+        quality_fields=quality, spectrum=result.spectrum, warnings=tuple(warnings),
         photo_sha256=fringe_photo.sha256,
     )
     lap("fit")
     timings["total"] = sum(timings.values())
     return _replace(m, timings_s=timings)
-
-
-def _drop_spikes(residual: np.ndarray, valid: np.ndarray) -> np.ndarray:
-    """Leave out map pixels the demodulation cannot vouch for.
-
-    The residual phase is band-limited by the sideband window, so a pixel that stands
-    far out of its neighbours (beside a speck, where the window's fit was lopsided) or
-    a scrap of a few pixels cut off by masks is an artefact, not the surface.
-    """
-    from scipy import ndimage
-
-    keep = valid.copy()
-    labels, n = ndimage.label(keep)
-    if n > 1:
-        sizes = ndimage.sum_labels(keep, labels, index=np.arange(1, n + 1))
-        keep &= np.isin(labels, 1 + np.flatnonzero(sizes >= 25))
-    smooth = ndimage.median_filter(np.where(keep, residual, np.nan), size=5, mode="nearest")
-    dev = np.abs(residual - smooth)
-    ok = keep & np.isfinite(dev)
-    if ok.sum() > 100:
-        sigma = 1.4826 * float(np.median(dev[ok])) + 1e-9
-        keep &= ~(ok & (dev > max(8.0 * sigma, 0.15)))  # 0.15 rad: under 1/40 fringe
-    return keep
 
 
 def _obliquity(aperture: Aperture) -> float:
@@ -427,6 +422,10 @@ def measurement_from_height(
         binning=int(qf.get("binning", 1)),
         photos=int(qf.get("photos", 1)),
         per_photo=tuple(qf.get("per_photo", ())),
+        method=str(qf.get("method", "")),
+        method_reason=str(qf.get("method_reason", "")),
+        sign=str(qf.get("sign", "measured")),
+        terms_fitted=int(qf.get("terms_fitted", 0)),
     )
     warnings = tuple(warnings)
     # the outermost rim, where a soft edge dims the fringes, is left to the fit by

@@ -12,6 +12,7 @@ import numpy as np
 from .atomic import atomic_path, atomic_write_bytes
 from .errors import SettingsError
 from .figures import to_fringes, to_waves
+from .methods import METHOD_TEXT
 from .pipeline import Measurement
 from .version import flatsight_version
 
@@ -156,6 +157,14 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
         "masked_fraction": _num(q.masked_fraction, 5),
         "binning": q.binning,
         "map_pixels_across": int(round(2 * m.aperture.radius_px / m.geometry.step_px)),
+        # the single-photo method and why it was chosen (analysis/methods); null for a
+        # map combined from several photos
+        "method": q.method or None,
+        "method_reason": q.method_reason or None,
+        # "measured": the sign follows the tilt (the wedge convention); "stated": the
+        # operator said convex or concave for closed fringes
+        "sign": q.sign,
+        "terms_fitted": q.terms_fitted or None,  # Noll terms the photo resolves (null: 36+)
     }
     if q.per_photo:  # an average: no carrier of its own (null above), each photo's here
         rec["quality"]["per_photo"] = [
@@ -171,6 +180,8 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
         "diameter_mm": m.settings.diameter_mm,
         "report_wavelength_nm": m.settings.report_wavelength_nm,
         "removed_terms": list(f.removed_terms),
+        "method": m.settings.method,
+        "ring_sign": m.settings.ring_sign,
     }
     rec["uncertainty_budget"] = {
         "coverage_factor": 2,
@@ -187,8 +198,7 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
     }
     rec["figures_method"] = FIGURES_METHOD
     rec["sign_convention"] = SIGN_CONVENTION
-    rec["method"] = ("Fourier-transform fringe analysis (Takeda 1982) with Gerchberg edge "
-                     "extension (Roddier & Roddier 1987); Zernike fit, Noll 1976")
+    rec["method"] = METHOD_TEXT.get(q.method, METHOD_TEXT["carrier"])
     rec["warnings"] = list(m.warnings)
     return rec
 

@@ -109,7 +109,8 @@ class FlatsightStation(App):
                                 "diameter_mm": preset.diameter_mm,
                                 "n_terms": preset.zernike_terms,
                                 "wavelength_uncertainty_nm": preset.wavelength_uncertainty_nm,
-                                "reference_uncertainty_nm": preset.reference_uncertainty_nm}
+                                "reference_uncertainty_nm": preset.reference_uncertainty_nm,
+                                "method": preset.method, "ring_sign": preset.ring_sign}
         return entry
 
     def on_mount(self) -> None:

@@ -94,6 +94,15 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
         help="flip the sign of the surface (see 'Sign' above)",
     )
     p.add_argument(
+        "--method", choices=("auto", "carrier", "intensity-fit"), default=None,
+        help="how the fringes become phase (see flatsight measure --help, 'Method')",
+    )
+    p.add_argument(
+        "--ring-sign", choices=("convex", "concave"), default=None,
+        help="for closed fringes: the part's form from the push test (see flatsight "
+             "measure --help, 'Closed fringes'); shown in the fringe view",
+    )
+    p.add_argument(
         "--terms",
         type=int,
         metavar="N",
@@ -163,6 +172,9 @@ def settings_from_args(args: argparse.Namespace, remembered):
         changes["n_terms"] = int(args.terms)
     if args.colour is not None:
         changes["colour"] = args.colour
+    for key in ("method", "ring_sign"):
+        if getattr(args, key, None) is not None:
+            changes[key] = getattr(args, key)
     if getattr(args, "decision", None) is not None:
         changes["decision"] = args.decision
     for key in ("wavelength_uncertainty", "reference_uncertainty"):

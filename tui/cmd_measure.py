@@ -26,12 +26,32 @@ from .parallel import jobs_type
 from .record_options import add_record_options
 from .safe_text import shown
 
+# the methods' names, written out so that --help need not import the analysis
+METHOD_CHOICES = ("auto", "carrier", "intensity-fit")
+
 HELP = "measure fringe photos: PV, RMS, PVr, power, irregularity"
 DESCRIPTION = """\
-Measure the flatness of each photo: find the aperture, demodulate the tilt
-fringes (Fourier-transform method), unwrap, fit Zernike terms (Noll), and
-report PV, RMS, PVr, power and irregularity in nm, waves and fringes
-(one fringe = half a wavelength of height).
+Measure the flatness of each photo: find the aperture, turn the fringes into
+phase, fit Zernike terms (Noll), and report PV, RMS, PVr, power and
+irregularity in nm, waves and fringes (one fringe = half a wavelength of height).
+
+Method (--method): with ten or more nearly straight tilt fringes, the carrier
+method (Fourier transform, Takeda) demodulates and unwraps them. With fewer
+fringes, fringes bent by power, or closed rings, auto (the default) fits a
+Zernike phase directly to the fringe intensity instead (intensity-fit). That
+fit carries only the low orders a few fringes show: it fits up to radial order
+fringes + 2 (15 to 28 terms) and says how many. Every output names the method
+and why it was chosen.
+
+Closed fringes (rings, under two fringes of tilt) look the same for a convex
+and a concave part, so say which with --ring-sign. The push test: press gently
+on the edge of the top flat, following your shop's procedure. Pressing closes
+the air gap, and each fringe marks one gap thickness, so the fringes move
+toward where the gap is thicker. Rings moving outward, away from the centre: the
+gap is thinnest at the centre, the part is high there: convex. Rings shrinking
+toward the centre: the gap is thickest at the centre: concave. A closed-fringe
+photo without --ring-sign is refused (exit 3). The record says the sign was
+stated ("sign": "stated"), not measured; --invert does not change it.
 
 Sign: Flatsight takes the air wedge to be wider toward the top of the photo
 (toward the left when the fringes are vertical), so a high point on the part
@@ -94,6 +114,13 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
                    help="physical clear-aperture diameter, for the radius of curvature")
     p.add_argument("--invert", action="store_true",
                    help="flip the sign of the surface (see 'Sign' above)")
+    p.add_argument("--method", choices=METHOD_CHOICES, default=None,
+                   help="how the fringes become phase: auto (default: carrier when it "
+                        "finds tilt fringes, else intensity-fit), carrier or "
+                        "intensity-fit (see 'Method' above)")
+    p.add_argument("--ring-sign", choices=("convex", "concave"), default=None,
+                   help="for closed fringes: the part's form from the push test (see "
+                        "'Closed fringes' above)")
     p.add_argument("--terms", type=terms_type, metavar="N", default=None,
                    help="Zernike terms to fit (Noll, default 36, at least 15)")
     p.add_argument("--ordering", choices=("noll", "osa"), default="noll",
@@ -131,6 +158,8 @@ def _settings(args: argparse.Namespace):
         aperture=aperture,
         exclusions=tuple(Exclusion(*c) for c in args.exclude),
         report_wavelength_nm=args.report_wavelength,
+        method=getattr(args, "method", None) or "auto",
+        ring_sign=getattr(args, "ring_sign", None),
         **uncertainty_settings(args),
     )
 

@@ -54,6 +54,11 @@ class StationSettings:
         Standard uncertainty (k = 1) of the test wavelength, nm.
     reference_uncertainty_nm : float
         Expanded uncertainty (k = 2) of the reference flat's form, nm.
+    method : {"auto", "carrier", "intensity-fit"}
+        How the fringes become phase (``flatsight measure --help``, "Method").
+    ring_sign : {"convex", "concave"} or None
+        The part's form for closed fringes, from the push test; a property of the part
+        on the bench, so never carried to the next session.
     log : str or None
         The inspection log every command uses when not given ``--log``: an SQLite path
         or a PostgreSQL URL (never with a password in it); None: the default file.
@@ -70,6 +75,8 @@ class StationSettings:
     decision: str = "simple"
     wavelength_uncertainty_nm: float = 0.0
     reference_uncertainty_nm: float = 0.0
+    method: str = "auto"
+    ring_sign: str | None = None
     log: str | None = None
 
 
@@ -95,6 +102,10 @@ def validate(s: StationSettings) -> StationSettings:
         raise SettingsError(f"unknown colour {s.colour!r}; use one of {', '.join(COLOUR_MODES)}")
     if any(not 4 <= j <= MAX_TERMS for j in s.removed_terms):
         raise SettingsError("removed terms must be Noll indices from 4 up")
+    if s.method not in ("auto", "carrier", "intensity-fit"):
+        raise SettingsError(f"unknown method {s.method!r}; use auto, carrier or intensity-fit")
+    if s.ring_sign not in (None, "convex", "concave"):
+        raise SettingsError(f"unknown ring sign {s.ring_sign!r}; use convex or concave")
     if s.decision not in DECISION_RULES:
         raise SettingsError(f"unknown decision rule {s.decision!r}; use one of "
                             f"{', '.join(DECISION_RULES)}")
@@ -129,7 +140,7 @@ def _toml_value(v) -> str:
 # settings that belong to the part on the bench, not to the bench: never carried to the
 # next session (a 50 mm part's diameter would give the next 100 mm flat a wrong radius of
 # curvature without a word); --diameter, a preset or the settings screen give it per run
-NOT_REMEMBERED = ("diameter_mm",)
+NOT_REMEMBERED = ("diameter_mm", "ring_sign")
 
 
 def settings_to_toml(s: StationSettings) -> str:

@@ -71,6 +71,8 @@ PRESET_TO_OPTION = {
     "decision": "decision",
     "wavelength_uncertainty_nm": "wavelength_uncertainty",
     "reference_uncertainty_nm": "reference_uncertainty",
+    "method": "method",
+    "ring_sign": "ring_sign",
     "log": "log",
 }
 

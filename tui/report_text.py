@@ -78,6 +78,22 @@ def fringes_text(q: dict) -> tuple[str, str]:
             f"{_fmt(q['fringe_period_px'])} px each"), visibility
 
 
+def method_text(q: dict) -> str | None:
+    """The single-photo method, why it was chosen, and what it fitted, in one line.
+
+    None for a map combined from several photos (no method of its own).
+    """
+    method = q.get("method")
+    if not method:
+        return None
+    parts = [f"{method} ({q.get('method_reason') or 'chosen'})"]
+    if q.get("terms_fitted"):
+        parts.append(f"{q['terms_fitted']} Zernike terms, all the fringes resolve")
+    if q.get("sign") == "stated":
+        parts.append("sign stated by the operator, not measured")
+    return "; ".join(parts)
+
+
 def _u(record: dict, key: str) -> float | None:
     """The expanded uncertainty of figure ``key`` (``"pv_nm"``), or None."""
     value = (record.get("uncertainty") or {}).get(key)
@@ -398,6 +414,9 @@ class Reporter:
         c.print(f"fringes: {carrier}; "
                 + (f"resolution {_fmt(window)} cycles/aperture; " if window is not None else "")
                 + f"visibility {visibility}; masked {_fmt(100 * q['masked_fraction'])} %")
+        method = method_text(q)
+        if method is not None:
+            c.print(f"method: {method}")
         self._verdict(r)
         for w in r.get("warnings", []):
             c.print(warning_text(w))

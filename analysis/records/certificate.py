@@ -506,6 +506,22 @@ def _facts(record: Mapping, log: str | None, map_source: str) -> tuple[tuple[str
     return tuple((k, "—" if v is None else str(v)) for k, v in rows)
 
 
+def _analysis_text(quality: Mapping) -> str:
+    """How the photo became phase: the method, why, and what it could resolve."""
+    if quality.get("method") == "intensity-fit":
+        text = ("a least-squares fit of a Zernike phase directly to the fringe intensity "
+                f"(method intensity-fit, chosen: {quality.get('method_reason') or '—'}; "
+                f"{quality.get('terms_fitted') or '—'} terms, all the fringes resolve)")
+    else:
+        text = ("Fourier-transform fringe analysis (Takeda, Ina & Kobayashi, JOSA 72, 156, "
+                "1982)" + (f" (method carrier: {quality['method_reason']})"
+                           if quality.get("method_reason") else ""))
+    if quality.get("sign") == "stated":
+        text += ("; the fringes were closed, so the sign (convex or concave) was stated by "
+                 "the operator from the push test, not measured")
+    return text
+
+
 def _settings_text(settings: Mapping) -> str:
     """The measurement's settings in words (the record keeps them as data)."""
     words = []
@@ -524,6 +540,11 @@ def _settings_text(settings: Mapping) -> str:
         elif key == "removed_terms":
             words.append(f"{removed_terms_text(removed_terms({'settings': settings}))} "
                          "removed from every figure")
+        elif key == "method":
+            words.append(f"method {value}")
+        elif key == "ring_sign":
+            if value:
+                words.append(f"closed fringes stated {value} (push test)")
         else:
             words.append(f"{key} = {json.dumps(value)}")
     return "; ".join(words)
@@ -722,8 +743,8 @@ def certificate_document(record: Mapping, *, map_png_bytes: bytes | None = None,
     method_lead, method_items, method_note = _method_items(record)
     method = (f"One photo of the fringes between the part and a reference flat in "
               f"monochromatic light at {_fmt(record.get('wavelength_nm'), 2)} nm, analysed "
-              "by Fourier-transform fringe analysis (Takeda, Ina & Kobayashi, JOSA 72, 156, "
-              "1982); the unwrapped phase gives height as phase × wavelength / 4π. A "
+              f"by {_analysis_text(record.get('quality') or {})}; the phase gives height as "
+              "phase × wavelength / 4π. A "
               f"{n_terms}-term Zernike fit in Noll's ordering and normalisation (Noll, JOSA "
               "66, 207, 1976) gives power, astigmatism and the symmetric terms; PVr follows "
               "Evans (Opt. Eng. 48, 043605, 2009). Tolerances are written in ISO 10110-5 "

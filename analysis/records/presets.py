@@ -57,6 +57,8 @@ class Preset:
     decision: str | None = None
     wavelength_uncertainty_nm: float | None = None
     reference_uncertainty_nm: float | None = None
+    method: str | None = None  # "auto", "carrier" or "intensity-fit" (analysis/methods)
+    ring_sign: str | None = None  # closed fringes: "convex" or "concave" (the push test)
     log: str | None = None
 
 
@@ -113,6 +115,14 @@ def _preset(path: Path, name: str, table) -> Preset:
             values[key] = _text(path, name, key, table[key])
     if "log" in table:  # a path or a URL, never with a password in it
         values["log"] = check_named_log(f"{path}: preset {name!r}", table["log"])
+    for key, allowed in (("method", ("auto", "carrier", "intensity-fit")),
+                         ("ring_sign", ("convex", "concave"))):
+        if key in table:
+            if table[key] not in allowed:
+                raise SettingsError(f"{path}: preset {name!r}: {key} must be "
+                                    f"{' or '.join(repr(a) for a in allowed)}, "
+                                    f"not {table[key]!r}")
+            values[key] = table[key]
     if values.get("decision", "simple") not in DECISION_RULES:
         raise SettingsError(f"{path}: preset {name!r}: decision must be "
                             f"{' or '.join(repr(r) for r in DECISION_RULES)}, "

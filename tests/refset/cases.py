@@ -362,3 +362,82 @@ def named_cases() -> dict[str, RefCase]:
         for f in _NAMED_FRINGES:
             out[f"{key}_f{f}"] = _build_named(key, f, figures)
     return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Few, bent and closed fringes (issue 10): the photos an optician takes against a test plate
+# ---------------------------------------------------------------------------------------------
+
+#: Kinds of low-fringe photo: tilt fringes across the diameter, power as a PV in fringes
+#: (edge to centre, either sign), astigmatism's PV in fringes at most.
+FEW_FRINGE_KINDS: dict[str, dict] = {
+    "few": {"tilt": (3.0, 9.0), "power": (0.1, 1.0), "astig": 0.5},
+    "bent": {"tilt": (5.0, 8.0), "power": (1.5, 3.0), "astig": 0.5},
+    "closed": {"tilt": (0.0, 0.3), "power": (2.0, 6.0), "astig": 0.3},
+}
+
+# PV over the disk of a unit-RMS Noll term (closed forms: 2 sqrt 3, 2 sqrt 6, 4 sqrt 2,
+# 4 sqrt 2, and sqrt 5 * 1.5 for spherical's 6r^4 - 6r^2 + 1 from -1/2 to 1)
+_PV_PER_RMS = {4: 2 * math.sqrt(3.0), 5: 2 * math.sqrt(6.0), 7: 4 * math.sqrt(2.0),
+               9: 4 * math.sqrt(2.0), 11: 1.5 * math.sqrt(5.0)}
+
+
+def few_fringe_surface(rng: np.random.Generator, kind: str, wavelength_nm: float) -> RefSurface:
+    """A low-order surface for one of :data:`FEW_FRINGE_KINDS`: power, astigmatism, and a
+    little coma, trefoil and spherical (each under a tenth of a fringe PV)."""
+    spec = FEW_FRINGE_KINDS[kind]
+    fringe_nm = wavelength_nm / 2.0
+    coeffs: dict[int, float] = {}
+    power_pv = float(rng.choice([-1.0, 1.0]) * rng.uniform(*spec["power"]))
+    # a positive Noll 4 raises the edge: power (centre high) is minus it
+    coeffs[4] = -power_pv * fringe_nm / _PV_PER_RMS[4]
+    astig = rng.uniform(0.0, spec["astig"]) * fringe_nm / _PV_PER_RMS[5]
+    axis = rng.uniform(0.0, math.pi)
+    coeffs[5], coeffs[6] = astig * math.sin(2 * axis), astig * math.cos(2 * axis)
+    for j, pv_j in ((7, 9), (8, 9), (9, 9), (10, 9), (11, 11)):
+        coeffs[j] = float(rng.uniform(-0.1, 0.1)) * fringe_nm / _PV_PER_RMS[pv_j]
+    return RefSurface(zernike_nm=coeffs)
+
+
+def few_fringe_case(kind: str, seed: int, *,
+                    megapixels: tuple[float, float] = (0.3, 3.0)) -> RefCase:
+    """A seeded photo of few straight, bent or closed fringes (``kind``), with its truth.
+
+    8-bit PNG or JPEG, a dark surround, any of the four edges at 1-4 % of the radius,
+    noise to 3 % of full scale, uneven light to 30 %, the camera's tone curve; a lamp's
+    light, so no speckle. Closed fringes have at most 0.3 fringe of tilt (a test plate).
+    """
+    rng = np.random.default_rng([0x10F1, ["few", "bent", "closed"].index(kind), int(seed)])
+    mp = float(rng.uniform(*megapixels))
+    aspect = float(rng.choice([4 / 3, 3 / 2, 1.0]))
+    short = max(64, round(math.sqrt(mp * 1e6 / aspect)))
+    rows, cols = short, max(64, round(short * aspect))
+    radius = float(rng.uniform(0.30, 0.45) * short)
+    edge = str(rng.choice(["hard", "linear", "gaussian", "rolled"]))
+    edge_width = float(rng.uniform(0.01, 0.04) * radius)
+    margin = edge_support_px(edge, edge_width) + 0.02 * short
+    off, phi = rng.uniform(0.0, 0.08) * short, rng.uniform(0.0, 2 * math.pi)
+    cx = float(np.clip((cols - 1) / 2.0 + off * math.cos(phi), radius + margin,
+                       cols - 1 - radius - margin))
+    cy = float(np.clip((rows - 1) / 2.0 + off * math.sin(phi), radius + margin,
+                       rows - 1 - radius - margin))
+    wavelength = float(rng.choice(WAVELENGTHS_NM))
+    tone = str(rng.choice(["linear", "srgb", "gamma"]))
+    fmt = "jpeg" if rng.uniform() < 0.5 else "png"
+    quality = int(rng.integers(75, 93)) if fmt == "jpeg" else None
+    spec = FEW_FRINGE_KINDS[kind]
+    settings = dict(
+        shape=(rows, cols), center_px=(cx, cy), radius_px=radius,
+        fringes=float(rng.uniform(*spec["tilt"])), angle_deg=float(rng.uniform(0.0, 180.0)),
+        wavelength_nm=wavelength, visibility=float(rng.uniform(0.4, 0.95)),
+        level=float(rng.uniform(0.3, 0.55)), noise=float(rng.uniform(0.0, 0.03)),
+        illumination=float(rng.uniform(0.0, 0.3)),
+        illumination_angle_deg=float(rng.uniform(0.0, 360.0)), tone=tone,
+        gamma=float(rng.uniform(0.6, 1.0)) if tone == "gamma" else 1.0,
+        edge=edge, edge_width_px=edge_width, surround="dark", bit_depth=8,
+        seed=int(rng.integers(0, 2**31)),
+    )
+    surface = few_fringe_surface(rng, kind, wavelength)
+    photo = render(surface, **settings)
+    return RefCase(name=f"{kind}-{int(seed):04d}", photo=photo, fmt=fmt, quality=quality,
+                   truth=truth(surface, wavelength), seed=int(seed))

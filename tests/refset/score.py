@@ -51,3 +51,27 @@ def score(record: Mapping, truth: Mapping) -> dict[str, dict]:
             "u": u, "covered": (None if u is None else bool(abs(err) <= float(u))),
         }
     return out
+
+
+#: The few-fringe issue's targets (issue 10): figure -> (floor nm, share of the true value).
+FEW_FRINGE_TARGETS: dict[str, tuple[float, float]] = {
+    "rms_nm": (2.0, 0.05),
+    "pvr_nm": (8.0, 0.10),
+    "power_nm": (3.0, 0.05),
+}
+
+
+def score_few_fringes(record: Mapping, truth: Mapping) -> dict[str, dict]:
+    """Error and allowance of RMS, PVr and power against :data:`FEW_FRINGE_TARGETS`.
+
+    Returns ``{figure: {"true", "measured", "error", "allowed", "ok"}}``.
+    """
+    out = {}
+    for fig, (floor, share) in FEW_FRINGE_TARGETS.items():
+        t = float(truth[fig])
+        m = record.get(fig)
+        m = float(m) if m is not None else math.nan
+        allowed = max(floor, share * abs(t))
+        out[fig] = {"true": t, "measured": m, "error": m - t, "allowed": allowed,
+                    "ok": bool(abs(m - t) <= allowed)}
+    return out

@@ -171,7 +171,7 @@ BAD_FILES = [
     ("one-pixel.png", 2, "too small"),
     ("blank-grey.png", 3, "aperture"),
     ("noise.png", 3, "aperture"),
-    ("rings.png", 3, "tilt"),
+    ("rings.png", 3, "--ring-sign"),  # closed rings: measurable once the sign is stated
     ("white-disk.png", 3, "aperture"),
 ]
 
@@ -608,3 +608,21 @@ def test_an_average_shows_its_photos_carriers_not_a_made_up_one(mode, measured, 
     assert "resolution 0.0" not in out  # an average has no demodulation window of its own
     assert ("2 photos, each its own carrier: tilt fringes 14.0–18.0, period 32.0–41.1 px; "
             "visibility 0.55; masked") in out
+
+
+@pytest.mark.slow
+def test_closed_fringes_are_refused_without_a_stated_sign_and_measured_with_it(capsys):
+    # issue 10: a closed-ring sample (sample_images, BW-FL-0440): refused with one line
+    # naming --ring-sign (exit 3), measured by the intensity fit when the sign is stated,
+    # and the JSON says the method, why, and that the sign was stated
+    photo = Path(__file__).resolve().parents[2] / "sample_images" / "BW-FL-0440_sodium.png"
+    status, _, err = run_cli(capsys, "measure", photo, "-w", "sodium", "--no-log")
+    assert status == 3
+    assert_one_line_error(err, "closed fringes", "--ring-sign")
+    status, out, _ = run_cli(capsys, "measure", photo, "-w", "sodium", "--no-log", "--json",
+                             "--ring-sign", "convex")
+    assert status == 0
+    q = json_lines(out)[0]["quality"]
+    assert (q["method"], q["method_reason"], q["sign"]) == (
+        "intensity-fit", "closed fringes", "stated")
+    assert json_lines(out)[0]["power_nm"] > 0  # convex: centre high (README, "Sign")

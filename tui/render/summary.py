@@ -8,8 +8,8 @@ from ...analysis.version import flatsight_version
 from ...analysis.zernike import term_name
 from .units import fmt_height
 
-__all__ = ["UNCERTAINTY_KEYS", "carrier_lines", "carrier_short", "figure_rows", "quality_lines",
-           "summary_text", "uncertainty_text", "zernike_rows"]
+__all__ = ["UNCERTAINTY_KEYS", "carrier_lines", "carrier_short", "figure_rows", "method_lines",
+           "quality_lines", "summary_text", "uncertainty_text", "zernike_rows"]
 
 
 # a figure's name in the station -> its key in Figures.uncertainty_nm
@@ -78,10 +78,23 @@ def _quality_triples(q) -> tuple:
     return tuple((p.carrier_fringes, p.fringe_period_px, p.mean_modulation) for p in q.per_photo)
 
 
+def method_lines(q) -> list[str]:
+    """The single-photo method and why, in short lines; none for a combined map."""
+    method = getattr(q, "method", "")
+    if not method:
+        return []
+    lines = [f"method {method}", f"({q.method_reason})" if q.method_reason else ""]
+    if q.terms_fitted:
+        lines.append(f"{q.terms_fitted} terms resolved")
+    if q.sign == "stated":
+        lines.append("sign stated, not measured")
+    return [line for line in lines if line]
+
+
 def quality_lines(q) -> list[str]:
-    """:func:`carrier_lines` of a measurement's ``Quality``."""
+    """:func:`carrier_lines` of a measurement's ``Quality``, then its method."""
     return carrier_lines(q.carrier_fringes, q.fringe_period_px, q.mean_modulation,
-                         _quality_triples(q))
+                         _quality_triples(q)) + method_lines(q)
 
 
 def carrier_short(q) -> str:

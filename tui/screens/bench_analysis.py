@@ -90,6 +90,8 @@ class AnalysisRunner:
                 _first_set(own.get("wavelength_uncertainty_nm"), s.wavelength_uncertainty_nm)),
             reference_uncertainty_nm=float(
                 _first_set(own.get("reference_uncertainty_nm"), s.reference_uncertainty_nm)),
+            method=own.get("method") or s.method,
+            ring_sign=own.get("ring_sign") or s.ring_sign,
         )
 
     def source_settings(self, e: QueueEntry) -> tuple[MeasureSettings, ...]:

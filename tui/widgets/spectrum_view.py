@@ -5,7 +5,7 @@ from __future__ import annotations
 from rich.text import Text
 
 from ..render.photo import render_spectrum
-from ..render.summary import quality_lines
+from ..render.summary import method_lines, quality_lines
 from .fringe_view import PANEL_WIDTH, wrapped
 from .view_base import StationView, side_by_side
 
@@ -20,6 +20,12 @@ class SpectrumView(StationView):
         if holding is not None:
             return holding
         m = self.entry.measurement
+        if m.quality.method == "intensity-fit":
+            # no sideband: the phase was fitted to the fringes themselves
+            return Text("\n".join([*quality_lines(m.quality), "",
+                                   "no carrier window: the fringes were too few or closed, "
+                                   "so the phase was fitted to their brightness directly"]),
+                        style="dim")
         if m.quality.per_photo or m.quality.carrier_fringes != m.quality.carrier_fringes:
             # an average has one spectrum per photo, a phase-shifted sequence none at all
             what = ("an average of photos: each has its own spectrum; open the photos "
@@ -50,6 +56,7 @@ class SpectrumView(StationView):
             Text(f"period {q.fringe_period_px:.1f} px"),
             Text(f"direction {q.carrier_angle_deg:.0f}°"),
             Text(f"window ±{q.resolution_cycles_per_aperture:.1f} cyc/ap"),
+            *(Text(line) for line in method_lines(q)),
             Text(""),
         ]
         panel += wrapped(

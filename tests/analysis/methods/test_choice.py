@@ -1,0 +1,42 @@
+"""Which method measures a photo, and why: ``analysis/methods`` and the pipeline's choice."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from flatsight.analysis.aperture import Aperture
+from flatsight.analysis.errors import SettingsError, UnanalysablePhotoError
+from flatsight.analysis.pipeline import MeasureSettings, measure
+
+from tests.refset.cases import few_fringe_case, random_case
+
+
+def test_tilt_fringes_keep_the_carrier_method(tmp_path):
+    # a reference photo of 15 tilt fringes (tests/refset): the carrier method, as before
+    case = random_case(0, megapixels=(0.3, 1.0))
+    m = measure(case.save(tmp_path), MeasureSettings(wavelength_nm=case.photo.wavelength_nm))
+    assert (m.quality.method, m.quality.method_reason) == ("carrier", "carrier found")
+    assert m.quality.sign == "measured" and m.quality.terms_fitted == 0
+
+
+@pytest.mark.slow
+def test_forcing_the_carrier_method_refuses_closed_fringes(tmp_path):
+    case = few_fringe_case("closed", 4, megapixels=(0.3, 0.6))
+    path = case.save(tmp_path)
+    with pytest.raises(UnanalysablePhotoError):
+        measure(path, MeasureSettings(wavelength_nm=case.photo.wavelength_nm,
+                                      method="carrier", ring_sign="convex"))
+
+
+def test_blank_and_noise_are_refused_by_every_method():
+    aperture = Aperture(319.5, 239.5, 192.0)
+    for image in (np.full((480, 640), 0.5), np.random.default_rng(2).uniform(0, 1, (480, 640))):
+        with pytest.raises(UnanalysablePhotoError) as info:
+            measure(image, MeasureSettings(aperture=aperture))
+        assert "\n" not in str(info.value)
+
+
+@pytest.mark.parametrize("bad", [dict(method="takeda"), dict(ring_sign="flat")])
+def test_unknown_method_or_ring_sign_is_a_settings_error(bad):
+    with pytest.raises(SettingsError):
+        measure(np.full((480, 640), 0.5), MeasureSettings(**bad))
