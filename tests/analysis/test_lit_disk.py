@@ -28,3 +28,24 @@ def test_the_disk_is_found_within_two_percent_of_its_radius(kind, seed, tmp_path
 def test_an_evenly_lit_frame_is_refused():
     with pytest.raises(UnanalysablePhotoError, match="no illuminated circular aperture"):
         find_lit_disk(np.full((300, 400), 0.6))
+
+
+def _lit_ellipse(b_over_a: float) -> np.ndarray:
+    # a round part seen at an angle: an ellipse of semi-axes 150 and 150 b/a, five fringes
+    yy, xx = np.mgrid[0:400, 0:500].astype(float)
+    x, y = (xx - 250.0) / 150.0, (yy - 200.0) / (150.0 * b_over_a)
+    inside = 1.0 / (1.0 + np.exp((np.hypot(x, y) - 1.0) * 150.0 / 2.0))
+    return 0.05 + inside * (0.5 + 0.35 * np.cos(2 * np.pi * 2.5 * (x + 1.0)))
+
+
+def test_a_part_seen_at_thirty_degrees_is_not_taken_for_a_circle():
+    # cos 30 deg = 0.87: the edge strays 13 % of the radius from any circle, and the
+    # outline finder, not the lit disk, should take it
+    with pytest.raises(UnanalysablePhotoError, match="not a circle"):
+        find_lit_disk(_lit_ellipse(math.cos(math.radians(30.0))))
+
+
+def test_a_round_part_is_still_found():
+    found = find_lit_disk(_lit_ellipse(1.0))
+    assert abs(found.radius_px / 150.0 - 1.0) < 0.02
+    assert math.hypot(found.center_x_px - 250.0, found.center_y_px - 200.0) < 3.0

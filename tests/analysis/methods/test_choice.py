@@ -40,3 +40,15 @@ def test_blank_and_noise_are_refused_by_every_method():
 def test_unknown_method_or_ring_sign_is_a_settings_error(bad):
     with pytest.raises(SettingsError):
         measure(np.full((480, 640), 0.5), MeasureSettings(**bad))
+
+
+def test_the_intensity_fit_refuses_an_outline_it_cannot_map():
+    # the fit works on a round part seen square-on; on a rectangle it says so in one line
+    from flatsight.analysis.shapes import parse_shape
+
+    yy, xx = np.mgrid[0:480, 0:640].astype(float)
+    image = 0.5 + 0.4 * np.cos(2 * np.pi * 3.0 * xx / 400.0)
+    aperture = Aperture.of_shape(parse_shape("rect:320,240,400,200,10"))
+    with pytest.raises(UnanalysablePhotoError, match="round parts") as info:
+        measure(image, MeasureSettings(aperture=aperture, method="intensity-fit"))
+    assert "\n" not in str(info.value)
