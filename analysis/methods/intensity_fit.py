@@ -364,6 +364,20 @@ def fit_intensity(
         if best_cost < _expected_misfit(noise / spread, values, x_all, y_all, best):
             break  # as good as the photo's noise allows: no other seed can do better
 
+    if best is not None and best_cost >= _expected_misfit(noise / spread, values, x_all,
+                                                          y_all, best):
+        # a fit that lost or gained a ring at the rim is a local minimum one fringe of
+        # power away (the outer rings crowd there): try either side and keep the better
+        radius, terms = GROWTH[-1]
+        sel = np.flatnonzero(r_all <= radius)
+        sel = sel[::max(1, sel.size // 6000)]
+        for fringe in (1.0, -1.0):
+            c = np.array(best, dtype=float)
+            c[3] += 2.0 * np.pi * fringe / (2.0 * math.sqrt(3.0))
+            c, cost = _fit(values[sel], x_all[sel], y_all[sel], c, terms, cancel)
+            if cost < best_cost and _harmonic_share(values[sel], x_all[sel], y_all[sel],
+                                                    c) <= MAX_HARMONIC:
+                best, best_cost = c, cost
     if best is None:
         raise UnanalysablePhotoError(
             f"no fringe pattern found in {photo_name}: check the lamp, the focus and the "
