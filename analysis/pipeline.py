@@ -249,9 +249,25 @@ def measure(
                         "saturated: shorten the exposure")
     lap("aperture")
 
-    result = run_method(image, aperture, method=settings.method,
-                        ring_sign=settings.ring_sign, invert=settings.invert,
-                        photo_name=name, progress=progress, cancel=cancel)
+    def run(aperture: Aperture):
+        return run_method(image, aperture, method=settings.method,
+                          ring_sign=settings.ring_sign, invert=settings.invert,
+                          photo_name=name, progress=progress, cancel=cancel)
+
+    try:
+        result = run(aperture)
+    except UnanalysablePhotoError as refusal:
+        # an outline found on a photo of few or closed fringes may be the fringes' as
+        # much as the part's: where the lit region's own edge is round, measure that
+        if settings.aperture is not None or aperture.shape is None or (
+                settings.method == "carrier"):
+            raise
+        try:
+            aperture = find_lit_disk(image, photo_name=name).with_exclusions(
+                aperture.exclusions)
+        except UnanalysablePhotoError:
+            raise refusal from None
+        result = run(aperture)
     lap("demodulate")
     warnings.extend(result.warnings)
     quality = dict(result.quality, method=result.method, method_reason=result.reason,
