@@ -44,15 +44,8 @@ _WORK_LONG_SIDE = 512
 _ROUND = 0.98  # an ellipse with b / a above this is a circle seen square-on
 
 
-def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo",
-                       round_fallback=None) -> Aperture:
+def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo") -> Aperture:
     """The part's aperture: the circle finder's circle, or the outline that fits better.
-
-    ``round_fallback(image, photo_name=...)``, when given, is tried before the outline
-    where the circle finder refuses the photo (the lit disk by its light, for photos
-    with too few fringes for the circle finder): with few fringes the outline's edge
-    is drawn on the fringes as much as on the part, so a round part could read as an
-    ellipse.
 
     Raises
     ------
@@ -63,11 +56,6 @@ def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo",
     try:
         circle = find_aperture(image, photo_name=photo_name)
     except UnanalysablePhotoError as refusal:
-        if round_fallback is not None:
-            try:
-                return round_fallback(image, photo_name=photo_name)
-            except UnanalysablePhotoError:
-                pass
         try:
             found = _outline(image)
         except UnanalysablePhotoError:

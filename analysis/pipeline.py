@@ -238,10 +238,13 @@ def measure(
                 f"aperture {given} does not fit the {W}x{H} photo (centre inside, "
                 f"radius from 16 px to {max(W, H) / 2:g} px, half the photo's longer side)")
     else:
-        # too few fringes for the contrast finder's carrier: the lit disk by its light
-        aperture = find_part_aperture(
-            image, photo_name=name,
-            round_fallback=None if settings.method == "carrier" else find_lit_disk)
+        try:
+            aperture = find_part_aperture(image, photo_name=name)
+        except UnanalysablePhotoError:
+            if settings.method == "carrier":
+                raise
+            # too few fringes for the contrast finder's carrier: the lit disk by its light
+            aperture = find_lit_disk(image, photo_name=name)
     if settings.exclusions:
         aperture = aperture.with_exclusions(tuple(aperture.exclusions) + settings.exclusions)
     if fringe_photo.saturated_fraction > 0.01:
