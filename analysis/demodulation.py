@@ -189,16 +189,21 @@ def _rho_grid(aperture: Aperture, shape: tuple[int, int], center_rc: tuple[float
     fringe envelope's edge and the speck finder follow the part's own edge."""
     if aperture.shape is None:
         return radius_grid(shape, center_rc, r_b)
-    yy, xx = np.mgrid[0:shape[0], 0:shape[1]].astype(np.float64)
-    return aperture.edge_rho(origin[0] + k * xx, origin[1] + k * yy).astype(np.float32)
+    return aperture.edge_rho(*_photo_coords(shape, origin, k)).astype(np.float32)
 
 
 def _on_part(aperture: Aperture, shape: tuple[int, int], origin: tuple[float, float],
              k: float) -> np.ndarray:
     """Which pixels of a grid (pixel (0, 0) at photo ``origin``, ``k`` photo px apart) lie
     on the part's outline (``Aperture.region``)."""
+    return aperture.region(*_photo_coords(shape, origin, k))
+
+
+def _photo_coords(shape: tuple[int, int], origin: tuple[float, float],
+                  k: float) -> tuple[np.ndarray, np.ndarray]:
+    """Photo x and y of every pixel of a grid (pixel (0, 0) at ``origin``, ``k`` apart)."""
     yy, xx = np.mgrid[0:shape[0], 0:shape[1]].astype(np.float64)
-    return aperture.region(origin[0] + k * xx, origin[1] + k * yy)
+    return origin[0] + k * xx, origin[1] + k * yy
 
 
 def _model_tilt_on_part(model_coef: np.ndarray, aperture: Aperture) -> tuple[float, float]:
