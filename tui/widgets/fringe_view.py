@@ -124,9 +124,12 @@ class FringeView(StationView):
             ("  editing ", "dim"),
             (editing, "bold #60e8ff"),
         )
+        # an outline says its own size; a circle its radius
+        size = (aperture.shape.describe() if aperture.shape is not None
+                else f"r {aperture.radius_px:.0f} px")
         second = Text(
             f"c {aperture.center_x_px:.0f},{aperture.center_y_px:.0f}  "
-            f"r {aperture.radius_px:.0f} px  {len(aperture.exclusions)} excl"
+            f"{size}  {len(aperture.exclusions)} excl"
         )
         m = e.measurement
         if m is not None:
