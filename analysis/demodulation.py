@@ -461,7 +461,18 @@ def demodulate(
     if inframe is not None:
         weight &= np.pad(inframe, ((0, pad), (0, pad))) if pad else inframe
     weight = weight.astype(np.float32)
-    env_mean, env_half = fringe_envelope(data, rho, weight > 0, ring_width=0.5 / r_b)
+
+    def model_phase(model: np.ndarray) -> np.ndarray:
+        """The phase model on every pixel of the crop (zero beyond ``TAPER_END``)."""
+        coarse = (basis_coarse @ model).reshape(ys_c.size, xs_c.size)
+        spline = RectBivariateSpline(ys_c, xs_c, coarse, kx=3, ky=3)
+        return np.where(region, spline(np.arange(ny), np.arange(nx)), 0.0)
+
+    # on a circle the rings' percentiles read the envelope; an outline with long straight
+    # sides needs the first pass's phase, as fringes may run along a whole side
+    env_mean, env_half = fringe_envelope(
+        data, rho, weight > 0, ring_width=0.5 / r_b,
+        phase=None if aperture.shape is None else carrier_phase + model_phase(model_coef))
     fit_data = ((data - env_mean) / env_half).astype(np.float32)
     m = size // step
     rho_m = rho[::step, ::step][:m, :m]
@@ -482,9 +493,7 @@ def demodulate(
 
     def referenced(model: np.ndarray, radius_bins: float) -> np.ndarray:
         """The local fit (``local_fit``) against the carrier plus the phase model."""
-        coarse = (basis_coarse @ model).reshape(ys_c.size, xs_c.size)
-        spline = RectBivariateSpline(ys_c, xs_c, coarse, kx=3, ky=3)
-        psi_full[...] = np.where(region, spline(np.arange(ny), np.arange(nx)), 0.0)
+        psi_full[...] = model_phase(model)
         fit = fit_fringe_locally(fit_data, weight, carrier_phase + psi_full,
                                  radius_bins=radius_bins, flat=W2_FLAT, m=m,
                                  inside=inside_m)

@@ -107,7 +107,8 @@ def find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: n
 
 
 def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
-                    *, inner: float = 0.85, ring_width: float = 0.01
+                    *, inner: float = 0.85, ring_width: float = 0.01,
+                    phase: np.ndarray | None = None
                     ) -> tuple[np.ndarray, np.ndarray]:
     """The fringes' local mean and half-amplitude, following the aperture's soft edge.
 
@@ -119,6 +120,13 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
     Dividing the photo by them leaves fringes of constant mean and amplitude out to
     the rim, so the local fit no longer rings against a fading edge. ``ring_width``
     (in units of the radius) should be under a pixel.
+
+    Where fringes run along a long straight stretch of the outline (a rectangle's side
+    parallel to them), a ring's pixels there all sit at one phase, and its percentiles
+    would follow the fringes rather than the light. Given the fringes' ``phase`` (the
+    carrier plus a first phase model, radians), each ring is instead fitted by least
+    squares with ``m + p cos(phase) + q sin(phase)``: the mean is ``m`` and the
+    half-amplitude ``hypot(p, q)``, whatever share of the ring crosses the fringes.
 
     Returns
     -------
@@ -147,6 +155,9 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
     sel_r = known & (rho >= lo_r) & (rho < 1.0 + width)
     ring_of = ((rho[sel_r] - lo_r) / width).astype(np.int64)
     values = q[sel_r]
+    if phase is not None:
+        return _envelope_by_phase(q, rho, sel, sel_r, ring_of, phase[sel_r], illum,
+                                  inner=inner, lo_r=lo_r, width=width)
     order = np.lexsort((values, ring_of))
     ring_sorted, v_sorted = ring_of[order], values[order]
     rings, starts, counts = np.unique(ring_sorted, return_index=True, return_counts=True)
@@ -177,4 +188,40 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
     lo = np.where(rho < inner, lo0, lo)
     mean = 0.5 * (up + lo) * illum
     half = np.maximum(0.5 * (up - lo), 1e-3 * (up0 - lo0)) * illum
+    return mean, half
+
+
+def _envelope_by_phase(q, rho, sel, sel_r, ring_of, phase, illum, *, inner, lo_r, width):
+    """``fringe_envelope``'s rings fitted by ``m + p cos + q sin`` of the known phase."""
+    values = q[sel_r].astype(np.float64)
+    c, s = np.cos(phase).astype(np.float64), np.sin(phase).astype(np.float64)
+    n_rings = int(ring_of.max()) + 1 if ring_of.size else 0
+    terms = (np.ones_like(c), c, s)
+
+    def sums(w):
+        return np.bincount(ring_of, weights=w, minlength=n_rings)
+
+    normal = np.empty((n_rings, 3, 3))
+    for i in range(3):
+        for j in range(i, 3):
+            normal[:, i, j] = normal[:, j, i] = sums(terms[i] * terms[j])
+    rhs = np.stack([sums(t * values) for t in terms], axis=1)
+    counts = normal[:, 0, 0]
+    # a ring must hold enough pixels and cross enough of a fringe to fix p and q
+    det = np.linalg.det(normal) / np.maximum(counts, 1.0) ** 3
+    good = (counts >= 64) & (det > 1e-3)
+    if good.sum() < 4:
+        mean = illum * np.median(q[sel])
+        return mean, 0.5 * (np.percentile(q[sel], 95) - np.percentile(q[sel], 5)) * illum
+    coef = np.linalg.solve(normal[good], rhs[good][..., None])[..., 0]
+    centres = lo_r + (np.flatnonzero(good) + 0.5) * width
+    m_ring, a_ring = coef[:, 0], np.hypot(coef[:, 1], coef[:, 2])
+    flat = centres < inner
+    m0 = float(np.median(m_ring[flat])) if flat.any() else float(m_ring[0])
+    a0 = float(np.median(a_ring[flat])) if flat.any() else float(a_ring[0])
+    m_ring, a_ring = np.where(flat, m0, m_ring), np.where(flat, a0, a_ring)
+    r = np.clip(rho, centres[0], centres[-1])
+    mean = np.where(rho < inner, m0, np.interp(r, centres, m_ring)) * illum
+    half = np.maximum(np.where(rho < inner, a0, np.interp(r, centres, a_ring)),
+                      1e-3 * a0) * illum
     return mean, half

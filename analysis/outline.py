@@ -23,6 +23,14 @@ something else (an ellipse, a rectangle, a polygon), does it fit that shape inst
    percent of the part's size, plus a tenth of a fringe period (where fringes run along
    the edge, the smoothed brightness' halfway point wavers with them), wins: circle,
    ellipse, rectangle, polygon. An ellipse within 2 % of round is a circle.
+4. A straight side is then placed on the full photo (``_refine_sides``): where fringes
+   run along a side, the smoothed brightness' halfway point sits up to a fringe's
+   ``V P / 2 pi`` off, the same on the whole side, and the demodulation's edge model
+   would bend the fringes there. The photo's mean profile across the side (pixels
+   binned by their distance from it, away from the corners) is fitted by a soft step
+   (an error function) times the light and the fringes as they run across the side
+   (``a + b d + c cos k d + s sin k d``, ``k`` from the fringes' period and direction),
+   and the side moved to the step's 50 % point.
 """
 
 from __future__ import annotations
@@ -109,7 +117,7 @@ def _outline(image: np.ndarray) -> _Found:
         axis=(1, 3))
     if not np.all(np.isfinite(work)) or np.ptp(work) < 1e-6:
         raise UnanalysablePhotoError("the photo is blank")
-    period = _fringe_period(work)
+    period, wave = _fringe_period(work)
     sigma = max(1.5, 0.5 * period)
     local = ndi.gaussian_filter(work, sigma)
     strength = np.sqrt(np.maximum(ndi.gaussian_filter((work - local) ** 2, sigma), 0.0))
@@ -173,21 +181,173 @@ def _outline(image: np.ndarray) -> _Found:
         raise UnanalysablePhotoError("the lit region's outline is no circle, ellipse, "
                                      "rectangle or polygon")
     # binned pixel (i, j) is centred on photo pixel (factor j + (factor - 1) / 2, ...)
-    return _Found(_scaled(best[0], factor, offset), factor * best[1], x_photo, y_photo)
+    shape = _scaled(best[0], factor, offset)
+    if outside < inside / 3.0 and isinstance(shape, (Rectangle, Polygon)):
+        shape = _refine_sides(pixels, shape, factor * period, wave,
+                              max_move_px=factor * (tolerance + 1.0))
+    return _Found(shape, factor * best[1], x_photo, y_photo)
 
 
-def _fringe_period(work: np.ndarray) -> float:
-    """The tilt fringes' period in binned pixels from the spectrum's strongest peak."""
+def _fringe_period(work: np.ndarray) -> tuple[float, tuple[float, float]]:
+    """The tilt fringes' period in binned pixels from the spectrum's strongest peak, and
+    the unit vector ``(x, y)`` (photo axes) across the fringes."""
     spectrum = np.abs(np.fft.rfft2(work - work.mean()))
     fy = np.fft.fftfreq(work.shape[0])[:, None]
     fx = np.fft.rfftfreq(work.shape[1])[None, :]
     f = np.hypot(fx, fy)
     band = (f >= 4.0 / min(work.shape)) & (f <= 0.4)
     if not band.any():
-        return 4.0
+        return 4.0, (1.0, 0.0)
     weighted = np.where(band, spectrum * f, 0.0)
     peak = np.unravel_index(int(np.argmax(weighted)), weighted.shape)
-    return float(np.clip(1.0 / f[peak], 2.5, min(work.shape) / 4.0))
+    wx, wy = float(fx[0, peak[1]]), float(fy[peak[0], 0])
+    norm = math.hypot(wx, wy)
+    return (float(np.clip(1.0 / f[peak], 2.5, min(work.shape) / 4.0)),
+            (wx / norm, wy / norm))
+
+
+def _sides(shape: Shape) -> np.ndarray:
+    """The outline's corners in order, photo ``(x, y)``, as an (n, 2) array."""
+    if isinstance(shape, Rectangle):
+        return shape.corners()
+    return np.asarray(shape.corners_px, dtype=float)
+
+
+def _side_step(pixels: np.ndarray, a: np.ndarray, b: np.ndarray, inward: np.ndarray,
+               period: float, wave: tuple[float, float], reach: float,
+               part: tuple[float, float] = (0.1, 0.9)) -> float | None:
+    """How far (px, positive outward) the photo's 50 % edge lies from the side ``a``-``b``.
+
+    The pixels near the side, between the shares ``part`` of its length (away from the
+    corners), are binned by their signed distance from it (a quarter pixel), and the mean
+    profile fitted by ``bg + (p + q d + c cos k d + s sin k d) E(d)``, ``E`` a soft step
+    ``erfc((d - d0) / (w sqrt 2)) / 2``. ``None`` when the side is too short or the fit
+    does not settle on an edge.
+    """
+    from scipy.special import erfc
+
+    along = b - a
+    length = float(np.hypot(*along))
+    lo, hi = part
+    if (hi - lo) * length < 16.0:
+        return None
+    t = along / length
+    n = -inward  # outward
+    inner, outer = 3.0 * period + 6.0, 10.0
+    ends = np.array([a + s * length * t + dd * n for s in (lo, hi) for dd in (-inner, outer)])
+    x0, y0 = np.floor(ends.min(axis=0)).astype(int)
+    x1, y1 = np.ceil(ends.max(axis=0)).astype(int) + 1
+    x0, y0 = max(x0, 0), max(y0, 0)
+    x1, y1 = min(x1, pixels.shape[1]), min(y1, pixels.shape[0])
+    if x1 - x0 < 3 or y1 - y0 < 3:
+        return None
+    yy, xx = np.mgrid[y0:y1, x0:x1].astype(np.float64)
+    rel_x, rel_y = xx - a[0], yy - a[1]
+    s_along = rel_x * t[0] + rel_y * t[1]
+    d = rel_x * n[0] + rel_y * n[1]
+    sel = ((s_along >= lo * length) & (s_along <= hi * length)
+           & (d >= -inner) & (d <= outer))
+    if sel.sum() < 200:
+        return None
+    bins = np.floor(d[sel] * 4.0).astype(np.int64)
+    bins -= bins.min()
+    count = np.bincount(bins)
+    total = np.bincount(bins, weights=pixels[y0:y1, x0:x1][sel].astype(np.float64))
+    keep = count > 0
+    dist = (np.flatnonzero(keep) + 0.5) / 4.0 + float(np.floor(d[sel].min() * 4.0)) / 4.0
+    profile = total[keep] / count[keep]
+    weight = np.sqrt(count[keep].astype(np.float64))
+    # the fringes' frequency across the side: none where they cross it square-on
+    k = 2.0 * math.pi * abs(wave[0] * n[0] + wave[1] * n[1]) / period
+    wavy = k * inner > math.pi
+
+    def design(d0, w):
+        step = 0.5 * erfc((dist - d0) / (w * math.sqrt(2.0)))
+        cols = [np.ones_like(dist), step, (dist - d0) * step]
+        if wavy:
+            cols += [np.cos(k * dist) * step, np.sin(k * dist) * step]
+        return np.stack(cols, axis=1)
+
+    def residual(p):
+        m = design(*p)
+        coef = np.linalg.lstsq(m * weight[:, None], profile * weight, rcond=None)[0]
+        return (m @ coef - profile) * weight
+
+    try:
+        fit = least_squares(residual, [0.0, 1.5], bounds=([-reach, 0.3], [reach, 8.0]),
+                            max_nfev=100)
+    except (ValueError, np.linalg.LinAlgError):
+        return None
+    d0, w = (float(v) for v in fit.x)
+    m = design(d0, w)
+    coef = np.linalg.lstsq(m * weight[:, None], profile * weight, rcond=None)[0]
+    if not fit.success or coef[1] <= 0 or abs(d0) >= 0.95 * reach:
+        return None  # no dark surround beyond the side, or no settled edge
+    return d0
+
+
+def _refine_sides(pixels: np.ndarray, shape: Shape, period: float,
+                  wave: tuple[float, float], *, max_move_px: float) -> Shape:
+    """The rectangle or polygon with each straight side moved to the photo's 50 % edge
+    (step 4 of the module doc); a side whose edge is not found stays where it was."""
+    corners = _sides(shape)
+    count = len(corners)
+    centre = corners.mean(axis=0)
+    moves = np.zeros(count)  # the outward move of each side's middle
+    slopes = np.full(count, np.nan)  # and its turn (outward move per px along it)
+    normals = np.zeros((count, 2))
+    lengths = np.zeros(count)
+    for i in range(count):
+        a, b = corners[i], corners[(i + 1) % count]
+        lengths[i] = max(float(np.hypot(*(b - a))), 1e-9)
+        t = (b - a) / lengths[i]
+        inward = np.array([-t[1], t[0]])
+        if np.dot(centre - a, inward) < 0:
+            inward = -inward
+        normals[i] = -inward
+        # each half of the side alone, so its turn is found too
+        first = _side_step(pixels, a, b, inward, period, wave, max_move_px, (0.1, 0.5))
+        second = _side_step(pixels, a, b, inward, period, wave, max_move_px, (0.5, 0.9))
+        if first is not None and second is not None:
+            moves[i] = 0.5 * (first + second)
+            slopes[i] = (second - first) / (0.4 * lengths[i])
+        else:
+            whole = _side_step(pixels, a, b, inward, period, wave, max_move_px)
+            moves[i] = 0.0 if whole is None else whole
+    if not np.any(moves) and not np.any(np.isfinite(slopes)):
+        return shape
+    if isinstance(shape, Rectangle):
+        # corners run (+w,+h), (-w,+h), (-w,-h), (+w,-h): sides +v, -u, -v, +u. Going
+        # round the corners that way, a side whose far end stands further out has
+        # turned the part clockwise as seen
+        found = np.isfinite(slopes)
+        turn = 0.0
+        if found.any():
+            w = lengths[found] ** 2
+            turn = -math.degrees(math.atan(float(np.sum(w * slopes[found]) / np.sum(w))))
+        grow_h, grow_w = moves[0] + moves[2], moves[1] + moves[3]
+        shift = 0.5 * ((moves[0] - moves[2]) * normals[0] + (moves[3] - moves[1]) * normals[3])
+        return Rectangle(shape.center_x_px + float(shift[0]),
+                         shape.center_y_px + float(shift[1]),
+                         shape.width_px + float(grow_w), shape.height_px + float(grow_h),
+                         shape.angle_deg + turn)
+    # a polygon: each side turned about its middle, each corner where two sides meet
+    for i in range(count):
+        if np.isfinite(slopes[i]):
+            direction = (corners[(i + 1) % count] - corners[i]) / lengths[i]
+            normals[i] = normals[i] - slopes[i] * direction
+            normals[i] /= np.hypot(*normals[i])
+    mids = np.array([0.5 * (corners[i] + corners[(i + 1) % count]) for i in range(count)])
+    offsets = np.einsum("ij,ij->i", normals, mids) + moves
+    new = []
+    for i in range(count):
+        j = (i - 1) % count  # the side ending at corner i
+        m = np.array([normals[j], normals[i]])
+        try:
+            new.append(np.linalg.solve(m, [offsets[j], offsets[i]]))
+        except np.linalg.LinAlgError:
+            new.append(corners[i])
+    return Polygon(tuple((float(x), float(y)) for x, y in new))
 
 
 def _params(shape: Shape) -> np.ndarray:
