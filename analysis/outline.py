@@ -36,15 +36,15 @@ something else (an ellipse, a rectangle, a polygon), does it fit that shape inst
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import ndimage as ndi
 from scipy.optimize import least_squares
 
-from .aperture import Aperture, find_aperture
+from .aperture import Aperture, Exclusion, find_aperture
 from .errors import UnanalysablePhotoError
-from .shapes import Ellipse, Polygon, Rectangle, Shape
+from .shapes import Annulus, Ellipse, Polygon, Rectangle, Shape
 
 __all__ = ["find_outline", "find_part_aperture"]
 
@@ -70,19 +70,33 @@ def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo") -> A
             raise refusal from None
         if found.shape is None:  # round after all: the circle finder's refusal stands
             raise
-        return Aperture.of_shape(found.shape)
+        return _with_hole(Aperture.of_shape(found.shape), found.hole)
     try:
         found = _outline(image)
     except UnanalysablePhotoError:
         return circle
     if found.shape is None:
-        return circle
+        return _with_hole(circle, found.hole)
     # the circle finder's circle stands unless the outline leaves it clearly
     off = np.abs(np.hypot(found.x - circle.center_x_px, found.y - circle.center_y_px)
                  - circle.radius_px)
     if float(np.median(off)) <= 2.0 * found.miss_px:
-        return circle
-    return Aperture.of_shape(found.shape)
+        return _with_hole(circle, found.hole)
+    return _with_hole(Aperture.of_shape(found.shape), found.hole)
+
+
+def _with_hole(aperture: Aperture, hole: tuple[float, float, float] | None) -> Aperture:
+    """The aperture with a dark hole found in it: an annulus when the part is a circle
+    and the hole sits on its centre, else the hole left out as an exclusion."""
+    if hole is None:
+        return aperture
+    hx, hy, hr = hole
+    off = math.hypot(hx - aperture.center_x_px, hy - aperture.center_y_px)
+    if aperture.shape is None and off <= 0.02 * aperture.radius_px + 2.0 \
+            and hr < 0.9 * aperture.radius_px:
+        return Aperture.of_shape(Annulus(aperture.center_x_px, aperture.center_y_px,
+                                         aperture.radius_px, hr), aperture.exclusions)
+    return replace(aperture, exclusions=aperture.exclusions + (Exclusion(hx, hy, hr),))
 
 
 @dataclass(frozen=True)
@@ -91,6 +105,7 @@ class _Found:
     miss_px: float  # median distance of the outline's points from the shape (photo px)
     x: np.ndarray  # the outline's points, photo px
     y: np.ndarray
+    hole: tuple[float, float, float] | None = None  # a dark round hole: x, y, r (photo px)
 
 
 def find_outline(image: np.ndarray) -> Shape | None:
@@ -148,6 +163,10 @@ def _outline(image: np.ndarray) -> _Found:
         level = 0.5
     else:
         feature = strength
+    hole = None
+    if outside < inside / 3.0:
+        hole = _dark_hole(pixels, factor, labels == biggest.label, mask, local, sigma,
+                          inside, outside, (factor * period, wave))
     near = ndi.binary_dilation(mask, iterations=int(3 * sigma) + 2)
     field = np.where(near, feature, np.minimum(feature, level))
     contours = find_contours(np.pad(field, 1, constant_values=float(field.min())), level)
@@ -164,19 +183,28 @@ def _outline(image: np.ndarray) -> _Found:
     fitted_ellipse, miss_e = _fit(start, x, y, tolerance)
     offset = (factor - 1) / 2.0
     x_photo, y_photo = factor * x + offset, factor * y + offset
-    if miss_e <= tolerance and fitted_ellipse.b_px / fitted_ellipse.a_px >= _ROUND:
-        return _Found(None, factor * miss_e, x_photo, y_photo)
+    polygon = _polygon_fit(x, y, tolerance)
+
+    def beaten(shape: Shape, miss: float) -> bool:
+        # a smooth curve's outline hugs its shape to a fraction of a pixel; a polygon's
+        # straight sides fitted by an ellipse (a near-round octagon) or a rectangle (a
+        # pentagon) leave a pixel or more, which the polygon's own fit does not
+        if polygon is None or miss <= 0.5 or polygon[1] >= 0.5 * miss:
+            return False
+        return not (isinstance(shape, Rectangle) and len(polygon[0].corners_px) == 4)
+
+    if (miss_e <= tolerance and fitted_ellipse.b_px / fitted_ellipse.a_px >= _ROUND
+            and not beaten(fitted_ellipse, miss_e)):
+        return _Found(None, factor * miss_e, x_photo, y_photo, hole)
     candidates = [(fitted_ellipse, miss_e)]
     # and a uniform W x H rectangle W^2 / 12 along its width (common practice)
     rect_start = Rectangle(cx, cy, math.sqrt(12.0) * major, math.sqrt(12.0) * minor, angle)
     candidates.append(_fit(rect_start, x, y, tolerance))
-    best = next((c for c in candidates if c[1] <= tolerance), None)
-    if best is None:
-        corners = _polygon_corners(x, y, tolerance)
-        if corners is not None:
-            poly, miss_p = _fit(corners, x, y, tolerance)
-            if miss_p <= tolerance:
-                best = (poly, miss_p)
+    # the median may hide a side the shape does not have (a pentagon's fifth side along
+    # a rectangle's corner): most of the outline must lie near the shape too
+    best = next((c for c in candidates
+                 if c[1] <= tolerance and _far_share(c[0], x, y, tolerance) <= 0.05
+                 and not beaten(*c)), polygon)
     if best is None:
         raise UnanalysablePhotoError("the lit region's outline is no circle, ellipse, "
                                      "rectangle or polygon")
@@ -185,7 +213,111 @@ def _outline(image: np.ndarray) -> _Found:
     if outside < inside / 3.0 and isinstance(shape, (Rectangle, Polygon)):
         shape = _refine_sides(pixels, shape, factor * period, wave,
                               max_move_px=factor * (tolerance + 1.0))
-    return _Found(shape, factor * best[1], x_photo, y_photo)
+    return _Found(shape, factor * best[1], x_photo, y_photo, hole)
+
+
+def _dark_hole(pixels, factor, region, mask, local, sigma, inside, outside, fringes):
+    """A round hole in the lit region, dark as the surround: ``(x, y, r)`` in photo px
+    (its 50 % edge, from its area), or None.
+
+    A hole must be as dark as the photo outside the part: the dark middle of a broad
+    fringe (closed rings) keeps a tenth or more of the light and is not taken for one.
+    """
+    from skimage.measure import label, regionprops
+
+    holes = label(mask & ~region)
+    if holes.max() == 0:
+        return None
+    biggest = max(regionprops(holes), key=lambda r: r.area)
+    if biggest.area < 0.003 * mask.sum():
+        return None
+    # the hole's 50 % edge: where the brightness (smoothed over half a fringe) is under
+    # halfway between the surround and the light around the hole
+    found = holes == biggest.label
+    reach = int(3 * sigma) + 3
+    grown = ndi.binary_dilation(found, iterations=reach)
+    band = ndi.binary_dilation(found, iterations=2 * reach) & ~grown & region
+    if band.sum() < 10:
+        return None
+    around = float(np.median(local[band]))
+    dark = ndi.binary_fill_holes(grown & (local < outside + 0.5 * (around - outside)))
+    pieces = label(dark)
+    if pieces.max() == 0:
+        return None
+    dark = pieces == max(regionprops(pieces), key=lambda r: r.area).label
+    core = ndi.binary_erosion(dark, iterations=2)
+    if core.sum() < 10:
+        return None
+    photo = np.asarray(pixels, dtype=np.float64)
+    rows, cols = np.nonzero(core)
+    level = float(np.median(photo[rows * factor + factor // 2, cols * factor + factor // 2]))
+    if level - outside > 0.05 * (inside - outside):
+        return None
+    yy, xx = np.nonzero(dark)
+    r = math.sqrt(dark.sum() / math.pi)
+    cx, cy = float(xx.mean()), float(yy.mean())
+    # round: the circle of that area holds the region (common practice: area ratio)
+    if np.mean(np.hypot(xx - cx, yy - cy) <= r + 1.0) < 0.95:
+        return None
+    offset = (factor - 1) / 2.0
+    return _hole_edge(pixels, factor * cx + offset, factor * cy + offset, factor * r,
+                      reach=factor * sigma * 3.0 + 4.0, fringes=fringes)
+
+
+def _hole_edge(pixels, cx: float, cy: float, r: float, *, reach: float, fringes):
+    """A round hole's 50 % edge on the full photo: in each of 24 sectors the mean
+    profile across the edge (a quarter pixel a bin) is fitted by a soft step times the
+    light and the fringes as they run across it (as ``_side_step`` does), and the circle
+    fitted to the 24 edge points by linear least squares; the starting circle where
+    that fails."""
+    from scipy.special import erfc
+
+    span = int(r + reach) + 2
+    x0, y0 = max(int(cx) - span, 0), max(int(cy) - span, 0)
+    near = np.asarray(pixels[y0:int(cy) + span + 1, x0:int(cx) + span + 1], dtype=np.float64)
+    gy, gx = np.mgrid[0:near.shape[0], 0:near.shape[1]]
+    dx, dy = gx + x0 - cx, gy + y0 - cy
+    dist = np.hypot(dx, dy) - r
+    sector = ((np.arctan2(dy, dx) + np.pi) / (2 * np.pi) * 24).astype(int) % 24
+    keep = np.abs(dist) <= reach
+    angles, edges = [], []
+    for k in range(24):
+        sel = keep & (sector == k)
+        if sel.sum() < 50:
+            continue
+        bins = np.floor((dist[sel] + reach) * 4.0).astype(int)
+        count = np.bincount(bins)
+        total = np.bincount(bins, weights=near[sel])
+        ok = count > 0
+        d = (np.flatnonzero(ok) + 0.5) / 4.0 - reach
+        prof = total[ok] / count[ok]
+        theta = (k + 0.5) / 24 * 2 * np.pi - np.pi
+        period, wave = fringes
+        kf = 2 * np.pi * abs(wave[0] * math.cos(theta) + wave[1] * math.sin(theta)) / period
+
+        def residual(p, d=d, prof=prof, kf=kf):
+            step = 0.5 * erfc((p[0] - d) / (p[1] * math.sqrt(2.0)))
+            cols = [np.ones_like(d), step, step * d]
+            if kf * reach > np.pi:
+                cols += [step * np.cos(kf * d), step * np.sin(kf * d)]
+            m = np.stack(cols, axis=1)
+            coef = np.linalg.lstsq(m, prof, rcond=None)[0]
+            return m @ coef - prof
+
+        try:
+            fit = least_squares(residual, [0.0, 1.5],
+                                bounds=([-0.8 * reach, 0.3], [0.8 * reach, 8.0]))
+        except (ValueError, np.linalg.LinAlgError):
+            continue
+        if fit.success and abs(fit.x[0]) < 0.75 * reach:
+            angles.append((k + 0.5) / 24 * 2 * np.pi - np.pi)
+            edges.append(r + fit.x[0])
+    if len(angles) < 12:
+        return cx, cy, r
+    t, e = np.asarray(angles), np.asarray(edges)
+    design = np.stack([np.ones_like(t), np.cos(t), np.sin(t)], axis=1)
+    radius, ddx, ddy = np.linalg.lstsq(design, e, rcond=None)[0]
+    return cx + float(ddx), cy + float(ddy), float(radius)
 
 
 def _fringe_period(work: np.ndarray) -> tuple[float, tuple[float, float]]:
@@ -343,10 +475,12 @@ def _refine_sides(pixels: np.ndarray, shape: Shape, period: float,
     for i in range(count):
         j = (i - 1) % count  # the side ending at corner i
         m = np.array([normals[j], normals[i]])
-        try:
+        if abs(float(np.linalg.det(m))) < 0.2:  # sides within ~12 deg of one line
+            new.append(corners[i] + 0.5 * (moves[i] * normals[i] + moves[j] * normals[j]))
+        else:
             new.append(np.linalg.solve(m, [offsets[j], offsets[i]]))
-        except np.linalg.LinAlgError:
-            new.append(corners[i])
+    if np.max(np.hypot(*(np.asarray(new) - corners).T)) > 3.0 * max_move_px:
+        return shape  # the sides' moves do not make a polygon near the outline
     return Polygon(tuple((float(x), float(y)) for x, y in new))
 
 
@@ -378,6 +512,24 @@ def _fit(start: Shape, x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[
     return shape, float(np.median(np.abs(shape.edge_distance_px(x, y))))
 
 
+def _polygon_fit(x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[Polygon, float] | None:
+    """The polygon that fits the outline, and its median miss; None when no polygon of 3
+    to 12 corners does, or a fitted corner has left the outline."""
+    corners = _polygon_corners(x, y, tolerance)
+    if corners is None:
+        return None
+    poly, miss = _fit(corners, x, y, tolerance)
+    if not isinstance(poly, Polygon) or miss > tolerance:
+        return None
+    reach = np.array([np.min(np.hypot(x - px, y - py)) for px, py in poly.corners_px])
+    return (poly, miss) if np.all(reach <= 4.0 * tolerance) else None
+
+
+def _far_share(shape: Shape, x: np.ndarray, y: np.ndarray, tolerance: float) -> float:
+    """The share of the outline's points more than four tolerances from ``shape``."""
+    return float(np.mean(np.abs(shape.edge_distance_px(x, y)) > 4.0 * tolerance))
+
+
 def _moments(mask: np.ndarray) -> tuple[float, float, float, float, float]:
     """The region's centroid, the standard deviations along its major and minor axes,
     and the major axis' angle counter-clockwise as seen."""
@@ -395,6 +547,42 @@ def _polygon_corners(x: np.ndarray, y: np.ndarray, tolerance: float) -> Polygon 
     points = approximate_polygon(np.column_stack([x, y]), tolerance=2.0 * tolerance)
     if len(points) > 2 and np.allclose(points[0], points[-1]):
         points = points[:-1]
+    # the smoothing rounds a corner, and the approximation cuts it by a short side:
+    # the corner is where the sides either side of that one meet
+    perimeter = float(np.sum(np.hypot(*(np.roll(points, -1, axis=0) - points).T)))
+    while len(points) > 3:
+        nxt = np.roll(points, -1, axis=0)
+        lengths = np.hypot(*(nxt - points).T)
+        i = int(np.argmin(lengths))
+        if lengths[i] >= max(6.0 * tolerance, 0.03 * perimeter):
+            break
+        k = len(points)
+        p0, p1 = points[(i - 1) % k], points[i]
+        q0, q1 = points[(i + 1) % k], points[(i + 2) % k]
+        d1, d2 = p1 - p0, q1 - q0
+        det = d1[0] * (-d2[1]) - d1[1] * (-d2[0])
+        if abs(det) > 1e-9 * np.hypot(*d1) * np.hypot(*d2):
+            t = ((q0 - p0)[0] * (-d2[1]) - (q0 - p0)[1] * (-d2[0])) / det
+            meet = p0 + t * d1
+        else:
+            meet = 0.5 * (p1 + q0)
+        if np.hypot(*(meet - 0.5 * (p1 + q0))) > 2.0 * lengths[i] + 2.0 * tolerance:
+            meet = 0.5 * (p1 + q0)
+        points = np.delete(points, (i + 1) % k, axis=0)
+        points[i if (i + 1) % k else i - 1] = meet
+    # a corner where the outline hardly turns is the approximation's, not the part's:
+    # the fit below would fling it far off
+    while len(points) > 3:
+        prev, nxt = np.roll(points, 1, axis=0), np.roll(points, -1, axis=0)
+        a, b = points - prev, nxt - points
+        turn = np.abs(np.arctan2(a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0],
+                                 np.einsum("ij,ij->i", a, b)))
+        short = np.minimum(np.hypot(*a.T), np.hypot(*b.T))
+        weak = np.where(short < 4.0 * tolerance, 0.0, turn)
+        i = int(np.argmin(weak))
+        if weak[i] >= math.radians(10.0):
+            break
+        points = np.delete(points, i, axis=0)
     if not 3 <= len(points) <= 12:
         return None
     return Polygon(tuple((float(a), float(b)) for a, b in points))

@@ -16,6 +16,14 @@ Two kinds, rendered and judged with no project code:
   ``{1, x, y, rho^2}`` removed, power as that fit's ``rho^2`` sag from the centre to the
   corners (the farthest point), PV over the quadrature nodes.
 
+* ``poly``: a convex polygon of 5 to 8 corners (``corners_px``: offsets from the photo
+  centre, y up). The surface is defined over the disk through its farthest corner.
+* ``annulus``: a ring (``radius_px``, ``inner_px``), the surface over its outer disk.
+
+The polygon's and the annulus' truth is a direct sum over a fine square grid of points
+on the part (:func:`area_truth`, about 1.7 million points, each standing for its small
+square): the same figures as the rectangle's, about the part's own centre of area.
+
 Pixel coordinates as in :mod:`photo`: x right, y down, from pixel centres.
 """
 
@@ -30,7 +38,7 @@ from .cases import random_surface
 from .photo import carrier_for
 from .surface import RefSurface, truth
 
-__all__ = ["ShapedCase", "random_shaped_case", "rect_truth", "render_shaped"]
+__all__ = ["ShapedCase", "area_truth", "random_shaped_case", "rect_truth", "render_shaped"]
 
 
 def _turn(px, py, angle_deg):
@@ -50,11 +58,31 @@ def _part_coordinates(kind: str, part: dict, px: np.ndarray, py: np.ndarray):
         # first-order distance to the ellipse: (rho_e - 1) / |grad rho_e|
         grad = np.hypot(u / (r * r), v / (b * b)) / np.maximum(rho_e, 1e-9)
         return xu, yu, (rho_e - 1.0) / np.maximum(grad, 1e-12)
+    if kind == "poly":
+        corners = np.asarray(part["corners_px"], dtype=float)
+        reach = float(np.max(np.hypot(corners[:, 0], corners[:, 1])))
+        return px / reach, py / reach, _polygon_distance(corners, px, py)
+    if kind == "annulus":
+        r, inner = part["radius_px"], part["inner_px"]
+        rho = np.hypot(px, py)
+        return px / r, py / r, np.maximum(rho - r, inner - rho)
     w, h, angle = part["width_px"], part["height_px"], part["angle_deg"]
     half_diag = 0.5 * math.hypot(w, h)
     u, v = _turn(px, py, -angle)
     dist = np.maximum(np.abs(u) - 0.5 * w, np.abs(v) - 0.5 * h)
     return px / half_diag, py / half_diag, dist
+
+
+def _polygon_distance(corners: np.ndarray, px, py):
+    """Signed distance (px, positive outside) to a convex polygon whose corners run
+    counter-clockwise, y up: the largest of the distances beyond each side's line
+    (exact inside and along the sides, a little short beyond a corner)."""
+    out = np.full(np.shape(px), -np.inf)
+    for a, b in zip(corners, np.roll(corners, -1, axis=0), strict=True):
+        t = (b - a) / math.hypot(*(b - a))
+        n = np.array([t[1], -t[0]])  # outward for counter-clockwise corners
+        out = np.maximum(out, (px - a[0]) * n[0] + (py - a[1]) * n[1])
+    return out
 
 
 def _extent(kind: str, part: dict, angle_deg: float) -> float:
@@ -64,6 +92,13 @@ def _extent(kind: str, part: dict, angle_deg: float) -> float:
         b = a * math.cos(math.radians(part["view_deg"]))
         t = math.radians(angle_deg - part["axis_deg"])
         return 2.0 * math.hypot(a * math.cos(t), b * math.sin(t))
+    if kind == "annulus":
+        return 2.0 * part["radius_px"]
+    if kind == "poly":
+        c = np.asarray(part["corners_px"], dtype=float)
+        along = c[:, 0] * math.cos(math.radians(angle_deg)) + c[:, 1] * math.sin(
+            math.radians(angle_deg))
+        return float(np.ptp(along))
     t = math.radians(angle_deg - part["angle_deg"])
     return abs(part["width_px"] * math.cos(t)) + abs(part["height_px"] * math.sin(t))
 
@@ -79,8 +114,7 @@ def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960
     operator sees it."""
     rows, cols = shape
     cx, cy = center_px if center_px is not None else ((cols - 1) / 2.0, (rows - 1) / 2.0)
-    span = (part["radius_px"] if kind == "ellipse"
-            else 0.5 * math.hypot(part["width_px"], part["height_px"]))
+    span = _reach(kind, part)
     fx, fy = carrier_for(fringes, angle_deg, 0.5 * _extent(kind, part, angle_deg))
     yy, xx = np.mgrid[0:rows, 0:cols].astype(float)
     px, py = xx - cx, cy - yy
@@ -99,6 +133,53 @@ def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960
     return np.clip(np.rint(np.clip(img, 0.0, 1.0) * 255.0), 0, 255).astype(np.uint8)
 
 
+def _reach(kind: str, part: dict) -> float:
+    """The radius of the disk the surface is defined over (px)."""
+    if kind in ("ellipse", "annulus"):
+        return part["radius_px"]
+    if kind == "poly":
+        c = np.asarray(part["corners_px"], dtype=float)
+        return float(np.max(np.hypot(c[:, 0], c[:, 1])))
+    return 0.5 * math.hypot(part["width_px"], part["height_px"])
+
+
+def _figures(x, y, values, weight, centre) -> dict:
+    """RMS, PV, RMSi, irregularity and power of ``values`` at points ``(x, y)`` (the
+    surface's unit coordinates) weighted by ``weight``; power is the best-fit
+    ``{1, x, y, rho^2}``'s sag from ``centre`` to the farthest point."""
+    def residual(columns):
+        design = np.column_stack(columns) * np.sqrt(weight)[:, None]
+        coef = np.linalg.lstsq(design, values * np.sqrt(weight), rcond=None)[0]
+        return values - np.column_stack(columns) @ coef, coef
+
+    def rms(r):
+        return float(np.sqrt(np.sum(weight * r * r) / weight.sum()))
+
+    one = np.ones_like(x)
+    res_t, _ = residual([one, x, y])
+    res_p, c_p = residual([one, x, y, x * x + y * y])
+    far = float(np.max((x - centre[0]) ** 2 + (y - centre[1]) ** 2))
+    return {"rms_nm": rms(res_t), "pv_nm": float(np.ptp(res_t)),
+            "rms_irregularity_nm": rms(res_p), "irregularity_nm": float(np.ptp(res_p)),
+            "power_nm": float(-c_p[3] * far)}
+
+
+def area_truth(surface: RefSurface, kind: str, part: dict, points: int = 1500) -> dict:
+    """Figures of ``surface`` over a polygon or annulus by a direct sum on a fine grid
+    (``points`` across the part's disk; each inside point weighs alike), about the
+    part's centre of area."""
+    reach = _reach(kind, part)
+    step = 2.0 * reach / points
+    g = (np.arange(points) + 0.5) * step - reach
+    px, py = np.meshgrid(g, g)
+    xu, yu, dist = _part_coordinates(kind, part, px, py)
+    on = dist <= 0.0
+    x, y = xu[on], yu[on]
+    values = surface.height_nm(x, y)
+    centre = (float(x.mean()), float(y.mean()))
+    return _figures(x, y, values, np.ones_like(x), centre)
+
+
 def rect_truth(surface: RefSurface, part: dict, nodes: int = 160) -> dict:
     """Figures of ``surface`` over a rectangle by Gauss-Legendre quadrature
     (``numpy.polynomial.legendre.leggauss``), in the rectangle's own axes."""
@@ -111,21 +192,7 @@ def rect_truth(surface: RefSurface, part: dict, nodes: int = 160) -> dict:
     px, py = _turn(*np.broadcast_arrays(u, v), angle)
     x, y = (px / half_diag).ravel(), (py / half_diag).ravel()
     values = surface.height_nm(x, y)
-
-    def residual(columns):
-        design = np.column_stack(columns) * np.sqrt(weight)[:, None]
-        coef = np.linalg.lstsq(design, values * np.sqrt(weight), rcond=None)[0]
-        return values - np.column_stack(columns) @ coef, coef
-
-    def rms(r):
-        return float(np.sqrt(np.sum(weight * r * r) / weight.sum()))
-
-    one = np.ones_like(x)
-    res_t, _ = residual([one, x, y])
-    res_p, c_p = residual([one, x, y, x * x + y * y])
-    return {"rms_nm": rms(res_t), "pv_nm": float(np.ptp(res_t)),
-            "rms_irregularity_nm": rms(res_p), "irregularity_nm": float(np.ptp(res_p)),
-            "power_nm": float(-c_p[3] * np.max(x * x + y * y))}
+    return _figures(x, y, values, weight, (0.0, 0.0))
 
 
 @dataclass(frozen=True)
@@ -143,9 +210,10 @@ class ShapedCase:
 
 def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
                        aspect: float | None = None, scale: float = 1.0) -> ShapedCase:
-    """A random ellipse (15-35 deg of view) or rectangle (1:1 to 4:1, any rotation) on a
-    720 x 960 photo (times ``scale``); ``view_deg`` or ``aspect`` fix that one draw."""
-    rng = np.random.default_rng([seed, 1 if kind == "ellipse" else 2])
+    """A random ellipse (15-35 deg of view), rectangle (1:1 to 4:1, any rotation), convex
+    polygon (5 to 8 corners) or annulus (hole 20-45 % of the diameter) on a 720 x 960
+    photo (times ``scale``); ``view_deg`` or ``aspect`` fix that one draw."""
+    rng = np.random.default_rng([seed, {"ellipse": 1, "rect": 2, "poly": 3, "annulus": 4}[kind]])
     wavelength = float(rng.choice([632.8, 589.3, 546.07]))
     fringes = float(rng.uniform(12.0, 24.0))
     surface = random_surface(rng, wavelength_nm=wavelength, fringes=fringes)
@@ -158,6 +226,22 @@ def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
         if view_deg is not None:
             part["view_deg"] = float(view_deg)
         answer = truth(surface, wavelength)
+    elif kind == "annulus":
+        radius = scale * float(rng.uniform(230, 320))
+        part = {"radius_px": radius, "inner_px": radius * float(rng.uniform(0.2, 0.45))}
+        answer = area_truth(surface, kind, part)
+    elif kind == "poly":
+        from scipy.spatial import ConvexHull
+
+        count = int(rng.integers(5, 9))
+        reach = scale * float(rng.uniform(240, 320))
+        turn = 2.0 * math.pi * (np.arange(count) + rng.uniform(-0.25, 0.25, count)) / count
+        turn += rng.uniform(0.0, 2.0 * math.pi)
+        radii = reach * rng.uniform(0.85, 1.0, count)
+        points = np.column_stack([radii * np.cos(turn), radii * np.sin(turn)])
+        hull = ConvexHull(points)  # counter-clockwise in 2-D (scipy.spatial)
+        part = {"corners_px": tuple((float(a), float(b)) for a, b in points[hull.vertices])}
+        answer = area_truth(surface, kind, part)
     else:
         drawn = float(rng.uniform(1.0, 4.0))
         aspect = drawn if aspect is None else float(aspect)
