@@ -131,13 +131,16 @@ async def test_the_prompt_answers_and_the_R_key_are_in_the_command_palette(tmp_p
 
 
 @sync
-async def test_a_photo_with_tilt_fringes_is_never_asked(tmp_path):
+async def test_a_photo_with_tilt_fringes_is_never_asked_nor_R_offered(tmp_path):
     app, lib = make_app(tmp_path, [PLAIN])
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(pilot)
         assert isinstance(app.screen, BenchScreen)
         assert app.bench.entries[0].state == "ok"
         assert measured_with(lib, PLAIN)[0].ring_sign is None
+        await pilot.press("R")  # its sign is measured from its tilt: nothing to state
+        await pilot.pause()
+        assert isinstance(app.screen, BenchScreen) and len(lib.measured) == 1
 
 
 @sync

@@ -65,8 +65,12 @@ class ViewActions:
     def action_ring_sign(self) -> None:
         """State whether the part in this photo of closed fringes is convex or concave."""
         e = self.entry
-        if e is None or e.kind == "sequence":  # phase-shifted frames measure their sign
-            self.notify("a ring sign is for a photo of closed fringes", severity="warning")
+        m = e.measurement if e is not None else None
+        # phase-shifted frames, and a photo measured by its tilt, have their sign measured
+        if e is None or e.kind == "sequence" or (
+                e.kind == "photo" and m is not None and m.quality.sign == "measured"):
+            self.notify("a ring sign is for a photo of closed fringes; this one's sign is "
+                        "measured", severity="warning")
             return
         self.ask_ring_sign(self.current)
 
