@@ -15,6 +15,14 @@ class UnanalysablePhotoError(FlatsightError):
     """The photo was read but its fringes cannot be measured (no carrier, closed fringes...)."""
 
 
+class RingSignNeededError(UnanalysablePhotoError):
+    """Closed fringes and no stated ``ring_sign``: one photo cannot tell convex from concave.
+
+    The operator's push test answers it; measured again with the sign stated, the photo
+    is measured (the station asks for the sign when it meets this refusal).
+    """
+
+
 class SettingsError(FlatsightError):
     """A setting is out of range or inconsistent (a wavelength of -5 nm, a bad aperture)."""
 

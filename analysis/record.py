@@ -14,10 +14,11 @@ from .errors import SettingsError
 from .figures import to_fringes, to_waves
 from .methods import METHOD_TEXT
 from .pipeline import Measurement
+from .shapes import circle_text
 from .version import flatsight_version
 
 __all__ = ["MAP_SUFFIXES", "RECORD_SCHEMA", "SIGN_CONVENTION", "measurement_to_record",
-           "save_height_map", "flat_fields"]
+           "save_height_map", "flat_fields", "outline_fields"]
 
 #: File suffixes a height map can be saved as (NumPy array, 32-bit float TIFF).
 MAP_SUFFIXES = (".npy", ".tif", ".tiff")
@@ -203,11 +204,34 @@ def measurement_to_record(m: Measurement, *, ordering: str = "noll") -> dict:
     return rec
 
 
+def outline_fields(record: dict) -> tuple[str | None, str | None, float | None]:
+    """The part's outline in a record, for a CSV row: its kind, its text, a viewing angle.
+
+    Returns ``aperture.shape``'s kind (``"circle"`` for a round part seen square-on,
+    which has no ``shape``; ``"ellipse"``, ``"rect"``, ``"poly"``, ``"annulus"``), the
+    outline as ``--aperture`` takes it back (photo pixels and degrees:
+    ``circle:X,Y,R``, ``ellipse:CX,CY,A,B,ANGLE`` ...) and an ellipse's
+    ``view_angle_deg``; None for what the record does not hold.
+    """
+    aperture = record.get("aperture")
+    if not isinstance(aperture, dict):
+        return None, None, None
+    shape = aperture.get("shape")
+    if isinstance(shape, dict):
+        return shape.get("kind"), shape.get("text"), shape.get("view_angle_deg")
+    centre_radius = [aperture.get(k) for k in ("center_x_px", "center_y_px", "radius_px")]
+    if any(not isinstance(v, int | float) for v in centre_radius):
+        return "circle", None, None
+    return "circle", circle_text(*centre_radius), None
+
+
 def flat_fields(record: dict) -> dict:
     """The record's scalar fields, flattened for a CSV row (Zernike terms as z1, z2, ...).
 
     Each figure's expanded uncertainty stands beside it as ``u_<figure>``
-    (``pv_nm``, ``u_pv_nm``, ``rms_nm``, ``u_rms_nm`` ...).
+    (``pv_nm``, ``u_pv_nm``, ``rms_nm``, ``u_rms_nm`` ...). The part's outline follows
+    the aperture's centre and radius as ``aperture.shape``, ``aperture.outline`` and
+    ``aperture.view_angle_deg`` (:func:`outline_fields`), in every row, a circle's too.
     """
     row: dict = {}
     uncertainty = record.get("uncertainty") or {}
@@ -227,6 +251,9 @@ def flat_fields(record: dict) -> dict:
             for sub, v in value.items():
                 if not isinstance(v, (dict, list)):
                     row[f"{key}.{sub}"] = v
+            if key == "aperture":
+                row["aperture.shape"], row["aperture.outline"], row[
+                    "aperture.view_angle_deg"] = outline_fields(record)
         elif isinstance(value, list):
             if key == "warnings":
                 row["warnings"] = " | ".join(str(w) for w in value)

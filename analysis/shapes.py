@@ -34,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["SHAPE_FORMS", "Annulus", "Ellipse", "Polygon", "Rectangle", "Shape",
-           "parse_shape", "shape_from_dict", "shape_words"]
+           "circle_text", "parse_shape", "shape_from_dict", "shape_words"]
 
 #: the forms ``--aperture`` takes, for help texts and error messages
 SHAPE_FORMS = ("X,Y,R", "circle:X,Y,R", "ellipse:CX,CY,A,B,ANGLE", "rect:CX,CY,W,H,ANGLE",
@@ -433,6 +433,12 @@ def parse_shape(text: str) -> tuple[float, float, float] | Shape:
         return Annulus(cx, cy, r, rin)
     raise ValueError(f"{text!r}: unknown aperture shape {kind!r}; use one of "
                      + ", ".join(SHAPE_FORMS))
+
+
+def circle_text(x: float, y: float, r: float) -> str:
+    """A circle's ``--aperture`` text, ``circle:X,Y,R``, as :meth:`Shape.to_text` is an
+    outline's (a round part seen square-on has no :class:`Shape`)."""
+    return "circle:" + ",".join(_fmt(v) for v in (x, y, r))
 
 
 def shape_words(d: dict | None) -> str | None:

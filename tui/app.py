@@ -13,6 +13,7 @@ from textual.screen import Screen
 from .config import StationSettings
 from .safe_text import shown
 from .screens.bench import BenchScreen
+from .screens.ring_sign_screen import RingSignScreen
 from .station_backend import StationBackend, default_backend
 from .station_state import QueueEntry
 
@@ -143,6 +144,11 @@ class FlatsightStation(App):
 
     def get_system_commands(self, screen: Screen) -> Iterable[SystemCommand]:
         yield from super().get_system_commands(screen)
+        if isinstance(screen, RingSignScreen):  # the prompt's answers, by name too
+            for b in screen.BINDINGS:
+                yield SystemCommand(b.description, f"key: {b.key}",
+                                    partial(screen.run_action, b.action))
+            return
         if not isinstance(screen, BenchScreen):
             return
         seen = set()

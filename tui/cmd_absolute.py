@@ -143,6 +143,7 @@ def flat_record(measurement, flat) -> dict:
 
 def run(args: argparse.Namespace) -> int:
     from flatsight.analysis.errors import (
+        RingSignNeededError,
         SettingsError,
         UnanalysablePhotoError,
         UnreadablePhotoError,
@@ -213,6 +214,8 @@ def run(args: argparse.Namespace) -> int:
         return 2
     except UnanalysablePhotoError as exc:
         where = f" {current}" if current else ""
+        if isinstance(exc, RingSignNeededError):  # its words name an option absolute lacks
+            exc = "closed fringes: the three-flat test needs tilt fringes in each pair photo"
         print(f"flatsight absolute: cannot analyse{shown(where)}: {shown(exc)}", file=err)
         return 3
 

@@ -23,8 +23,14 @@ Keys: 1-7 switch views (6 is the trend from the inspection log, 7 the spread
 of averaged photos), [ and ] move through the queue, o opens photos, s saves the
 result (JSON record, height map, text summary beside the photo), w opens the
 settings, b picks a bench preset, space marks photos that g averages or n
-measures as a phase-shifted sequence, u switches nm / waves / fringes, ? lists
-every key, ctrl+q quits.
+measures as a phase-shifted sequence, u switches nm / waves / fringes, R states
+whether a photo of closed rings is convex or concave, ? lists every key, ctrl+q
+quits.
+
+Closed rings: a photo refused because one photo of rings cannot tell convex from
+concave brings up a prompt with the push test; the answer measures it again.
+--ring-sign (or "Closed rings" in the settings, or a preset's ring_sign) states
+it for the session's photos instead; it is never remembered.
 
 Every measurement is judged against --spec (or the preset's tolerance) and
 recorded in the inspection log, as flatsight measure records it: the default

@@ -30,7 +30,9 @@ TREND_FIGURES = ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm", "as
 CSV_FIELDS = ("record_id", "logged_utc", "part", "operator", "station", "photo",
               "photo_sha256", "wavelength_nm", *TREND_FIGURES, "radius_of_curvature_m",
               "tolerance", "verdict", "source", "photos", "reference_map",
-              "reference_sha256", "supersedes", "superseded_by")
+              "reference_sha256", "supersedes", "superseded_by",
+              # the part's outline (record.outline_fields), last: older columns keep places
+              "aperture_shape", "aperture_outline", "aperture_view_angle_deg")
 # how history marks a record made of several photos, or with a reference map taken off
 SOURCE_NOTE = ("avg N: the average of N photos of the part (the first one named); seq N: "
                "a phase-shifted sequence of N frames; ref: a reference map subtracted")
@@ -167,12 +169,16 @@ def _source_cell(rec: dict) -> str:
 
 
 def _csv_row(rec: dict) -> dict:
+    from ..analysis.record import outline_fields
+
     spec = rec.get("spec") or {}
     row = {k: rec.get(k) for k in CSV_FIELDS}
     row["tolerance"] = spec.get("tolerance")
     row["source"], row["photos"], _ = _source(rec)
     reference = rec.get("reference") or {}
     row["reference_map"], row["reference_sha256"] = reference.get("path"), reference.get("sha256")
+    row["aperture_shape"], row["aperture_outline"], row["aperture_view_angle_deg"] = (
+        outline_fields(rec))
     return csv_row(row)
 
 

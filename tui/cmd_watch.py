@@ -60,6 +60,10 @@ disappears, the watch says so and waits for it to come back.
 Each line ends with the verdict against --spec: PASS, FAIL, or INCONCLUSIVE under
 --decision guarded (a figure within its uncertainty U of a limit).
 
+Closed fringes (rings against a test plate) need the part's form stated, as in
+measure: --ring-sign convex or concave (or the preset's ring_sign), from the push
+test; without it such a photo gets an error line and the watch goes on.
+
 Stop with ctrl+c (exit status 130), or with --max-files / --timeout: a summary line and
 exit status 0, whatever the verdicts (they are in the lines and the log); 2 for bad
 options, or when a result could not be written to the log (it is still shown) or its
@@ -82,6 +86,13 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     w.add_argument("--terms", type=terms_type, metavar="N", default=None,
                    help="Zernike terms to fit (Noll, default 36)")
     w.add_argument("--invert", action="store_true", help="flip the sign of the surface")
+    w.add_argument("--method", choices=("auto", "carrier", "intensity-fit"), default=None,
+                   help="how the fringes become phase (see flatsight measure --help, "
+                        "'Method'; default auto)")
+    w.add_argument("--ring-sign", choices=("convex", "concave"), default=None,
+                   help="for closed fringes: the part's form from the push test (see "
+                        "flatsight measure --help, 'Closed fringes'); without it (or a "
+                        "preset's ring_sign) a photo of closed rings gets an error line")
     w.add_argument("--aperture", type=aperture_type, metavar=APERTURE_METAVAR,
                    help=APERTURE_HELP.replace("default: found automatically",
                                               "for every photo; default: found in each"))
@@ -256,6 +267,8 @@ def watch_settings(args: argparse.Namespace):
         diameter_mm=float(args.diameter) if args.diameter is not None else None,
         aperture=aperture,  # an Aperture (options.parse_aperture) or None
         exclusions=tuple(Exclusion(*c) for c in getattr(args, "exclude", []) or []),
+        method=getattr(args, "method", None) or "auto",
+        ring_sign=getattr(args, "ring_sign", None),
         **uncertainty_settings(args),
     )
 

@@ -55,6 +55,11 @@ class QueueEntry:
     logged_id: int | None = None
     replaced_id: int | None = None  # the record this entry's current one superseded
     marked: bool = False
+    # closed fringes: the operator's answer to the ring-sign prompt for this photo (wins
+    # over its preset's and the station's), and whether its last run was refused for want
+    # of one
+    ring_sign: str | None = None
+    needs_ring_sign: bool = False
     # a measurement made of several photos: "average" or "sequence", and its photos
     kind: str = "photo"
     sources: tuple[Path, ...] = ()
@@ -114,6 +119,7 @@ class QueueEntry:
         """Drop the measurement (settings or aperture changed); the photo stays loaded."""
         self.measurement = None
         self.error = None
+        self.needs_ring_sign = False
         self.state = "new"
         self.verdict = self.record_id = self.log_error = self.replaced_id = None
         self.spec = None

@@ -24,7 +24,7 @@ import numpy as np
 from ..aperture import Aperture
 from ..carrier import Spectrum
 from ..demodulation import MapGeometry
-from ..errors import SettingsError, UnanalysablePhotoError
+from ..errors import RingSignNeededError, SettingsError, UnanalysablePhotoError
 
 __all__ = ["METHODS", "METHOD_CHOICES", "RING_SIGNS", "PhaseResult", "run_method"]
 
@@ -119,10 +119,12 @@ def run_method(
     ------
     SettingsError
         An unknown method or ring sign.
+    RingSignNeededError
+        Closed fringes and no ``ring_sign`` (a kind of UnanalysablePhotoError).
     UnanalysablePhotoError
         Neither method can measure the photo (the last one's reason).
     """
-    from . import carrier, intensity_fit
+    from . import carrier
 
     if method not in METHOD_CHOICES:
         raise SettingsError(f"unknown method {method!r}: use {', '.join(METHOD_CHOICES)}")
@@ -131,14 +133,13 @@ def run_method(
     fit_options = dict(ring_sign=ring_sign, invert=invert, photo_name=photo_name,
                        progress=progress, cancel=cancel)
     if method == "intensity-fit":
-        return intensity_fit.run(image, aperture, reason="chosen by the operator",
-                                 **fit_options)
+        return _fit(image, aperture, reason="chosen by the operator", **fit_options)
     try:
         result = carrier.run(image, aperture, progress=progress, cancel=cancel)
     except UnanalysablePhotoError as exc:
         if method == "carrier" or not carrier.fringes_may_suit_a_fit(exc):
             raise
-        return intensity_fit.run(image, aperture, reason=None, **fit_options)
+        return _fit(image, aperture, reason=None, **fit_options)
     if method == "carrier":
         return _replace_reason(result, "chosen by the operator")
     if result.quality["carrier_fringes"] < CARRIER_MIN_FRINGES:
@@ -146,13 +147,31 @@ def run_method(
         # of them (benchmarks/few_fringe_accuracy.py); the fit meets them. Keep the
         # carrier's result only when the fit cannot do better.
         try:
-            fitted = intensity_fit.run(image, aperture, reason="too few fringes",
-                                       **fit_options)
+            fitted = _fit(image, aperture, reason="too few fringes", **fit_options)
         except UnanalysablePhotoError:
             return result
         if not fitted.warnings:
             return fitted
     return result
+
+
+# the intensity fit's refusal of closed fringes without a sign, by the words it says;
+# intensity_fit raising RingSignNeededError itself makes this check a no-op
+_SIGN_REFUSAL = "one photo cannot tell convex from concave"
+
+
+def _fit(image, aperture, *, ring_sign, **options) -> PhaseResult:
+    """The intensity fit, its refusal for want of a stated sign a RingSignNeededError."""
+    from . import intensity_fit
+
+    try:
+        return intensity_fit.run(image, aperture, ring_sign=ring_sign, **options)
+    except RingSignNeededError:
+        raise
+    except UnanalysablePhotoError as exc:
+        if ring_sign is None and _SIGN_REFUSAL in str(exc):
+            raise RingSignNeededError(str(exc)) from None
+        raise
 
 
 def _replace_reason(result: PhaseResult, reason: str) -> PhaseResult:

@@ -12,9 +12,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 from flatsight.analysis import record as record_module
+from flatsight.analysis.aperture import Aperture
 from flatsight.analysis.errors import SettingsError
 from flatsight.analysis.pipeline import MeasureSettings, measure
-from flatsight.analysis.record import flat_fields, measurement_to_record, save_height_map
+from flatsight.analysis.record import (
+    flat_fields,
+    measurement_to_record,
+    outline_fields,
+    save_height_map,
+)
+from flatsight.analysis.shapes import Ellipse, Polygon, parse_shape
 from flatsight.analysis.version import flatsight_version
 from flatsight.analysis.zernike import noll_to_osa
 from PIL import Image
@@ -136,6 +143,36 @@ def test_flat_fields_for_csv(rec):
         assert row[f"u_{figure}"] == rec["uncertainty"][figure] > 0
         assert keys.index(f"u_{figure}") == keys.index(figure) + 1
     assert not any(k.startswith("uncertainty.") for k in keys)
+
+
+def test_every_csv_row_names_the_parts_outline(rec, measured):
+    # issue 10: the CSV lacked the aperture's shape. A round part seen square-on has no
+    # aperture.shape in the JSON: "circle", and the --aperture text that gives it back
+    row = flat_fields(rec)
+    ap = rec["aperture"]
+    assert (row["aperture.shape"], row["aperture.view_angle_deg"]) == ("circle", None)
+    assert parse_shape(row["aperture.outline"]) == pytest.approx(
+        (ap["center_x_px"], ap["center_y_px"], ap["radius_px"]), abs=0.005)
+    keys = list(row)
+    assert keys.index("aperture.shape") + 1 == keys.index("aperture.outline")
+    # an ellipse: its kind, its text and its viewing angle, as aperture.shape holds them;
+    # a round part seen at 36.87 deg shows semi-axes 200 and 160 (cos = b / a = 0.8)
+    ellipse = Ellipse(320.0, 240.0, 200.0, 160.0, 30.0)
+    row = flat_fields(measurement_to_record(replace(measured,
+                                                    aperture=Aperture.of_shape(ellipse))))
+    assert (row["aperture.shape"], row["aperture.outline"]) == (
+        "ellipse", "ellipse:320,240,200,160,30")
+    assert row["aperture.view_angle_deg"] == pytest.approx(math.degrees(math.acos(0.8)),
+                                                           abs=0.01)
+    corners = ((100.0, 100.0), (300.0, 100.0), (200.0, 300.0))
+    shaped = measurement_to_record(replace(measured, aperture=Aperture.of_shape(
+        Polygon(corners))))
+    row = flat_fields(shaped)
+    assert (row["aperture.shape"], row["aperture.outline"]) == (
+        "poly", "poly:100,100;300,100;200,300")
+    assert parse_shape(row["aperture.outline"]).corners_px == corners
+    # a record without an aperture (an old or foreign one): empty cells, not an error
+    assert outline_fields({"pv_nm": 1.0}) == (None, None, None)
 
 
 # --- the height map ----------------------------------------------------------------------

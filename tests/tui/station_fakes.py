@@ -17,6 +17,7 @@ from flatsight.analysis.aperture import Aperture
 from flatsight.analysis.demodulation import MapGeometry, Spectrum
 from flatsight.analysis.errors import (
     MeasurementCancelled,
+    RingSignNeededError,
     UnanalysablePhotoError,
     UnreadablePhotoError,
 )
@@ -83,6 +84,12 @@ class FakeLibrary:
             raise UnanalysablePhotoError(
                 f"{path}: no straight fringes found; add tilt until 10 to 30 fringes cross the flat"
             )
+        rings = "rings" in Path(path).name  # closed fringes: measured once the sign is stated
+        if rings and settings.ring_sign is None:
+            raise RingSignNeededError(
+                f"closed fringes in {path}: one photo cannot tell convex from concave; state "
+                "it with --ring-sign convex or --ring-sign concave"
+            )
         aperture = settings.aperture or FOUND_APERTURE
         aperture = aperture.with_exclusions(tuple(aperture.exclusions) + tuple(settings.exclusions))
         n = int(2 * aperture.radius_px / MAP_STEP_PX) + 3
@@ -95,6 +102,9 @@ class FakeLibrary:
         xu, yu = geometry.unit_xy(aperture)
         inside = np.hypot(xu, yu) <= 1.0
         surface = self.surface_for(Path(path)) if self.surface_for else SURFACE_NM
+        if rings:  # convex: centre high, Noll 4 negative in height (DEVELOPERS.md, "Sign")
+            surface = {**surface, 4: -abs(surface[4]) if settings.ring_sign == "convex"
+                       else abs(surface[4])}
         basis = zernike_basis(max(surface), xu[inside], yu[inside])
         h = np.full((n, n), np.nan)
         h[inside] = sum(c * basis[:, j - 1] for j, c in surface.items())
@@ -123,7 +133,8 @@ class FakeLibrary:
                 "fringe_period_px": 6.9,
                 "carrier_angle_deg": 90.0,
                 "resolution_cycles_per_aperture": 5.0,
-            },
+            } | ({"carrier_fringes": float("nan"), "method": "intensity-fit",
+                  "method_reason": "closed fringes", "sign": "stated"} if rings else {}),
         )
 
 

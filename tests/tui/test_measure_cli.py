@@ -113,6 +113,11 @@ def test_csv_inverted(photo_set, capsys):
     assert float(row["z4_nm"]) == pytest.approx(-40.0, abs=1.5)
     assert float(row["power_nm"]) > 0 and float(row["radius_of_curvature_m"]) > 0
     assert row["settings.invert"] == "True"
+    # the part's outline (issue 10): a circle, as --aperture takes it back
+    assert row["aperture.shape"] == "circle"
+    assert row["aperture.outline"] == "circle:{},{},{}".format(
+        *(row[f"aperture.{k}"].removesuffix(".0") for k in ("center_x_px", "center_y_px",
+                                                             "radius_px")))
     # each figure's expanded uncertainty (k = 2) in the column beside it
     header = out.splitlines()[0].split(",")
     for figure in ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm"):

@@ -425,3 +425,36 @@ def test_history_marks_averages_sequences_and_references_and_names_the_photo(
     assert (rows["BW-FL-0413"]["source"], rows["BW-FL-0413"]["photos"]) == ("sequence", "4")
     assert rows["BW-FL-0588"]["reference_sha256"] == "cd" * 32
     assert rows["BW-FL-0588"]["reference_map"] == "/shop/maps/BW-REF-01.npy"
+
+
+def test_history_csv_names_each_parts_outline_spreadsheet_safe(filled_log, tmp_path, capsys):
+    # issue 10: the outline's kind, its --aperture text and an ellipse's viewing angle,
+    # after the older columns; a stored record's text is data, defended for spreadsheets
+    import shutil
+
+    log = tmp_path / "log.sqlite"
+    shutil.copy(filled_log, log)
+    base = inspection_log.get(log, 1)
+    for k in ("record_id", "logged_utc", "part", "operator", "station", "verdict"):
+        base.pop(k, None)
+    shape = {"kind": "ellipse", "center_x_px": 320.0, "center_y_px": 240.0, "a_px": 200.0,
+             "b_px": 160.0, "angle_deg": 30.0, "view_angle_deg": 36.87,
+             "text": "ellipse:320,240,200,160,30"}
+    tampered = {**shape, "kind": "=1+1", "text": "@SUM(A1)\x1b[2J"}
+    for aperture_shape, part in ((shape, "BW-FL-0596"), (tampered, "BW-FL-0597")):
+        inspection_log.record_measurement(
+            log, base | {"aperture": {**base["aperture"], "shape": aperture_shape}}, part=part)
+    status, out, _ = run_cli(capsys, "history", "--log", log, "--csv")
+    assert status == 0
+    reader = csv.DictReader(io.StringIO(out))
+    assert reader.fieldnames[-3:] == ["aperture_shape", "aperture_outline",
+                                      "aperture_view_angle_deg"]
+    rows = {r["part"]: r for r in reader}
+    assert (rows["BW-FL-0412"]["aperture_shape"], rows["BW-FL-0412"]["aperture_view_angle_deg"]
+            ) == ("circle", "")
+    assert rows["BW-FL-0412"]["aperture_outline"].startswith("circle:")
+    assert [rows["BW-FL-0596"][k] for k in ("aperture_shape", "aperture_outline",
+                                            "aperture_view_angle_deg")] == [
+        "ellipse", "ellipse:320,240,200,160,30", "36.87"]
+    assert rows["BW-FL-0597"]["aperture_shape"] == "'=1+1"
+    assert rows["BW-FL-0597"]["aperture_outline"] == "'@SUM(A1)\\x1b[2J"

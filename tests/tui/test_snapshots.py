@@ -130,3 +130,21 @@ def test_queue_of_one_parts_photos_at_80x24(snap_compare, tmp_path):
     app = FlatsightStation(photos, settings=StationSettings(colour="truecolor"),
                            backend=backend, config_path=None)
     assert snap_compare(app, terminal_size=(80, 24), run_before=_keys_then_settle())
+
+
+def _rings_app(tmp_path) -> FlatsightStation:
+    """A closed-ring photo first (the stand-in refuses it until a sign is stated)."""
+    photos = write_photos(tmp_path, ["BW-FL-0440-rings.png", "BW-FL-0412.png"])
+    backend, _ = fake_backend()
+    return FlatsightStation(photos, settings=StationSettings(colour="truecolor"),
+                            backend=backend, config_path=None)
+
+
+def test_the_ring_sign_prompt_at_80x24(snap_compare, tmp_path):
+    assert snap_compare(_rings_app(tmp_path), terminal_size=(80, 24),
+                        run_before=_keys_then_settle())
+
+
+def test_closed_rings_measured_with_the_stated_sign_at_120x40(snap_compare, tmp_path):
+    assert snap_compare(_rings_app(tmp_path), terminal_size=(120, 40),
+                        run_before=_keys_then_settle("o"))

@@ -42,3 +42,15 @@ def test_no_signed_zero_in_rows_or_summary(tmp_path):
     text = " ".join(v for _, v in figure_rows(flat, units="nm", wavelength_nm=632.8))
     assert "0.0 nm  (0.00 fr)" in text
     assert not re.search(r"-0\.0+(?![0-9])", summary_text(replace(m, figures=flat)))
+
+
+def test_the_summary_says_a_stated_ring_sign(tmp_path):
+    # issue 10: closed fringes measured with the operator's sign say so, and which
+    backend, _ = fake_backend()
+    photo = write_photos(tmp_path, ["BW-FL-0440-rings.png"])[0]
+    text = summary_text(backend.measure(photo, MeasureSettings(ring_sign="concave")))
+    assert "sign           stated concave for closed fringes (push test), not measured" in text
+    assert "  sign stated: concave" in text and "method intensity-fit" in text
+    plain = summary_text(backend.measure(
+        write_photos(tmp_path, ["BW-FL-0412.png"])[0], MeasureSettings(ring_sign="concave")))
+    assert "sign           as photographed" in plain and "sign stated" not in plain

@@ -419,3 +419,76 @@ def test_watch_takes_each_photos_bench_from_the_presets_photos_table(tmp_path, p
     assert [ln for ln in out.splitlines() if "BW-FL-0003.png: error: no test wavelength"]
     stations = {r["part"]: r["station"] for r in inspection_log.query(log)}
     assert stations == {"BW-FL-0001_hene": "bench-2", "BW-FL-0002_sodium": "bench-1"}
+
+
+# --- closed fringes: the ring sign (issue 10) -------------------------------------------------
+
+
+def test_watch_passes_the_ring_sign_and_method_from_the_command_line_or_the_preset(
+        tmp_path, photo_set, measured, monkeypatch, capsys):
+    import dataclasses
+
+    import flatsight.analysis.pipeline as pipeline
+
+    used = {}
+
+    def quick(photo, settings, **_):
+        used[os.path.basename(photo)] = (settings.ring_sign, settings.method)
+        return dataclasses.replace(measured, photo=str(photo), settings=settings)
+
+    monkeypatch.setattr(pipeline, "measure", quick)
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    for name in ("BW-FL-0440_plate.png", "BW-FL-0441.png"):
+        shutil.copy(photo_set.good_png, folder / name)
+    presets = tmp_path / "presets.toml"
+    presets.write_text('[presets.test-plate]\nwavelength_nm = 589.3\nring_sign = "concave"\n'
+                       'method = "intensity-fit"\n[photos]\n"*_plate.*" = "test-plate"\n',
+                       encoding="utf-8")
+    # --jobs 1: the stand-in analysis above lives in this process, not in workers
+    common = ("--jobs", "1", "--existing", "--settle", "0", "--interval", "0.01",
+              "--max-files", "2", "--timeout", "60", "--no-log")
+    status, out, err = run_watch(capsys, folder, "-w", "sodium", "--ring-sign", "convex",
+                                 "--method", "intensity-fit", *common)
+    assert status == 0, out + err
+    assert used == {"BW-FL-0440_plate.png": ("convex", "intensity-fit"),
+                    "BW-FL-0441.png": ("convex", "intensity-fit")}
+    used.clear()
+    # the preset's ring_sign and method for the photo its [photos] pattern names; the
+    # command line's --ring-sign would win over it, as in measure
+    status, out, err = run_watch(capsys, folder, "--presets", presets, "-w", "sodium",
+                                 *common)
+    assert status == 0, out + err
+    assert used == {"BW-FL-0440_plate.png": ("concave", "intensity-fit"),
+                    "BW-FL-0441.png": (None, "auto")}
+
+
+def test_watch_refuses_a_bad_ring_sign_as_a_usage_error(tmp_path, capsys):
+    with pytest.raises(SystemExit) as info:
+        parser().parse_args(["watch", str(tmp_path), "-w", "hene", "--ring-sign", "flat"])
+    assert info.value.code == 2
+    assert "--ring-sign" in capsys.readouterr().err
+
+
+@pytest.mark.slow
+def test_watch_measures_closed_rings_once_the_sign_is_stated(tmp_path, photo_set, capsys):
+    # the suite's closed-ring photo (tests/conftest.py): without a sign one error line that
+    # names --ring-sign, and the watch goes on; with --ring-sign convex measured, and the
+    # record says the sign was stated
+    folder = tmp_path / "camera"
+    folder.mkdir()
+    shutil.copy(photo_set.bad["rings.png"], folder / "BW-FL-0440.png")
+    log = tmp_path / "log.sqlite"
+    common = ("--jobs", "1", "--existing", "--settle", "0", "--interval", "0.01",
+              "--max-files", "1", "--timeout", "120", "--log", log)
+    status, out, _ = run_watch(capsys, folder, "-w", "hene", *common)
+    errors = [ln for ln in out.splitlines() if "BW-FL-0440.png: error:" in ln]
+    assert status == 0 and len(errors) == 1 and "--ring-sign" in errors[0]
+    assert "1 errors" in out.splitlines()[-1]
+    assert not log.exists()  # nothing was logged
+    status, out, _ = run_watch(capsys, folder, "-w", "hene", "--ring-sign", "convex", *common)
+    assert status == 0, out
+    record = inspection_log.query(log)[0]
+    assert record["quality"]["sign"] == "stated"
+    assert record["settings"]["ring_sign"] == "convex"
+    assert record["power_nm"] > 0  # convex: centre high (README, "Sign")

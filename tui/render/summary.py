@@ -78,8 +78,12 @@ def _quality_triples(q) -> tuple:
     return tuple((p.carrier_fringes, p.fringe_period_px, p.mean_modulation) for p in q.per_photo)
 
 
-def method_lines(q) -> list[str]:
-    """The single-photo method and why, in short lines; none for a combined map."""
+def method_lines(q, ring_sign: str | None = None) -> list[str]:
+    """The single-photo method and why, in short lines; none for a combined map.
+
+    ``ring_sign`` is the sign the operator stated for closed fringes (the measurement's
+    ``settings.ring_sign``), said when the measurement took it.
+    """
     method = getattr(q, "method", "")
     if not method:
         return []
@@ -87,14 +91,14 @@ def method_lines(q) -> list[str]:
     if q.terms_fitted:
         lines.append(f"{q.terms_fitted} terms resolved")
     if q.sign == "stated":
-        lines.append("sign stated, not measured")
+        lines.append(f"sign stated: {ring_sign}" if ring_sign else "sign stated, not measured")
     return [line for line in lines if line]
 
 
-def quality_lines(q) -> list[str]:
+def quality_lines(q, ring_sign: str | None = None) -> list[str]:
     """:func:`carrier_lines` of a measurement's ``Quality``, then its method."""
     return carrier_lines(q.carrier_fringes, q.fringe_period_px, q.mean_modulation,
-                         _quality_triples(q)) + method_lines(q)
+                         _quality_triples(q)) + method_lines(q, ring_sign)
 
 
 def carrier_short(q) -> str:
@@ -141,7 +145,7 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
         out.append(f"sha256         {m.photo_sha256}")
     out += [
         f"wavelength     {wl:g} nm   (1 fringe = {wl / 2:g} nm)",
-        f"sign           {'inverted' if m.settings.invert else 'as photographed'}",
+        f"sign           {_sign_words(m)}",
         f"aperture       centre ({a.center_x_px:.1f}, {a.center_y_px:.1f}) px, "
         f"radius {a.radius_px:.1f} px, {len(a.exclusions)} exclusion(s)",
     ]
@@ -160,7 +164,7 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
         for name, value in figure_rows(figures, units="nm", wavelength_nm=wl)[:3]:
             out.append(f"  {name:<18} {value}")
     q = m.quality
-    out += ["", "Fringes"] + [f"  {line}" for line in quality_lines(q)] + [
+    out += ["", "Fringes"] + [f"  {line}" for line in quality_lines(q, m.settings.ring_sign)] + [
         f"  masked {100 * q.masked_fraction:.1f} % of the aperture",
     ]
     if m.warnings:
@@ -173,3 +177,10 @@ def summary_text(m, *, figures=None, removed_terms: tuple[int, ...] = ()) -> str
     for j, name, nm, waves in zernike_rows(m.zernike.coefficients_nm, wavelength_nm=wl):
         out.append(f"  {j:>2}  {name:<28} {nm:>9}  {waves:>9}")
     return "\n".join(out) + "\n"
+
+
+def _sign_words(m) -> str:
+    """How the surface's sign was set: as photographed, inverted, or stated for rings."""
+    if m.quality.sign == "stated" and m.settings.ring_sign:
+        return f"stated {m.settings.ring_sign} for closed fringes (push test), not measured"
+    return "inverted" if m.settings.invert else "as photographed"

@@ -66,6 +66,7 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
         Binding("s", "save", "Save"),
         Binding("o", "open", "Open"),
         Binding("w", "settings", "Settings"),
+        Binding("R", "ring_sign", "Ring sign of this photo (closed fringes)", show=False),
         Binding("b", "pick_preset", "Bench preset"),
         Binding("space", "toggle_mark", "Mark photo"),
         Binding("g", "average_marked", "Average marked photos"),
@@ -192,6 +193,8 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
         s = self.settings
         diameter = "—" if s.diameter_mm is None else f"{s.diameter_mm:g} mm"
         sign = "inverted" if s.invert else "normal"
+        if s.ring_sign is not None:  # the settings' sign for closed fringes
+            sign += f", rings {s.ring_sign}"
         preset = f" [dim]│[/dim] {self.chosen_preset.name}" if self.chosen_preset else ""
         protocol = getattr(self.app, "pictures", None)
         if protocol is not None and self.colour != "mono":  # pictures: say in which protocol
@@ -302,7 +305,8 @@ class BenchScreen(AnalysisRunner, RecordActions, ViewActions, Screen):
             new = replace(new, wavelength_nm=before.wavelength_nm,
                           diameter_mm=before.diameter_mm, n_terms=before.n_terms,
                           wavelength_uncertainty_nm=before.wavelength_uncertainty_nm,
-                          reference_uncertainty_nm=before.reference_uncertainty_nm)
+                          reference_uncertainty_nm=before.reference_uncertainty_nm,
+                          method=before.method)
         if persist and self.config_path is not None:
             try:
                 save_settings(new, self.config_path)

@@ -22,8 +22,8 @@ class ViewActions:
     """Actions the keys call; mixed into the bench screen, whose state they change.
 
     The bench provides ``entry``, ``selected``, ``settings``, ``colour``, ``zoom``,
-    ``profile_angle``, ``redraw()``, ``start_analysis()``, ``_schedule_rerun()`` and
-    ``_update_settings()``.
+    ``profile_angle``, ``redraw()``, ``start_analysis()``, ``measure_settings()``,
+    ``photo_settings()``, ``_schedule_rerun()`` and ``_update_settings()``.
     """
 
     def action_settings(self) -> None:
@@ -39,15 +39,67 @@ class ViewActions:
                 self.settings.invert,
                 self.settings.diameter_mm,
             )
-            self._update_settings(new)
             if measuring != old:
-                for e in self.entries:
-                    if e.state != "error" or e.pixels is not None:
-                        e.forget_result()
-                if self.entry is not None:
-                    self.start_analysis(self.current)
+                changed = list(self.entries)
+            elif new.ring_sign != self.settings.ring_sign:
+                # a new ring sign changes only the photos of closed fringes that take it
+                changed = [e for e in self.entries if self.takes_station_sign(e)]
+            else:
+                changed = []
+            self._update_settings(new)
+            for e in changed:
+                if e.state != "error" or e.pixels is not None:
+                    e.forget_result()
+            if any(e is self.entry for e in changed):  # identity: entries hold arrays
+                self.start_analysis(self.current)
 
         self.app.push_screen(SettingsScreen(self.settings), done)
+
+    def takes_station_sign(self, e) -> bool:
+        """Whether ``e`` is a photo of closed fringes whose ring sign is the station's."""
+        if e.ring_sign is not None or self.photo_settings(e).get("ring_sign"):
+            return False
+        m = e.measurement
+        return e.needs_ring_sign or (m is not None and m.quality.sign == "stated")
+
+    def action_ring_sign(self) -> None:
+        """State whether the part in this photo of closed fringes is convex or concave."""
+        e = self.entry
+        m = e.measurement if e is not None else None
+        # phase-shifted frames, and a photo measured by its tilt, have their sign measured
+        if e is None or e.kind == "sequence" or (
+                e.kind == "photo" and m is not None and m.quality.sign == "measured"):
+            self.notify("a ring sign is for a photo of closed fringes; this one's sign is "
+                        "measured", severity="warning")
+            return
+        self.ask_ring_sign(self.current)
+
+    def ask_ring_sign(self, index: int) -> None:
+        """The ring-sign prompt for entry ``index``; its answer measures the photo again."""
+        from .ring_sign_screen import RingSignScreen
+
+        e = self.entries[index]
+        current = self.measure_settings(e).ring_sign
+
+        def done(sign: str | None) -> None:
+            if sign is None:
+                if e.needs_ring_sign:
+                    self.say(f"✗ {e.name}: not measured: no ring sign stated (R asks again)")
+                return
+            e.ring_sign = sign
+            e.forget_result()
+            if e.kind == "average":  # its photos are of one part: its sign is theirs too
+                for x in self.entries:
+                    if x.kind == "photo" and x.path in e.sources and x.ring_sign != sign:
+                        x.ring_sign = sign
+                        x.forget_result()
+            self.notify(f"{e.name}: stated {sign}", timeout=3)
+            if index == self.current:
+                self.start_analysis(index)
+            else:
+                self.redraw()
+
+        self.app.push_screen(RingSignScreen(e.name, current=current), done)
 
     def action_open(self) -> None:
         from .open_screen import OpenScreen

@@ -11,9 +11,10 @@ from textual import work
 from textual.message import Message
 from textual.worker import Worker, WorkerState
 
-from ...analysis.errors import MeasurementCancelled
+from ...analysis.errors import MeasurementCancelled, RingSignNeededError
 from ...analysis.pipeline import MeasureSettings
 from ..render.units import fmt_height
+from ..safe_text import shown
 from ..station_backend import describe_error
 from ..station_state import STATE_LABELS, QueueEntry
 from ..widgets.status_bar import StatusBar
@@ -21,6 +22,10 @@ from ..widgets.status_bar import StatusBar
 __all__ = ["AnalysisProgress", "AnalysisRunner", "Job", "PhotoLoaded", "RERUN_DELAY_S"]
 
 RERUN_DELAY_S = 0.4  # let a burst of aperture keys settle before measuring again
+
+# the station's own words for the library's RingSignNeededError (which names --ring-sign),
+# short enough for the status line at 80 columns
+SIGN_NEEDED = "closed rings: convex or concave? press R"
 
 
 def _first_set(*values):
@@ -59,11 +64,18 @@ class PhotoLoaded(Message):
         self.token, self.index, self.pixels = token, index, pixels
 
 
+def _without_photo(message: str, path: Path) -> str:
+    """``message`` without the photo's path, at its start or as "... in PATH: ..."."""
+    where = shown(path)
+    return message.replace(f" in {where}: ", ": ").removeprefix(f"{where}: ")
+
+
 class AnalysisRunner:
     """Mixed into the bench screen: starts, follows and settles the analysis workers.
 
     The bench provides ``entries``, ``current``, ``settings``, ``backend``, ``redraw()``,
-    ``say()``, ``record()``, ``verdict_text()`` and the worker bookkeeping attributes.
+    ``say()``, ``record()``, ``verdict_text()``, ``ask_ring_sign()`` and the worker
+    bookkeeping attributes.
     """
 
     # ---- analysis -----------------------------------------------------------------------
@@ -91,7 +103,8 @@ class AnalysisRunner:
             reference_uncertainty_nm=float(
                 _first_set(own.get("reference_uncertainty_nm"), s.reference_uncertainty_nm)),
             method=own.get("method") or s.method,
-            ring_sign=own.get("ring_sign") or s.ring_sign,
+            # the operator's answer for this photo, its preset's, the station's
+            ring_sign=e.ring_sign or own.get("ring_sign") or s.ring_sign,
         )
 
     def source_settings(self, e: QueueEntry) -> tuple[MeasureSettings, ...]:
@@ -189,10 +202,15 @@ class AnalysisRunner:
         if event.state == WorkerState.ERROR:
             if isinstance(worker.error, MeasurementCancelled):
                 return
+            sign_needed = isinstance(worker.error, RingSignNeededError)
             # the queue already names the photo: keep the message to what went wrong
-            message = describe_error(worker.error).replace(f"{job.path}: ", "")
+            message = SIGN_NEEDED if sign_needed else _without_photo(
+                describe_error(worker.error), job.path)
             e.state, e.error, e.measurement = "error", message, None
+            e.needs_ring_sign = sign_needed
             self.say(f"✗ {e.name}: {e.error}")
+            if sign_needed and job.index == self.current and self.app.screen is self:
+                self.ask_ring_sign(job.index)  # asked when it matters; R asks again
         else:
             m = worker.result
             if e.kind != "photo":  # an average or a sequence: its measurement inside
@@ -207,15 +225,27 @@ class AnalysisRunner:
         self.redraw()
 
     def headline(self, e: QueueEntry) -> str:
-        """The status line for a measured photo: PV and RMS in the chosen units."""
+        """The status line for a measured photo: PV and RMS in the chosen units, the verdict
+        and the record.
+
+        It is made to fit the status bar: where it would not, the tolerance's text goes
+        first (the figures view gives it), then the photo's name is cut. A warning
+        follows, as much of it as there is room for.
+        """
         m = e.measurement
         wl, units = self.settings.wavelength_nm, self.settings.units
-        return (
-            f"{STATE_LABELS[e.state][0]} {e.name}: PV {fmt_height(m.figures.pv_nm, units, wl)}, "
-            f"RMS {fmt_height(m.figures.rms_nm, units, wl)}"
-            + self.verdict_text(e)
-            + (f" — {m.warnings[0]}" if m.warnings else "")
-        )
+        figures = (f": PV {fmt_height(m.figures.pv_nm, units, wl)}, "
+                   f"RMS {fmt_height(m.figures.rms_nm, units, wl)}")
+        glyph = STATE_LABELS[e.state][0]
+        room = self.app.size.width - 2  # the status bar's padding; idle, it has no bar
+        verdict = self.verdict_text(e)
+        line = f"{glyph} {e.name}{figures}{verdict}"
+        if len(line) > room:
+            verdict = self.verdict_text(e, tolerance=False)
+            others = tuple(x.path.name for x in self.entries if x is not e)
+            name_room = max(8, room - len(f"{glyph} {figures}{verdict}"))
+            line = f"{glyph} {e.name_in(name_room, others=others)}{figures}{verdict}"
+        return line + (f" — {m.warnings[0]}" if m.warnings else "")
 
     @staticmethod
     def _settle_stale(e: QueueEntry) -> None:

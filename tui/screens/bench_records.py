@@ -104,10 +104,11 @@ class RecordActions:
         if outcome.record_id is not None:
             self.reload_log()
 
-    def verdict_text(self, e: QueueEntry) -> str:
+    def verdict_text(self, e: QueueEntry, *, tolerance: bool = True) -> str:
         """`` · pass``, `` · FAIL`` or `` · INCONCLUSIVE`` and the record id, for the status line.
 
-        The figures view (5) gives each limit with its margin and U.
+        ``tolerance`` adds the tolerance's text after the verdict. The figures view (5)
+        gives each limit with its margin and U.
         """
         if e.verdict is None and e.record_id is None and not e.log_error:
             return ""
@@ -116,7 +117,7 @@ class RecordActions:
             spec = self.photo_preset(e)
             text = self.recorder.options.get("spec") or (spec.tolerance if spec else None)
             word = VERDICT_WORDS.get(e.verdict, e.verdict)
-            out += f" · {word} {text or ''}".rstrip()
+            out += f" · {word} {(text or '') if tolerance else ''}".rstrip()
         if e.record_id is not None:
             out += f" · record {e.record_id}"
             if e.replaced_id is not None:
@@ -183,9 +184,9 @@ class RecordActions:
     def apply_preset_choice(self, preset) -> None:
         """Use ``preset`` for every photo (None: each photo's own again) and measure anew.
 
-        A preset's wavelength, diameter and terms replace the station's settings for this
-        session (not remembered); going back to "by photo name" restores the settings
-        as they were before the first preset was chosen.
+        A preset's wavelength, diameter, terms, method and ring sign replace the station's
+        settings for this session (not remembered); going back to "by photo name" restores
+        the settings as they were before the first preset was chosen.
         """
         if self.chosen_preset is None:
             self._settings_before_preset = self.settings
@@ -199,7 +200,8 @@ class RecordActions:
             changes = {"wavelength_nm": preset.wavelength_nm, "diameter_mm": preset.diameter_mm,
                        "n_terms": preset.zernike_terms,
                        "wavelength_uncertainty_nm": preset.wavelength_uncertainty_nm,
-                       "reference_uncertainty_nm": preset.reference_uncertainty_nm}
+                       "reference_uncertainty_nm": preset.reference_uncertainty_nm,
+                       "method": preset.method, "ring_sign": preset.ring_sign}
             new = replace(new, **{k: v for k, v in changes.items() if v is not None})
         for e in self.entries:
             if e.state != "error" or e.pixels is not None:

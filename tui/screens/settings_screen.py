@@ -1,4 +1,4 @@
-"""The settings screen: wavelength, sign, clear-aperture diameter, number of Zernike terms."""
+"""The settings screen: wavelength, clear-aperture diameter, Zernike terms, sign, ring sign."""
 
 from __future__ import annotations
 
@@ -8,18 +8,26 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
-from textual.widgets import Button, Checkbox, Input, Label, Static
+from textual.widgets import Button, Checkbox, Input, Label, Select, Static
 
 from ...analysis.errors import SettingsError
 from ..config import StationSettings, validate
 from ..safe_text import literal
 
-__all__ = ["PUSH_TEST", "SettingsScreen"]
+__all__ = ["PUSH_TEST", "RING_SIGN_CHOICES", "SettingsScreen"]
 
 PUSH_TEST = (
     "Push test: press gently on the top flat's edge to close the air gap. Flatsight "
     "assumes the wedge is wider toward the top of the photo, so the fringes travel up; "
-    "if yours travel down, tick Invert."
+    "if yours travel down, tick Invert. Closed rings moving out from the centre: "
+    "convex; shrinking in: concave."
+)
+
+# the ring-sign choices: what the select shows, and the setting ("" for none)
+RING_SIGN_CHOICES = (
+    ("not stated: ask when a photo needs it", ""),
+    ("convex (centre high)", "convex"),
+    ("concave (centre low)", "concave"),
 )
 
 
@@ -58,9 +66,13 @@ class SettingsScreen(ModalScreen[StationSettings | None]):
                     id="diameter",
                     placeholder="unknown",
                 )
-            with Horizontal(classes="row"):
-                yield Label("Zernike terms", classes="key")
+                yield Label("Zernike terms", classes="key", id="terms-label")
                 yield Input(str(s.n_terms), id="terms", type="integer")
+            with Horizontal(classes="row"):
+                yield Label("Closed rings", classes="key")
+                yield Select(RING_SIGN_CHOICES, value=s.ring_sign or "", allow_blank=False,
+                             id="ring-sign", tooltip="the part's form from the push test; "
+                             "for this session only, never remembered")
             yield Checkbox("Invert the surface (fringes travel down)", s.invert, id="invert")
             yield Static(PUSH_TEST, classes="hint", id="push-test")
             yield Label("", id="settings-error")
@@ -79,9 +91,11 @@ class SettingsScreen(ModalScreen[StationSettings | None]):
         except ValueError:
             raise SettingsError(f"Zernike terms: {terms_text!r} is not a whole number") from None
         invert = self.query_one("#invert", Checkbox).value
+        ring_sign = self.query_one("#ring-sign", Select).value or None
         return validate(
             replace(
-                self.settings, wavelength_nm=wl, diameter_mm=diameter, n_terms=terms, invert=invert
+                self.settings, wavelength_nm=wl, diameter_mm=diameter, n_terms=terms,
+                invert=invert, ring_sign=ring_sign,
             )
         )
 

@@ -133,9 +133,11 @@ class FringeView(StationView):
         )
         m = e.measurement
         if m is not None:
+            # closed fringes have no carrier: their stated sign says more in the room
+            stated = m.quality.sign == "stated" and m.settings.ring_sign
             second.append(
-                f"  {carrier_short(m.quality)}  "
-                f"masked {100 * m.quality.masked_fraction:.0f} %",
+                f"  {f'{m.settings.ring_sign} stated' if stated else carrier_short(m.quality)}"
+                f"  masked {100 * m.quality.masked_fraction:.0f} %",
                 style="dim",
             )
         elif e.error:
@@ -162,7 +164,7 @@ class FringeView(StationView):
         m = e.measurement
         if m is not None:
             q = m.quality
-            rows += [Text(line) for line in quality_lines(q)]
+            rows += [Text(line) for line in quality_lines(q, m.settings.ring_sign)]
             rows.append(Text(f"masked {100 * q.masked_fraction:.1f} %"))
             for warning in m.warnings[:3]:
                 rows += wrapped(f"! {warning}", "#ffc440")

@@ -22,7 +22,7 @@ class SpectrumView(StationView):
         m = self.entry.measurement
         if m.quality.method == "intensity-fit":
             # no sideband: the phase was fitted to the fringes themselves
-            return Text("\n".join([*quality_lines(m.quality), "",
+            return Text("\n".join([*quality_lines(m.quality, m.settings.ring_sign), "",
                                    "no carrier window: the fringes were too few or closed, "
                                    "so the phase was fitted to their brightness directly"]),
                         style="dim")

@@ -5,7 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from flatsight.analysis.aperture import Aperture
-from flatsight.analysis.errors import SettingsError, UnanalysablePhotoError
+from flatsight.analysis.errors import (
+    RingSignNeededError,
+    SettingsError,
+    UnanalysablePhotoError,
+)
 from flatsight.analysis.pipeline import MeasureSettings, measure
 
 from tests.refset.cases import few_fringe_case, random_case
@@ -34,6 +38,37 @@ def test_blank_and_noise_are_refused_by_every_method():
         with pytest.raises(UnanalysablePhotoError) as info:
             measure(image, MeasureSettings(aperture=aperture))
         assert "\n" not in str(info.value)
+        assert not isinstance(info.value, RingSignNeededError)  # a sign would not help
+
+
+def test_closed_rings_without_a_sign_are_refused_as_needing_one(photo_set):
+    # the suite's closed rings (tests/conftest.py): a refusal of its own kind, so the
+    # station can ask for the sign; still an UnanalysablePhotoError (exit 3), naming the
+    # option that states it
+    with pytest.raises(RingSignNeededError, match="--ring-sign") as info:
+        measure(photo_set.bad["rings.png"], MeasureSettings(wavelength_nm=632.8))
+    assert isinstance(info.value, UnanalysablePhotoError) and "\n" not in str(info.value)
+
+
+def test_only_the_fits_sign_refusal_becomes_ring_sign_needed(monkeypatch):
+    from flatsight.analysis import methods
+    from flatsight.analysis.methods import intensity_fit
+
+    said = {}
+
+    def refuse(image, aperture, **options):
+        raise UnanalysablePhotoError(said["message"])
+
+    monkeypatch.setattr(intensity_fit, "run", refuse)
+    image, aperture = np.full((64, 64), 0.5), Aperture(31.5, 31.5, 24.0)
+    said["message"] = ("closed fringes in x.png: one photo cannot tell convex from concave; "
+                       "state it with --ring-sign convex or --ring-sign concave")
+    with pytest.raises(RingSignNeededError):
+        methods.run_method(image, aperture, method="intensity-fit")
+    said["message"] = "no fringe pattern found in x.png: check the lamp"
+    with pytest.raises(UnanalysablePhotoError) as info:
+        methods.run_method(image, aperture, method="intensity-fit")
+    assert type(info.value) is UnanalysablePhotoError
 
 
 @pytest.mark.parametrize("bad", [dict(method="takeda"), dict(ring_sign="flat")])
