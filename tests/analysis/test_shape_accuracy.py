@@ -103,8 +103,8 @@ def test_the_record_and_certificate_name_the_shape(measured):
 def test_annulus_and_polygon_figures_follow_their_outline(outline):
     # A consistency check, not an accuracy one: photo and truth both come from the
     # project's own demo generator (analysis.synthetic), whose truth samples the surface
-    # over the outline's area with the same orthonormal terms. The independent
-    # generator draws no annulus or polygon yet.
+    # over the outline's area with the same orthonormal terms. The accuracy checks
+    # against independent truth are the "octagon" and "ring" cases above.
     from flatsight.analysis.aperture import Aperture
     from flatsight.analysis.shapes import parse_shape
     from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo
