@@ -183,13 +183,22 @@ def _outline(image: np.ndarray) -> _Found:
     fitted_ellipse, miss_e = _fit(start, x, y, tolerance)
     offset = (factor - 1) / 2.0
     x_photo, y_photo = factor * x + offset, factor * y + offset
-    polygon = _polygon_fit(x, y, tolerance)
+    fitted: list = []
+
+    def polygon_fit() -> tuple[Polygon, float] | None:
+        # fitted only when asked: a round part, the common case, never needs it
+        if not fitted:
+            fitted.append(_polygon_fit(x, y, tolerance))
+        return fitted[0]
 
     def beaten(shape: Shape, miss: float) -> bool:
         # a smooth curve's outline hugs its shape to a fraction of a pixel; a polygon's
         # straight sides fitted by an ellipse (a near-round octagon) or a rectangle (a
         # pentagon) leave a pixel or more, which the polygon's own fit does not
-        if polygon is None or miss <= 0.5 or polygon[1] >= 0.5 * miss:
+        if miss <= 0.5:
+            return False
+        polygon = polygon_fit()
+        if polygon is None or polygon[1] >= 0.5 * miss:
             return False
         return not (isinstance(shape, Rectangle) and len(polygon[0].corners_px) == 4)
 
@@ -204,7 +213,7 @@ def _outline(image: np.ndarray) -> _Found:
     # a rectangle's corner): most of the outline must lie near the shape too
     best = next((c for c in candidates
                  if c[1] <= tolerance and _far_share(c[0], x, y, tolerance) <= 0.05
-                 and not beaten(*c)), polygon)
+                 and not beaten(*c)), None) or polygon_fit()
     if best is None:
         raise UnanalysablePhotoError("the lit region's outline is no circle, ellipse, "
                                      "rectangle or polygon")
