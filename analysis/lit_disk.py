@@ -61,9 +61,16 @@ def find_lit_disk(image: np.ndarray, *, photo_name: str = "the photo") -> Apertu
     factor = max(1, int(math.ceil(max(img.shape) / _WORK_LONG_SIDE)))
     work = bin_pixels(img, factor).astype(np.float64)
     size = max(5, int(min(work.shape) / 6) | 1)
-    yy, xx = np.mgrid[-(size // 2):size // 2 + 1, -(size // 2):size // 2 + 1]
-    foot = np.hypot(xx, yy) <= size // 2
-    closed = ndi.grey_closing(work, footprint=foot, mode="nearest")
+    half_size = size // 2
+    yy, xx = np.mgrid[-half_size:half_size + 1, -half_size:half_size + 1]
+    foot = np.hypot(xx, yy) <= half_size
+    # beyond the photo's border lies the dark surround: a disk nearer the border than the
+    # footprint's radius would otherwise be joined to it (a border repeated outward
+    # holds the light the closing spreads), and the whole margin read as lit
+    pad = half_size + 1
+    dark = float(work.min())
+    closed = ndi.grey_closing(np.pad(work, pad, constant_values=dark), footprint=foot,
+                              mode="constant", cval=dark)[pad:-pad, pad:-pad]
     lo, hi = np.percentile(closed, [5, 95])
     if hi - lo < 0.05 * max(hi, 1e-6) or hi - lo < 0.02:
         _refuse(photo_name, "nothing is lit brighter than its surround")

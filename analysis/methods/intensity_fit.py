@@ -12,6 +12,11 @@ Such a fit converges only from a phase within a fraction of a fringe of the trut
 starts small: a search over tilt and power on the central third of the aperture (where
 power bends the fringes least), then fits on disks that grow outward to the rim, each
 started from the last, as regularized phase tracking grows its solution from a seed.
+A fit is right when its misfit is what the photo's noise leaves (measured from the
+pixels, not from the fit); while none is, the search runs again on a disk of 0.8 of
+the radius, where a few tilt fringes cross often enough that the background and
+modulation polynomials cannot mimic them, and its seeds are fitted from there out. A
+fit that still misses the noise by far is reported with a warning.
 
 A photo with few fringes carries few Zernike terms: the fit goes to radial order
 ``fringes + 2`` (at most 6, at least 4), where ``fringes`` is the number of fringes the
@@ -58,6 +63,13 @@ SEED_RADII = (0.35, 0.6)  # the first search's disks
 # spherical, which rings at the rim already show
 GROWTH = ((0.35, 6), (0.5, 11), (0.65, 11), (0.8, 11), (FIT_RADIUS, 11))
 SEEDS_PER_DISK = 3
+# where no seed grown from the centre fits as well as the photo's noise allows, the search
+# runs again on this wider disk and its seeds are fitted from there out: tilt fringes
+# that cross a small central disk only once or twice leave the background and
+# modulation polynomials room to mimic them, and a fit grown from there can keep a
+# wrong phase all the way to the rim
+WIDE_SEED_RADIUS = 0.8
+_SEARCH_BLOCK = 4096  # seed-search candidates evaluated at once (memory)
 # a camera's tone curve puts a second harmonic of a fifth of the fringe or less; far more
 # means the fit found half the phase and let the harmonic draw the fringes
 MAX_HARMONIC = 0.4
@@ -202,21 +214,26 @@ def _seed_search(data, x, y, radius: float) -> list[np.ndarray]:
     powers = np.arange(-9.0, 9.0 + 1e-9, power_step)  # fringes of power, edge to centre
     tx, ty, pw = np.meshgrid(tilts, tilts[tilts >= 0], powers, indexing="ij")
     tx, ty, pw = tx.ravel(), ty.ravel(), pw.ravel()
-    # phase in radians: tilt T fringes across the diameter is pi T x; power P is 2 pi P rho^2
-    phi = (np.pi * (tx[:, None] * x[None, :] + ty[:, None] * y[None, :])
-           + 2.0 * np.pi * pw[:, None] * (x * x + y * y)[None, :]).astype(np.float32)
     q = q.astype(np.float32)
     d = d.astype(np.float32)
-    cos_, sin_ = np.cos(phi), np.sin(phi)
-    cos_ -= (cos_ @ q) @ q.T
-    sin_ -= (sin_ @ q) @ q.T
-    g11 = np.einsum("ij,ij->i", cos_, cos_)
-    g22 = np.einsum("ij,ij->i", sin_, sin_)
-    g12 = np.einsum("ij,ij->i", cos_, sin_)
-    p1, p2 = cos_ @ d, sin_ @ d
-    det = np.maximum(g11 * g22 - g12 * g12, 1e-12)
-    explained = (g22 * p1 * p1 - 2 * g12 * p1 * p2 + g11 * p2 * p2) / det
-    del phi, cos_, sin_
+    r2 = (x * x + y * y)[None, :]
+    explained = np.empty(tx.size)
+    # in blocks of candidates: a wide disk's grid holds tens of thousands of them
+    for lo in range(0, tx.size, _SEARCH_BLOCK):
+        sl = slice(lo, lo + _SEARCH_BLOCK)
+        # phase in radians: tilt T fringes across the diameter is pi T x; power P is
+        # 2 pi P rho^2
+        phi = (np.pi * (tx[sl, None] * x[None, :] + ty[sl, None] * y[None, :])
+               + 2.0 * np.pi * pw[sl, None] * r2).astype(np.float32)
+        cos_, sin_ = np.cos(phi), np.sin(phi)
+        cos_ -= (cos_ @ q) @ q.T
+        sin_ -= (sin_ @ q) @ q.T
+        g11 = np.einsum("ij,ij->i", cos_, cos_)
+        g22 = np.einsum("ij,ij->i", sin_, sin_)
+        g12 = np.einsum("ij,ij->i", cos_, sin_)
+        p1, p2 = cos_ @ d, sin_ @ d
+        det = np.maximum(g11 * g22 - g12 * g12, 1e-12)
+        explained[sl] = (g22 * p1 * p1 - 2 * g12 * p1 * p2 + g11 * p2 * p2) / det
     order = np.argsort(-explained)
     picks: list[np.ndarray] = []
     for i in order[:200]:
@@ -339,38 +356,54 @@ def fit_intensity(
     values = (values - mean) / spread
     x_all, y_all, r_all = xu[fit_px], yu[fit_px], rho[fit_px]
 
-    noise = _noise_level(data, usable)
+    noise = _noise_level(data, usable) / spread
+
+    def grow(seed: np.ndarray, growth) -> tuple[np.ndarray | None, float]:
+        c, cost = seed, math.inf
+        for radius, terms in growth:
+            sel = _sample(r_all, radius)
+            c, cost = _fit(values[sel], x_all[sel], y_all[sel], c, terms, cancel)
+        if _harmonic_share(values[sel], x_all[sel], y_all[sel], c) > MAX_HARMONIC:
+            return None, math.inf  # half the phase, its second harmonic drawing the fringes
+        return c, cost
+
+    def fits_to_noise(c: np.ndarray | None, cost: float) -> bool:
+        return c is not None and cost < _expected_misfit(noise, values, x_all, y_all, c)
+
     # 1. seeds: tilt and power on central disks, a subsample of their pixels
     seeds = [_ring_seed(values, r_all)]
     for radius in SEED_RADII:
-        centre = np.flatnonzero(r_all <= radius)
-        sub = centre[::max(1, int(centre.size // 700))]
+        sub = _sample(r_all, radius, 700)
         seeds += _seed_search(values[sub], x_all[sub], y_all[sub], radius)
     report("intensity fit", 0.2)
 
     # 2. each seed grown to the rim with tilt, power and astigmatism; keep the best
     best, best_cost = None, math.inf
     for i, seed in enumerate(seeds):
-        c = seed
-        for radius, terms in GROWTH:
-            sel = np.flatnonzero(r_all <= radius)
-            sel = sel[::max(1, sel.size // 6000)]
-            c, cost = _fit(values[sel], x_all[sel], y_all[sel], c, terms, cancel)
-        if _harmonic_share(values[sel], x_all[sel], y_all[sel], c) > MAX_HARMONIC:
-            continue  # half the phase with its second harmonic standing in for the fringes
+        c, cost = grow(seed, GROWTH)
         if cost < best_cost:
             best, best_cost = c, cost
-        report("intensity fit", 0.2 + 0.5 * (i + 1) / len(seeds))
-        if best_cost < _expected_misfit(noise / spread, values, x_all, y_all, best):
+        report("intensity fit", 0.2 + 0.4 * (i + 1) / len(seeds))
+        if fits_to_noise(best, best_cost):
             break  # as good as the photo's noise allows: no other seed can do better
+    if not fits_to_noise(best, best_cost):
+        # no seed from the centre reached the photo's noise: search the wider disk and
+        # fit its seeds from there out
+        sub = _sample(r_all, WIDE_SEED_RADIUS, 700)
+        wide = tuple(g for g in GROWTH if g[0] >= WIDE_SEED_RADIUS)
+        for seed in _seed_search(values[sub], x_all[sub], y_all[sub], WIDE_SEED_RADIUS):
+            c, cost = grow(seed, wide)
+            if cost < best_cost:
+                best, best_cost = c, cost
+            if fits_to_noise(best, best_cost):
+                break
+    report("intensity fit", 0.7)
 
-    if best is not None and best_cost >= _expected_misfit(noise / spread, values, x_all,
-                                                          y_all, best):
+    if best is not None and not fits_to_noise(best, best_cost):
         # a fit that lost or gained a ring at the rim is a local minimum one fringe of
         # power away (the outer rings crowd there): try either side and keep the better
         radius, terms = GROWTH[-1]
-        sel = np.flatnonzero(r_all <= radius)
-        sel = sel[::max(1, sel.size // 6000)]
+        sel = _sample(r_all, radius)
         for fringe in (1.0, -1.0):
             c = np.array(best, dtype=float)
             c[3] += 2.0 * np.pi * fringe / (2.0 * math.sqrt(3.0))
@@ -391,8 +424,8 @@ def fit_intensity(
     resid = cols_fit @ lin - values
     ne = model.e.shape[1]
     b_fit = model.e @ lin[ne:2 * ne]
-    b_rms = float(np.sqrt(np.mean(b_fit**2)))
-    residual_rms = float(np.sqrt(np.mean(resid**2)) / max(b_rms, 1e-9))
+    residual_rms = float(np.sqrt(np.mean(resid**2))
+                         / max(_modulation_rms(values, x_all, y_all, coef), 1e-9))
     report("intensity fit", 0.9)
 
     # 4. contrast, sign, maps
@@ -424,11 +457,13 @@ def fit_intensity(
         want_negative = (ring_sign == "convex") != bool(invert)
         if (coef[3] < 0) != want_negative:
             coef = -coef
-    expected = _expected_misfit(noise / spread, values, x_all, y_all, coef)
+    expected = _expected_misfit(noise, values, x_all, y_all, coef)
     if float(np.sqrt(np.mean(resid**2))) > 1.5 * expected:
+        allowed = 1.5 * expected / max(_modulation_rms(values, x_all, y_all, coef), 1e-9)
         warnings.append(
             f"the fringe model fits the photo loosely (misfit {residual_rms:.2f} of the "
-            "fringe modulation): check the figures against another photo")
+            f"fringe modulation, the noise allows {allowed:.2f}): the phase found may be "
+            "wrong; check the figures against another photo")
     if fringes < 2.5 and tilt_fringes >= CLOSED_TILT_FRINGES:
         warnings.append(f"only {fringes:.1f} fringes over the aperture: terms beyond radial "
                         f"order {order} are not measured")
@@ -466,6 +501,12 @@ def fit_intensity(
     )
 
 
+def _sample(rho: np.ndarray, radius: float, count: int = 6000) -> np.ndarray:
+    """Indices of about ``count`` fitted pixels evenly spread over the disk ``rho <= radius``."""
+    sel = np.flatnonzero(rho <= radius)
+    return sel[::max(1, sel.size // count)]
+
+
 def _harmonic_share(data, x, y, c) -> float:
     """The second harmonic's amplitude over the fringe's (RMS over the pixels)."""
     model = _Model(data, x, y, c.size)
@@ -492,12 +533,23 @@ def _noise_level(data: np.ndarray, inside: np.ndarray) -> float:
 
 def _expected_misfit(noise: float, data, x, y, c) -> float:
     """The misfit a right fit leaves: the noise, and 2 % of the modulation for the
-    camera's tone curve and terms beyond the fit."""
+    camera's tone curve and terms beyond the fit.
+
+    The modulation is the fit's own, but never more than twice the data's spread: a fit
+    on a wrong phase can swell its modulation and background until they cancel, and its
+    misfit must not then pass for noise.
+    """
+    return 1.5 * math.hypot(noise, 0.02 * _modulation_rms(data, x, y, c))
+
+
+def _modulation_rms(data, x, y, c) -> float:
+    """RMS of the fitted fringe modulation ``b``, at most twice the data's spread (an
+    even modulation ``b`` alone gives the data a spread of ``b / sqrt 2``)."""
     model = _Model(data, x, y, c.size)
     _, _, lin = model.linear(c)
     ne = model.e.shape[1]
     b_rms = float(np.sqrt(np.mean((model.e @ lin[ne:2 * ne]) ** 2)))
-    return 1.5 * math.hypot(noise, 0.02 * b_rms)
+    return min(b_rms, 2.0 * float(np.std(data)))
 
 
 def _fringes_spanned(coef: np.ndarray, x: np.ndarray, y: np.ndarray) -> float:

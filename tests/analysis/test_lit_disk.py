@@ -13,7 +13,11 @@ from flatsight.analysis.loading import load_photo
 from tests.refset.cases import few_fringe_case
 
 
-@pytest.mark.parametrize("kind, seed", [("few", 2), ("closed", 1), ("bent", 0)])
+# closed-0050 and few-0199 have their disks within a sixth of the frame of its border:
+# the closing that fills the dark fringes once joined such a disk to the border, read
+# the whole margin as lit and refused the photo ("not a circle")
+@pytest.mark.parametrize("kind, seed", [("few", 2), ("closed", 1), ("bent", 0),
+                                        ("closed", 50), ("few", 199)])
 def test_the_disk_is_found_within_two_percent_of_its_radius(kind, seed, tmp_path):
     # tests/refset draws the true circle (the soft edge's 50 % point); 2 % of the radius
     # is our limit (common practice: it moves power by under 4 %)
