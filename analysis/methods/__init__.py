@@ -24,7 +24,7 @@ import numpy as np
 from ..aperture import Aperture
 from ..carrier import Spectrum
 from ..demodulation import MapGeometry
-from ..errors import RingSignNeededError, SettingsError, UnanalysablePhotoError
+from ..errors import SettingsError, UnanalysablePhotoError
 
 __all__ = ["METHODS", "METHOD_CHOICES", "RING_SIGNS", "PhaseResult", "run_method"]
 
@@ -155,23 +155,11 @@ def run_method(
     return result
 
 
-# the intensity fit's refusal of closed fringes without a sign, by the words it says;
-# intensity_fit raising RingSignNeededError itself makes this check a no-op
-_SIGN_REFUSAL = "one photo cannot tell convex from concave"
-
-
 def _fit(image, aperture, *, ring_sign, **options) -> PhaseResult:
-    """The intensity fit, its refusal for want of a stated sign a RingSignNeededError."""
+    """The intensity fit (closed fringes without a stated sign raise RingSignNeededError)."""
     from . import intensity_fit
 
-    try:
-        return intensity_fit.run(image, aperture, ring_sign=ring_sign, **options)
-    except RingSignNeededError:
-        raise
-    except UnanalysablePhotoError as exc:
-        if ring_sign is None and _SIGN_REFUSAL in str(exc):
-            raise RingSignNeededError(str(exc)) from None
-        raise
+    return intensity_fit.run(image, aperture, ring_sign=ring_sign, **options)
 
 
 def _replace_reason(result: PhaseResult, reason: str) -> PhaseResult:

@@ -48,7 +48,7 @@ from scipy.optimize import least_squares
 
 from ..aperture import Aperture
 from ..carrier import Spectrum, crop_aperture, radius_grid, spectrum_view
-from ..errors import UnanalysablePhotoError
+from ..errors import RingSignNeededError, UnanalysablePhotoError
 from ..extension import check_cancel
 from ..zernike import zernike_basis
 
@@ -447,7 +447,7 @@ def fit_intensity(
             coef = -coef
     else:
         if ring_sign not in ("convex", "concave"):
-            raise UnanalysablePhotoError(
+            raise RingSignNeededError(
                 f"closed fringes in {photo_name}: one photo cannot tell convex from concave; "
                 "state it with --ring-sign convex or --ring-sign concave (the push test: see "
                 "flatsight measure --help)")
@@ -578,8 +578,6 @@ def run(
     from . import PhaseResult
 
     if aperture.shape is not None:
-        from ..errors import UnanalysablePhotoError
-
         raise UnanalysablePhotoError(
             f"{photo_name}: the intensity fit for few or closed fringes measures round "
             "parts seen square-on only; photograph this outline with ten or more tilt "

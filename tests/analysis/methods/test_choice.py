@@ -50,27 +50,6 @@ def test_closed_rings_without_a_sign_are_refused_as_needing_one(photo_set):
     assert isinstance(info.value, UnanalysablePhotoError) and "\n" not in str(info.value)
 
 
-def test_only_the_fits_sign_refusal_becomes_ring_sign_needed(monkeypatch):
-    from flatsight.analysis import methods
-    from flatsight.analysis.methods import intensity_fit
-
-    said = {}
-
-    def refuse(image, aperture, **options):
-        raise UnanalysablePhotoError(said["message"])
-
-    monkeypatch.setattr(intensity_fit, "run", refuse)
-    image, aperture = np.full((64, 64), 0.5), Aperture(31.5, 31.5, 24.0)
-    said["message"] = ("closed fringes in x.png: one photo cannot tell convex from concave; "
-                       "state it with --ring-sign convex or --ring-sign concave")
-    with pytest.raises(RingSignNeededError):
-        methods.run_method(image, aperture, method="intensity-fit")
-    said["message"] = "no fringe pattern found in x.png: check the lamp"
-    with pytest.raises(UnanalysablePhotoError) as info:
-        methods.run_method(image, aperture, method="intensity-fit")
-    assert type(info.value) is UnanalysablePhotoError
-
-
 @pytest.mark.parametrize("bad", [dict(method="takeda"), dict(ring_sign="flat")])
 def test_unknown_method_or_ring_sign_is_a_settings_error(bad):
     with pytest.raises(SettingsError):
