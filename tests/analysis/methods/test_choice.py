@@ -88,3 +88,28 @@ def test_an_outline_misread_on_closed_rings_falls_back_to_the_lit_disk(tmp_path,
                                       ring_sign=sign))
     assert m.aperture.shape is None and m.quality.method == "intensity-fit"
     assert abs(m.aperture.radius_px / r - 1.0) < 0.02  # the lit disk's own limit
+
+
+@pytest.mark.slow
+def test_a_contrast_circle_the_lit_edge_disputes_is_warned(tmp_path, monkeypatch):
+    # closed rings (tests/refset, an independent generator): the circle found by fringe
+    # contrast agrees with the lit disk's edge, and no warning is given; a circle 4 %
+    # small (as on a wide soft edge where no fringe crosses the rim) is warned about,
+    # since power scales with the radius squared
+    from flatsight.analysis import outline
+
+    case = few_fringe_case("closed", 4, megapixels=(0.3, 0.6))
+    path = case.save(tmp_path)
+    settings = MeasureSettings(wavelength_nm=case.photo.wavelength_nm, ring_sign="convex")
+    m = measure(path, settings)
+    assert m.quality.method == "intensity-fit"
+    assert not any("lit disk" in w for w in m.warnings)
+    found = outline.find_part_aperture
+
+    def small(image, **kw):
+        a = found(image, **kw)
+        return Aperture(a.center_x_px, a.center_y_px, 0.96 * a.radius_px)
+
+    monkeypatch.setattr(outline, "find_part_aperture", small)
+    m = measure(path, settings)
+    assert any("lit disk" in w and "--aperture" in w for w in m.warnings)
