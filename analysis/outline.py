@@ -44,7 +44,7 @@ from scipy.optimize import least_squares
 
 from .aperture import Aperture, Exclusion, find_aperture
 from .errors import UnanalysablePhotoError
-from .shapes import Annulus, Ellipse, Polygon, Rectangle, Shape
+from .shapes import Annulus, CutCircle, Ellipse, Polygon, Rectangle, Shape
 
 __all__ = ["find_outline", "find_part_aperture"]
 
@@ -77,12 +77,34 @@ def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo") -> A
         return circle
     if found.shape is None:
         return _with_hole(circle, found.hole)
+    if isinstance(found.shape, CutCircle):
+        # flats are straight runs well inside the circle, which the circle finder's
+        # robust fit passes over: its circle, placed on the full photo, with the flats
+        return _with_hole(Aperture.of_shape(_on_circle(found.shape, circle)), found.hole)
     # the circle finder's circle stands unless the outline leaves it clearly
     off = np.abs(np.hypot(found.x - circle.center_x_px, found.y - circle.center_y_px)
                  - circle.radius_px)
     if float(np.median(off)) <= 2.0 * found.miss_px:
         return _with_hole(circle, found.hole)
     return _with_hole(Aperture.of_shape(found.shape), found.hole)
+
+
+def _on_circle(cut: CutCircle, circle: Aperture) -> CutCircle:
+    """The cut circle on the circle finder's circle where the two agree (within 1.5 % of
+    the radius), its flats' lines left where they are; else the cut circle as found."""
+    cx, cy, r = circle.center_x_px, circle.center_y_px, circle.radius_px
+    if (math.hypot(cx - cut.center_x_px, cy - cut.center_y_px) > 0.015 * r
+            or abs(r - cut.radius_px) > 0.015 * r):
+        return cut
+    flats = []
+    for angle, dist in cut.flats:
+        a = math.radians(angle)
+        # the same line about the new centre (normal (cos a, sin a), y up)
+        flats.append((angle, dist + math.cos(a) * (cut.center_x_px - cx)
+                      + math.sin(a) * (cy - cut.center_y_px)))
+    if not all(0.0 < d < r for _, d in flats):
+        return cut
+    return CutCircle(cx, cy, r, tuple(flats))
 
 
 def _with_hole(aperture: Aperture, hole: tuple[float, float, float] | None) -> Aperture:
@@ -202,6 +224,16 @@ def _outline(image: np.ndarray) -> _Found:
             return False
         return not (isinstance(shape, Rectangle) and len(polygon[0].corners_px) == 4)
 
+    cut = _cut_fit(x, y, tolerance)
+    # a circle's arcs and a flat's line hug the outline to a fraction of a pixel; a
+    # near-round polygon whose deepest sides pass for flats leaves more, and its own fit
+    # beats it
+    if cut is not None and cut[1] <= 0.5 * tolerance and not beaten(*cut):
+        shape = _scaled(cut[0], factor, offset)
+        if outside < inside / 3.0:
+            shape = _refine_flats(pixels, shape, factor * period, wave,
+                                  max_move_px=factor * (tolerance + 1.0))
+        return _Found(shape, factor * cut[1], x_photo, y_photo, hole)
     if (miss_e <= tolerance and fitted_ellipse.b_px / fitted_ellipse.a_px >= _ROUND
             and not beaten(fitted_ellipse, miss_e)):
         return _Found(None, factor * miss_e, x_photo, y_photo, hole)
@@ -493,16 +525,140 @@ def _refine_sides(pixels: np.ndarray, shape: Shape, period: float,
     return Polygon(tuple((float(x), float(y)) for x, y in new))
 
 
+def _refine_flats(pixels: np.ndarray, shape: CutCircle, period: float,
+                  wave: tuple[float, float], *, max_move_px: float) -> CutCircle:
+    """The circle with each flat moved to the photo's 50 % edge and turned to it, as
+    ``_refine_sides`` does a polygon's sides; a flat whose edge is not found stays."""
+    flats = []
+    for angle, dist in shape.flats:
+        a = math.radians(angle)
+        n = np.array([math.cos(a), -math.sin(a)])  # outward, photo axes (y down)
+        t = np.array([n[1], -n[0]])
+        half = math.sqrt(max(shape.radius_px ** 2 - dist ** 2, 0.0))
+        mid = np.array([shape.center_x_px, shape.center_y_px]) + dist * n
+        p, q = mid - half * t, mid + half * t
+        first = _side_step(pixels, p, q, -n, period, wave, max_move_px, (0.15, 0.5))
+        second = _side_step(pixels, p, q, -n, period, wave, max_move_px, (0.5, 0.85))
+        if first is not None and second is not None:
+            move = 0.5 * (first + second)
+            slope = (second - first) / (0.35 * 2.0 * half)
+            # the far end (toward q) further out: the normal turns toward -t
+            turned = n - slope * t
+            turned /= np.hypot(*turned)
+            angle = math.degrees(math.atan2(-turned[1], turned[0]))
+            dist = float(np.dot(mid + move * n - [shape.center_x_px, shape.center_y_px],
+                                turned))
+        else:
+            whole = _side_step(pixels, p, q, -n, period, wave, max_move_px, (0.15, 0.85))
+            dist += 0.0 if whole is None else whole
+        flats.append((angle, dist))
+    return replace(shape, flats=tuple(flats))
+
+
 def _params(shape: Shape) -> np.ndarray:
     if isinstance(shape, Polygon):
         return np.asarray(shape.corners_px, dtype=float).ravel()
+    if isinstance(shape, CutCircle):
+        return np.array([shape.center_x_px, shape.center_y_px, shape.radius_px]
+                        + [v for flat in shape.flats for v in flat], dtype=float)
     return np.array(list(shape.params().values()), dtype=float)
 
 
 def _rebuild(like: Shape, p: np.ndarray) -> Shape:
     if isinstance(like, Polygon):
         return Polygon(tuple((float(a), float(b)) for a, b in p.reshape(-1, 2)))
+    if isinstance(like, CutCircle):
+        return CutCircle(float(p[0]), float(p[1]), float(p[2]),
+                         tuple((float(a), float(d)) for a, d in p[3:].reshape(-1, 2)))
     return type(like)(*(float(v) for v in p))
+
+
+def _cut_fit(x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[CutCircle, float] | None:
+    """A round outline with straight flats (or a straight cut-off), and its median miss;
+    None when the outline has no flat.
+
+    A circle is fitted to the outline by least squares, the points lying well inside it
+    (a flat's) dropped and the fit repeated. Each run of consecutive outline points more
+    than two tolerances inside the circle, long enough to be a flat (its chord at
+    least 0.3 of the radius), is fitted by a straight line (total least squares); it is a
+    flat when the run hugs that line as the outline hugs a side. Most of the outline must
+    still lie on the circle, so a polygon is not read as a circle with flats, and an
+    ellipse's arcs inside the circle are curved, not straight.
+    """
+    if x.size < 40:
+        return None
+    keep = np.ones(x.size, dtype=bool)
+    for _ in range(3):
+        cx, cy, r = _circle_lsq(x[keep], y[keep])
+        e = np.hypot(x - cx, y - cy) - r
+        keep = e > -2.0 * tolerance
+        if keep.sum() < 0.4 * x.size:
+            return None
+    cx, cy, r = _circle_lsq(x[keep], y[keep])
+    e = np.hypot(x - cx, y - cy) - r
+    if float(np.mean(np.abs(e) <= 1.5 * tolerance)) < 0.4:
+        return None
+    deep = e < -2.0 * tolerance
+    if not deep.any() or deep.all():
+        return None
+    # a flat's run is not broken by a point or two that noise lifts above the threshold
+    tiled = ndi.binary_closing(np.tile(deep, 3), structure=np.ones(7, dtype=bool))
+    deep = tiled[x.size:2 * x.size]
+    if deep.all():
+        return None
+    # runs of deep points around the closed outline, starting where one ends
+    start = int(np.flatnonzero(~deep)[0])
+    order = np.roll(np.arange(x.size), -start)
+    flats = []
+    run: list[int] = []
+    for i in np.append(order, order[0]):
+        if deep[i]:
+            run.append(int(i))
+            continue
+        if run:
+            if math.hypot(x[run[-1]] - x[run[0]], y[run[-1]] - y[run[0]]) >= 0.3 * r:
+                flat = _flat_of_run(x[run], y[run], cx, cy, r, tolerance)
+                if flat is None:
+                    return None  # a long dent that is no flat: not this shape
+                flats.append(flat)
+            run = []
+    if not flats or len(flats) > 4:
+        return None
+    start_shape = CutCircle(cx, cy, r, tuple(flats))
+    shape, miss = _fit(start_shape, x, y, tolerance)
+    if (not isinstance(shape, CutCircle) or miss > tolerance
+            or _far_share(shape, x, y, tolerance) > 0.05
+            or not all(0.3 * shape.radius_px < d < shape.radius_px - 2.0 * tolerance
+                       for _, d in shape.flats)):
+        return None
+    return shape, miss
+
+
+def _flat_of_run(x: np.ndarray, y: np.ndarray, cx: float, cy: float, r: float,
+                 tolerance: float) -> tuple[float, float] | None:
+    """A flat's ``(angle_deg, distance)`` (outward normal, y up) from a run of outline
+    points inside the circle, or None when the run is too short or not straight."""
+    if x.size < 8:
+        return None
+    px, py = x - cx, cy - y  # y up
+    mx, my = float(px.mean()), float(py.mean())
+    _, _, vt = np.linalg.svd(np.column_stack([px - mx, py - my]), full_matrices=False)
+    n = vt[1]  # the line's normal: the direction of least spread
+    if n[0] * mx + n[1] * my < 0:
+        n = -n  # outward, away from the centre
+    off = (px - mx) * n[0] + (py - my) * n[1]
+    if float(np.median(np.abs(off))) > tolerance or float(np.percentile(np.abs(off), 95)) \
+            > 3.0 * tolerance:
+        return None
+    return math.degrees(math.atan2(n[1], n[0])), float(n[0] * mx + n[1] * my)
+
+
+def _circle_lsq(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
+    """The circle through points by linear least squares (the algebraic fit of Kasa,
+    IEEE Trans. Instrum. Meas. 25, 8, 1976): ``x^2 + y^2 = 2 a x + 2 b y + c``."""
+    design = np.column_stack([2.0 * x, 2.0 * y, np.ones_like(x)])
+    (a, b, c), *_ = np.linalg.lstsq(design, x * x + y * y, rcond=None)
+    return float(a), float(b), float(math.sqrt(max(c + a * a + b * b, 1e-12)))
 
 
 def _fit(start: Shape, x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[Shape, float]:
@@ -599,6 +755,10 @@ def _polygon_corners(x: np.ndarray, y: np.ndarray, tolerance: float) -> Polygon 
 
 def _scaled(shape: Shape, factor: int, offset: float) -> Shape:
     """A shape found on the binned image, in photo pixels."""
+    if isinstance(shape, CutCircle):
+        return CutCircle(factor * shape.center_x_px + offset,
+                         factor * shape.center_y_px + offset, factor * shape.radius_px,
+                         tuple((a, factor * d) for a, d in shape.flats))
     if isinstance(shape, Polygon):
         return Polygon(tuple((factor * a + offset, factor * b + offset)
                              for a, b in shape.corners_px))

@@ -1,4 +1,4 @@
-"""Part outlines other than a plain circle: ellipse, rectangle, polygon and annulus.
+"""Part outlines other than a plain circle: ellipse, rectangle, polygon, annulus, flats.
 
 A circular part needs none of this: ``Aperture`` alone describes it. Any other outline
 is one of the classes below, carried by ``Aperture.shape``; the aperture's own centre
@@ -23,7 +23,9 @@ The command-line form (``--aperture``): ``X,Y,R`` or ``circle:X,Y,R`` (today's c
 ``ellipse:CX,CY,A,B,ANGLE`` (semi-axes A >= B, ANGLE of the A axis in degrees
 counter-clockwise as the photo is seen), ``rect:CX,CY,W,H,ANGLE`` (full width W along
 ANGLE, height H across it), ``poly:X1,Y1;X2,Y2;X3,Y3;...`` (corners in order, at
-least three) and ``annulus:CX,CY,R,RIN`` (outer and inner radius), all in photo pixels.
+least three), ``annulus:CX,CY,R,RIN`` (outer and inner radius) and
+``cut:CX,CY,R;ANGLE,DIST;...`` (a circle with flats: each flat's outward direction in
+degrees and its distance from the centre), all in photo pixels.
 """
 
 from __future__ import annotations
@@ -33,12 +35,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SHAPE_FORMS", "Annulus", "Ellipse", "Polygon", "Rectangle", "Shape",
+__all__ = ["SHAPE_FORMS", "Annulus", "CutCircle", "Ellipse", "Polygon", "Rectangle", "Shape",
            "circle_text", "parse_shape", "shape_from_dict", "shape_words"]
 
 #: the forms ``--aperture`` takes, for help texts and error messages
 SHAPE_FORMS = ("X,Y,R", "circle:X,Y,R", "ellipse:CX,CY,A,B,ANGLE", "rect:CX,CY,W,H,ANGLE",
-               "poly:X1,Y1;X2,Y2;X3,Y3;...", "annulus:CX,CY,R,RIN")
+               "poly:X1,Y1;X2,Y2;X3,Y3;...", "annulus:CX,CY,R,RIN",
+               "cut:CX,CY,R;ANGLE,DIST;...")
 _MAX_PX = 1_000_000  # no photo Flatsight reads is wider
 
 
@@ -372,6 +375,86 @@ class Annulus(Shape):
                 f"{_fmt(2 * self.inner_radius_px)} px")
 
 
+@dataclass(frozen=True)
+class CutCircle(Shape):
+    """A round part with straight flats ground on its edge (or a straight cut-off).
+
+    Each flat is ``(angle_deg, distance_px)``: the chord whose outward normal points
+    ``angle_deg`` counter-clockwise from x as seen (y up), ``distance_px`` from the
+    circle's centre. The fit's coordinates and power are the circle's own: power is the
+    best-fit sphere's sag from the circle's centre to its rim, as for the round part
+    before the flats were ground.
+    """
+
+    center_x_px: float
+    center_y_px: float
+    radius_px: float
+    flats: tuple[tuple[float, float], ...]
+    kind = "cut"
+
+    def __post_init__(self):
+        object.__setattr__(self, "flats", tuple(
+            (float(a) % 360.0, float(d)) for a, d in self.flats))
+
+    @property
+    def bounding_radius_px(self) -> float:
+        return self.radius_px
+
+    def _beyond(self, x, y) -> np.ndarray:
+        """How far (px) each point lies beyond the circle or a flat's line, the largest."""
+        px, py = _up(x, y, self.center_x_px, self.center_y_px)
+        out = np.hypot(px, py) - self.radius_px
+        for angle, dist in self.flats:
+            a = math.radians(angle)
+            out = np.maximum(out, px * math.cos(a) + py * math.sin(a) - dist)
+        return out
+
+    def inside(self, x, y):
+        return self._beyond(x, y) <= 0.0
+
+    def edge_distance_px(self, x, y):
+        # exact inside and along the arcs and flats, a little short beyond a corner
+        return self._beyond(x, y)
+
+    def outline(self, points: int = 256):
+        # the edge seen from the centre: the circle, or a flat's line where nearer
+        t = np.linspace(0.0, 2.0 * np.pi, points + 1)
+        ends = [math.radians(a) + side * math.acos(min(d / self.radius_px, 1.0))
+                for a, d in self.flats for side in (-1.0, 1.0)]
+        t = np.sort(np.concatenate([t, np.mod(ends, 2.0 * np.pi)]))  # the corners too
+        reach = np.full_like(t, self.radius_px)
+        for angle, dist in self.flats:
+            c = np.cos(t - math.radians(angle))
+            with np.errstate(divide="ignore"):
+                reach = np.where(c > 0, np.minimum(reach, dist / np.where(c > 0, c, 1.0)),
+                                 reach)
+        return [np.column_stack([self.center_x_px + reach * np.cos(t),
+                                 self.center_y_px - reach * np.sin(t)])]
+
+    def params(self):
+        return {"center_x_px": self.center_x_px, "center_y_px": self.center_y_px,
+                "radius_px": self.radius_px}
+
+    def to_text(self):
+        return ("cut:" + ",".join(_fmt(v) for v in self.params().values()) + "".join(
+            f";{_fmt(a)},{_fmt(d)}" for a, d in self.flats))
+
+    def to_dict(self):
+        return {"kind": self.kind, **{k: float(v) for k, v in self.params().items()},
+                "flats": [{"angle_deg": float(a), "distance_px": float(d)}
+                          for a, d in self.flats]}
+
+    def moved(self, dx=0.0, dy=0.0, grow=1.0, turn_deg=0.0, stretch=1.0):
+        return CutCircle(self.center_x_px + dx, self.center_y_px + dy,
+                         self.radius_px * grow,
+                         tuple((a + turn_deg, d * grow) for a, d in self.flats))
+
+    def describe(self):
+        count = len(self.flats)
+        return (f"round part {_fmt(2 * self.radius_px)} px across with {count} "
+                f"flat{'s' if count != 1 else ''}")
+
+
 # --- reading and writing ---------------------------------------------------------------
 
 
@@ -431,6 +514,19 @@ def parse_shape(text: str) -> tuple[float, float, float] | Shape:
             raise ValueError(f"in {text!r} the inner radius must be at least 0 and less "
                              "than the outer")
         return Annulus(cx, cy, r, rin)
+    if kind == "cut":
+        form = "cut:CX,CY,R;ANGLE,DIST;..."
+        pieces = [p for p in body.split(";") if p.strip()]
+        if len(pieces) < 2:
+            raise ValueError(f"{text!r} is not {form} (the circle, then at least one flat)")
+        cx, cy, r = _numbers(text, pieces[0], 3, form)
+        flats = tuple(tuple(_numbers(text, p, 2, form)) for p in pieces[1:])
+        if r <= 0:
+            raise ValueError(f"radius in {text!r} must be positive")
+        if not all(0 < d < r for _, d in flats):
+            raise ValueError(f"in {text!r} each flat's distance from the centre must be "
+                             "more than 0 and less than the radius")
+        return CutCircle(cx, cy, r, flats)
     raise ValueError(f"{text!r}: unknown aperture shape {kind!r}; use one of "
                      + ", ".join(SHAPE_FORMS))
 
@@ -472,4 +568,8 @@ def shape_from_dict(d: dict) -> Shape:
     if kind == "annulus":
         return Annulus(d["center_x_px"], d["center_y_px"], d["radius_px"],
                        d["inner_radius_px"])
+    if kind == "cut":
+        return CutCircle(d["center_x_px"], d["center_y_px"], d["radius_px"],
+                         tuple((float(f["angle_deg"]), float(f["distance_px"]))
+                               for f in d["flats"]))
     raise ValueError(f"unknown aperture shape {kind!r}")

@@ -1,12 +1,12 @@
 """Accuracy on parts that are not a circle seen square-on, outline found automatically.
 
-    python benchmarks/shape_accuracy.py [--seeds 200:230] [--kinds ellipse,rect,poly,annulus]
+    python benchmarks/shape_accuracy.py [--seeds 200:230] [--kinds ellipse,rect,poly,annulus,cut]
                                         [--jobs N]
 
 The photos and their truth come from ``tests/refset/shaped.py`` (an independent
 generator: a round part seen 15-35 deg off axis, rectangles 1:1 to 4:1 at any rotation,
-convex polygons of 5 to 8 corners and rings with a dark centre hole 20-45 % of their
-diameter; the truth is direct quadrature, or a direct sum on a fine grid, over the
+convex polygons of 5 to 8 corners, rings with a dark centre hole 20-45 % of their
+diameter and round parts with one or two flats 75-95 % of the radius from the centre; the truth is direct quadrature, or a direct sum on a fine grid, over the
 part's real area). Each photo is
 measured by ``flatsight.analysis.pipeline.measure`` with nothing but the wavelength
 given, and the figures compared with the truth: RMS within max(2 nm, 5 %) is the
@@ -57,7 +57,7 @@ def _measure(job):
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seeds", default="200:230", help="first:last (last excluded)")
-    ap.add_argument("--kinds", default="ellipse,rect,poly,annulus")
+    ap.add_argument("--kinds", default="ellipse,rect,poly,annulus,cut")
     ap.add_argument("--jobs", type=int, default=2)
     args = ap.parse_args(argv)
     lo, hi = (int(v) for v in args.seeds.split(":"))

@@ -201,6 +201,33 @@ SAMPLES = [
         ),
     ),
     dict(
+        # a round flat with a locating flat ground on its edge (a straight cut-off)
+        file="BW-FL-0605_hene.png",
+        part="flat, 70 mm, grade lambda/10, with a locating flat on its edge",
+        serial="BW-FL-0605",
+        diameter_mm=70.0,
+        operator="Tamsin Ode",
+        station="bench-2",
+        lamp="hene",
+        bit_depth=8,
+        shape=(720, 960),
+        outline="cut:478,362,290;250,240",  # the flat 240 px from the centre, lower left
+        surface=dict(zernike_nm={4: 16.0, 5: -4.0, 8: 3.0}, ripple_nm=0.5, ripple_cycles=5.0),
+        photo=dict(
+            fringes=16.0,
+            angle_deg=35.0,
+            visibility=0.7,
+            illumination=0.2,
+            surround="dark",
+            gamma=0.75,
+            noise=0.012,
+            dust=2,
+            edge_px=2.5,
+            mount_ring=False,
+            seed=605,
+        ),
+    ),
+    dict(
         file="BW-TP-0031_hene.tif",
         part="test plate, 150 mm, grade lambda/20",
         serial="BW-TP-0031",

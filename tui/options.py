@@ -120,12 +120,14 @@ APERTURE_HELP = (
     "ellipse:CX,CY,A,B,ANGLE a round part photographed at an angle (semi-axes A >= B, "
     "ANGLE of the A axis; measured over the part's own circle); rect:CX,CY,W,H,ANGLE a "
     "rectangle (W along ANGLE); poly:X1,Y1;X2,Y2;X3,Y3;... corners in order; "
-    "annulus:CX,CY,R,RIN a ring")
+    "annulus:CX,CY,R,RIN a ring; cut:CX,CY,R;ANGLE,DIST;... a circle with flats (each "
+    "flat's outward direction and its distance from the centre)")
 
 
 def parse_aperture(text: str):
     """An ``--aperture`` value as an ``Aperture``: today's ``X,Y,R`` circle, or a shape
-    (``analysis.shapes``: ``ellipse:``, ``rect:``, ``poly:``, ``annulus:``, ``circle:``)."""
+    (``analysis.shapes``: ``ellipse:``, ``rect:``, ``poly:``, ``annulus:``, ``cut:``,
+    ``circle:``)."""
     from ..analysis.aperture import Aperture
     from ..analysis.shapes import parse_shape
 

@@ -8,6 +8,7 @@ import pytest
 from flatsight.analysis.aperture import Aperture
 from flatsight.analysis.shapes import (
     Annulus,
+    CutCircle,
     Ellipse,
     Polygon,
     Rectangle,
@@ -20,6 +21,7 @@ from flatsight.analysis.zernike import aperture_basis, orthonormalized, zernike_
 @pytest.mark.parametrize("text", [
     "ellipse:400,300,250,200,30", "rect:400,300,500,125,112.5",
     "poly:100,100;500,120;480,400;90,380", "annulus:400,300,250,60",
+    "cut:400,300,250;30,220;210,230.5",
 ])
 def test_text_and_record_forms_round_trip(text):
     shape = parse_shape(text)
@@ -38,6 +40,9 @@ def test_a_plain_circle_keeps_todays_form():
     ("poly:1,2;3,4", "three corners"),
     ("poly:0,0;1,1;2,2", "no area"),
     ("annulus:100,100,50,60", "inner radius"),
+    ("cut:100,100,50", "at least one flat"),
+    ("cut:100,100,50;0,60", "less than the radius"),
+    ("cut:100,100,50;0", "cut:CX,CY,R;ANGLE,DIST"),
     ("hexagon:1,2,3", "unknown aperture shape"),
     ("ellipse:1,2,3,x,5", "numbers"),
     ("rect:1,2,3,4,nan", "at most"),
@@ -64,11 +69,28 @@ def test_inside_and_edge_distance_agree_for_every_shape():
     yy, xx = np.mgrid[0:200, 0:300].astype(float)
     for shape in (Ellipse(150, 100, 90, 60, 20), Rectangle(150, 100, 200, 60, 30),
                   Polygon(((40, 40), (260, 60), (200, 170), (60, 150))),
-                  Annulus(150, 100, 90, 30)):
+                  Annulus(150, 100, 90, 30), CutCircle(150, 100, 90, ((20, 70), (250, 80)))):
         inside = shape.inside(xx, yy)
         d = shape.edge_distance_px(xx, yy)
         assert inside.any() and not inside.all()
         assert np.all(d[inside] <= 1e-9) and np.all(d[~inside] >= -1e-9)
+
+
+def test_a_circle_with_a_flat_has_the_segment_area_cut_off():
+    # a circle of radius R with a flat d from the centre loses the circular segment
+    # R^2 acos(d / R) - d sqrt(R^2 - d^2) (the segment's area, handbook geometry, common
+    # practice); counted over pixel centres to within 0.5 %
+    r, d = 100.0, 60.0
+    cut = CutCircle(150.0, 150.0, r, ((90.0, d),))  # the flat across the top (y up)
+    yy, xx = np.mgrid[0:300, 0:300].astype(float)
+    segment = r * r * math.acos(d / r) - d * math.sqrt(r * r - d * d)
+    assert cut.inside(xx, yy).sum() == pytest.approx(math.pi * r * r - segment, rel=0.005)
+    # the flat is at the top of the photo: y = 150 - 60 = 90 px, the rows above it out
+    assert not cut.inside(150.0, 89.0) and cut.inside(150.0, 91.0)
+    # the drawn outline runs along the flat between its two corners
+    (line,) = cut.outline(128)
+    on_flat = np.isclose(line[:, 1], 90.0)
+    assert np.ptp(line[on_flat, 0]) == pytest.approx(2 * math.sqrt(r * r - d * d), abs=1e-6)
 
 
 def test_polygon_area_and_centre_by_shoelace():

@@ -1,6 +1,6 @@
 """Fringe photos of parts that are not a circle square-on, and their truth figures.
 
-Two kinds, rendered and judged with no project code:
+Five kinds, rendered and judged with no project code:
 
 * ``ellipse``: a round part photographed ``view_deg`` off its axis. The surface is defined
   on the part's unit circle; a photo point is taken back to the part by undoing the
@@ -19,6 +19,11 @@ Two kinds, rendered and judged with no project code:
 * ``poly``: a convex polygon of 5 to 8 corners (``corners_px``: offsets from the photo
   centre, y up). The surface is defined over the disk through its farthest corner.
 * ``annulus``: a ring (``radius_px``, ``inner_px``), the surface over its outer disk.
+* ``cut``: a round part with one or two flats ground on its edge (``radius_px``;
+  ``flats``, each the outward direction of its normal in degrees, y up, and its distance
+  from the circle's centre), the surface over the circle. Its power is taken from the
+  circle's centre to its rim (the part before the flats were ground); the others' from
+  the part's centre of area.
 
 The polygon's and the annulus' truth is a direct sum over a fine square grid of points
 on the part (:func:`area_truth`, about 1.7 million points, each standing for its small
@@ -66,6 +71,13 @@ def _part_coordinates(kind: str, part: dict, px: np.ndarray, py: np.ndarray):
         r, inner = part["radius_px"], part["inner_px"]
         rho = np.hypot(px, py)
         return px / r, py / r, np.maximum(rho - r, inner - rho)
+    if kind == "cut":
+        r = part["radius_px"]
+        dist = np.hypot(px, py) - r
+        for angle, off in part["flats"]:
+            a = math.radians(angle)
+            dist = np.maximum(dist, px * math.cos(a) + py * math.sin(a) - off)
+        return px / r, py / r, dist
     w, h, angle = part["width_px"], part["height_px"], part["angle_deg"]
     half_diag = 0.5 * math.hypot(w, h)
     u, v = _turn(px, py, -angle)
@@ -92,7 +104,7 @@ def _extent(kind: str, part: dict, angle_deg: float) -> float:
         b = a * math.cos(math.radians(part["view_deg"]))
         t = math.radians(angle_deg - part["axis_deg"])
         return 2.0 * math.hypot(a * math.cos(t), b * math.sin(t))
-    if kind == "annulus":
+    if kind in ("annulus", "cut"):
         return 2.0 * part["radius_px"]
     if kind == "poly":
         c = np.asarray(part["corners_px"], dtype=float)
@@ -135,7 +147,7 @@ def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960
 
 def _reach(kind: str, part: dict) -> float:
     """The radius of the disk the surface is defined over (px)."""
-    if kind in ("ellipse", "annulus"):
+    if kind in ("ellipse", "annulus", "cut"):
         return part["radius_px"]
     if kind == "poly":
         c = np.asarray(part["corners_px"], dtype=float)
@@ -165,9 +177,9 @@ def _figures(x, y, values, weight, centre) -> dict:
 
 
 def area_truth(surface: RefSurface, kind: str, part: dict, points: int = 1500) -> dict:
-    """Figures of ``surface`` over a polygon or annulus by a direct sum on a fine grid
-    (``points`` across the part's disk; each inside point weighs alike), about the
-    part's centre of area."""
+    """Figures of ``surface`` over a polygon, annulus or cut circle by a direct sum on a
+    fine grid (``points`` across the part's disk; each inside point weighs alike), about
+    the part's centre of area (a cut circle's: its circle's centre)."""
     reach = _reach(kind, part)
     step = 2.0 * reach / points
     g = (np.arange(points) + 0.5) * step - reach
@@ -176,7 +188,7 @@ def area_truth(surface: RefSurface, kind: str, part: dict, points: int = 1500) -
     on = dist <= 0.0
     x, y = xu[on], yu[on]
     values = surface.height_nm(x, y)
-    centre = (float(x.mean()), float(y.mean()))
+    centre = (0.0, 0.0) if kind == "cut" else (float(x.mean()), float(y.mean()))
     return _figures(x, y, values, np.ones_like(x), centre)
 
 
@@ -211,9 +223,11 @@ class ShapedCase:
 def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
                        aspect: float | None = None, scale: float = 1.0) -> ShapedCase:
     """A random ellipse (15-35 deg of view), rectangle (1:1 to 4:1, any rotation), convex
-    polygon (5 to 8 corners) or annulus (hole 20-45 % of the diameter) on a 720 x 960
+    polygon (5 to 8 corners), annulus (hole 20-45 % of the diameter) or circle with one
+    or two flats (each 75-95 % of the radius from the centre) on a 720 x 960
     photo (times ``scale``); ``view_deg`` or ``aspect`` fix that one draw."""
-    rng = np.random.default_rng([seed, {"ellipse": 1, "rect": 2, "poly": 3, "annulus": 4}[kind]])
+    rng = np.random.default_rng([seed, {"ellipse": 1, "rect": 2, "poly": 3, "annulus": 4,
+                                  "cut": 5}[kind]])
     wavelength = float(rng.choice([632.8, 589.3, 546.07]))
     fringes = float(rng.uniform(12.0, 24.0))
     surface = random_surface(rng, wavelength_nm=wavelength, fringes=fringes)
@@ -229,6 +243,15 @@ def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
     elif kind == "annulus":
         radius = scale * float(rng.uniform(230, 320))
         part = {"radius_px": radius, "inner_px": radius * float(rng.uniform(0.2, 0.45))}
+        answer = area_truth(surface, kind, part)
+    elif kind == "cut":
+        radius = scale * float(rng.uniform(230, 320))
+        first = float(rng.uniform(0, 360))
+        flats = [(first, radius * float(rng.uniform(0.75, 0.95)))]
+        if rng.uniform() < 0.6:  # a second flat: opposite the first, or anywhere apart
+            second = first + (180.0 if rng.uniform() < 0.5 else float(rng.uniform(70, 290)))
+            flats.append((second % 360.0, radius * float(rng.uniform(0.75, 0.95))))
+        part = {"radius_px": radius, "flats": tuple(flats)}
         answer = area_truth(surface, kind, part)
     elif kind == "poly":
         from scipy.spatial import ConvexHull
