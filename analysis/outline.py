@@ -226,9 +226,9 @@ def _outline(image: np.ndarray) -> _Found:
 
     cut = _cut_fit(x, y, tolerance)
     # a circle's arcs and a flat's line hug the outline to a fraction of a pixel; a
-    # near-round polygon whose deepest sides pass for flats leaves more, and its own fit
-    # beats it
-    if cut is not None and cut[1] <= 0.5 * tolerance and not beaten(*cut):
+    # polygon whose deepest sides pass for flats leaves more than its own fit does
+    if cut is not None and cut[1] <= 0.5 * tolerance and (
+            polygon_fit() is None or polygon_fit()[1] >= cut[1]):
         shape = _scaled(cut[0], factor, offset)
         if outside < inside / 3.0:
             shape = _refine_flats(pixels, shape, factor * period, wave,

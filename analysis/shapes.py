@@ -451,7 +451,7 @@ class CutCircle(Shape):
 
     def describe(self):
         count = len(self.flats)
-        return (f"round part {_fmt(2 * self.radius_px)} px across with {count} "
+        return (f"circle {2 * self.radius_px:.0f} px across, {count} "
                 f"flat{'s' if count != 1 else ''}")
 
 

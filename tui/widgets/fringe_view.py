@@ -153,7 +153,9 @@ class FringeView(StationView):
         rows += [
             Text.assemble(("aperture ", "dim"), ("auto" if e.aperture is None else "manual")),
             Text(f"centre {aperture.center_x_px:.0f}, {aperture.center_y_px:.0f} px"),
-            Text(f"radius {aperture.radius_px:.0f} px"),
+            # an outline says its kind and size; a circle its radius
+            Text(aperture.shape.describe() if aperture.shape is not None
+                 else f"radius {aperture.radius_px:.0f} px"),
             Text(f"exclusions {len(aperture.exclusions)}"),
             Text.assemble(("editing ", "dim"), (editing, "bold #60e8ff")),
             Text("z: whole photo" if self.ctx.zoom else "z: zoom to aperture", style="dim"),
