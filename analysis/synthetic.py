@@ -243,6 +243,7 @@ def make_fringe_photo(
     bit_depth: int = 8,
     seed: int = 0,
     outline: Shape | None = None,
+    finesse: float = 0.0,
 ) -> SyntheticPhoto:
     """A fringe photo of ``surface`` with the imperfections real photos have.
 
@@ -294,6 +295,12 @@ def make_fringe_photo(
         radius, and the surface is laid over its fit coordinates. An ellipse is a round
         part seen at an angle: the surface is on the part's circle, and a fringe is
         ``lambda / (2 cos angle)`` of height.
+    finesse : float
+        0 (default) for two-beam fringes ``1 + V cos(phase)``. Above 0, the coefficient
+        of finesse ``F`` of a high-reflectance pair seen in reflection: thin dark fringes
+        on a bright field, ``1 + V (2 A - 1)`` with the Airy function
+        ``A = F sin^2(phase / 2) / (1 + F sin^2(phase / 2))`` (Born & Wolf, *Principles of
+        Optics*, multiple-beam fringes, from memory).
 
     Returns
     -------
@@ -335,6 +342,8 @@ def make_fringe_photo(
         raise SettingsError(f"surround {surround!r} is unknown; use 'dark' or 'grey'")
     if wavelength_nm <= 0 or fringes <= 0 or not 0.0 <= visibility <= 1.0:
         raise SettingsError("wavelength and fringes must be positive and visibility within 0..1")
+    if not 0.0 <= finesse <= 1e4:
+        raise SettingsError(f"coefficient of finesse {finesse} must be within 0..10000")
 
     rng = np.random.default_rng(seed)
     light_dir = rng.uniform(0.0, 2.0 * np.pi)
@@ -398,7 +407,12 @@ def make_fringe_photo(
             else:  # the fringes of an obliquely seen part are further apart in height
                 h = surface.height_nm(*outline.unit_xy(xx, yy)) * oblique
             phase = 2.0 * np.pi * (fx * xx + fy * yy) + 4.0 * np.pi * h / wavelength_nm
-            out[near] += step[near] * lamp[near] * (1.0 + visibility * np.cos(phase))
+            if finesse > 0.0:
+                s2 = np.sin(0.5 * phase) ** 2
+                fringe = 1.0 + visibility * (2.0 * finesse * s2 / (1.0 + finesse * s2) - 1.0)
+            else:
+                fringe = 1.0 + visibility * np.cos(phase)
+            out[near] += step[near] * lamp[near] * fringe
         intensity[r0 : r0 + band] = out
 
     for sp in specks:
@@ -463,6 +477,8 @@ def make_fringe_photo(
     )
     if outline is not None:
         params["outline"] = outline.to_text()
+    if finesse > 0.0:
+        params["finesse"] = float(finesse)
     return SyntheticPhoto(
         image=intensity,
         aperture=Aperture(cx, cy, radius) if outline is None else Aperture.of_shape(outline),

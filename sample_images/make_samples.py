@@ -360,7 +360,109 @@ SAMPLES = [
             seed=440,
         ),
     ),
+    dict(
+        # a flat on a high-reflectance reference: thin dark multiple-beam fringes
+        file="BW-FL-0452_hene.png",
+        part="reference flat, 50 mm, grade lambda/20, on the coated reference BW-TP-0031",
+        serial="BW-FL-0452",
+        diameter_mm=50.0,
+        operator="Tamsin Ode",
+        station="bench-2",
+        lamp="hene",
+        bit_depth=8,
+        shape=(720, 960),
+        radius_frac=0.4,
+        center_frac=(0.49, 0.51),
+        surface=dict(zernike_nm={4: 9.0, 6: -3.0, 7: 1.5}, ripple_nm=0.4, ripple_cycles=5.0),
+        photo=dict(
+            fringes=14.0,
+            angle_deg=20.0,
+            visibility=0.8,
+            level=0.38,
+            illumination=0.2,
+            surround="dark",
+            gamma=0.8,
+            noise=0.01,
+            dust=1,
+            edge_px=2.5,
+            finesse=25.0,
+            seed=452,
+        ),
+    ),
+    dict(
+        # a phone's colour photo under the sodium lamp: a Bayer mosaic, demosaiced, JPEG
+        file="BW-FL-0463_sodium.jpg",
+        part="workshop flat, 75 mm, grade lambda/4, phone photo",
+        serial="BW-FL-0463",
+        diameter_mm=75.0,
+        operator="Ruben Halloway",
+        station="bench-1",
+        lamp="sodium",
+        bit_depth=8,
+        shape=(768, 1024),
+        radius_frac=0.41,
+        center_frac=(0.52, 0.48),
+        surface=dict(zernike_nm={4: -28.0, 5: 7.0, 8: -3.0, 11: 2.0}, ripple_nm=0.8,
+                     ripple_cycles=6.0),
+        colour="sodium-phone",
+        photo=dict(
+            fringes=18.0,
+            angle_deg=125.0,
+            visibility=0.65,
+            illumination=0.3,
+            surround="dark",
+            gamma=0.7,
+            noise=0.012,
+            dust=2,
+            edge_px=3.0,
+            seed=463,
+        ),
+    ),
 ]
+
+# a sodium lamp's yellow light as a phone's red, green and blue pixels see it (their
+# relative response near 589 nm, an invented but typical balance)
+SODIUM_RGB = (1.0, 0.72, 0.06)
+
+
+def _phone_colour(grey: np.ndarray, seed: int) -> np.ndarray:
+    """A grey photo (0..1) as a phone's colour photo of the sodium lamp: each pixel of an
+    RGGB Bayer mosaic keeps its own colour's share of the light (with its own noise),
+    and the mosaic is demosaiced by bilinear interpolation, as a simple camera does."""
+    from scipy import ndimage as ndi
+
+    rows, cols = grey.shape
+    rng = np.random.default_rng(seed)
+    yy, xx = np.mgrid[0:rows, 0:cols]
+    masks = [(yy % 2 == 0) & (xx % 2 == 0), (yy % 2) != (xx % 2), (yy % 2 == 1) & (xx % 2 == 1)]
+    mosaic = np.zeros_like(grey)
+    for mask, gain in zip(masks, SODIUM_RGB, strict=True):
+        mosaic[mask] = grey[mask] * gain
+    mosaic = np.clip(mosaic + rng.normal(0.0, 0.004, grey.shape), 0.0, 1.0)
+    # bilinear demosaicing: each colour from its own pixels, weighted by their count
+    kernel = np.array([[0.25, 0.5, 0.25], [0.5, 1.0, 0.5], [0.25, 0.5, 0.25]])
+    planes = []
+    for mask in masks:
+        total = ndi.convolve(np.where(mask, mosaic, 0.0), kernel, mode="mirror")
+        weight = ndi.convolve(mask.astype(float), kernel, mode="mirror")
+        planes.append(total / weight)
+    return np.clip(np.stack(planes, axis=-1), 0.0, 1.0)
+
+
+def _write_colour_jpeg(rgb: np.ndarray, path: Path, quality: int = 85) -> None:
+    from PIL import Image
+
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    os.close(fd)
+    try:
+        Image.fromarray(np.round(rgb * 255.0).astype(np.uint8), "RGB").save(
+            tmp, "JPEG", quality=quality)
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
 
 
 def _atomic_json(data: dict, path: Path) -> None:
@@ -402,7 +504,10 @@ def make_samples(folder: Path = HERE) -> dict:
             **spec["photo"],
         )
         path = folder / spec["file"]
-        write_photo(photo, path)
+        if spec.get("colour") == "sodium-phone":
+            _write_colour_jpeg(_phone_colour(photo.image, spec["photo"]["seed"]), path)
+        else:
+            write_photo(photo, path)
         truth = photo.truth()
         a = truth.zernike_nm
         entries.append(
@@ -417,6 +522,9 @@ def make_samples(folder: Path = HERE) -> dict:
                 wavelength_nm=wavelength,
                 format=path.suffix.lstrip(".").upper(),
                 bit_depth=spec["bit_depth"],
+                **({"colour": "phone colour photo: RGGB Bayer mosaic of the sodium lamp's "
+                              "light, demosaiced bilinearly, JPEG quality 85"}
+                   if spec.get("colour") else {}),
                 size_px=[cols, rows],
                 file_bytes=path.stat().st_size,
                 true_aperture_px=dict(

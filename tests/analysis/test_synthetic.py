@@ -295,3 +295,23 @@ def test_tone_curve_and_noise_follow_their_definitions():
     expected = np.sqrt(sigma**2 + 1 / (255**2 * 12))
     assert np.std(diff) == pytest.approx(expected, rel=0.05)
     assert abs(np.mean(diff)) < 0.002
+
+
+def test_multiple_beam_fringes_are_thin_and_dark():
+    # the Airy function's dark fringes in reflection are 4 asin(1 / sqrt(F)) wide in
+    # phase at half depth (Born & Wolf, Principles of Optics, multiple-beam fringes, from
+    # memory): with F = 25, 0.81 rad of 2 pi, so about 13 % of the part lies darker than
+    # halfway, where two-beam fringes leave half of it
+    flat = SyntheticSurface(zernike_nm={})
+    shares = []
+    for finesse in (0.0, 25.0):
+        photo = make_fringe_photo(flat, shape=(200, 200), fringes=12, finesse=finesse,
+                                  **CLEAN)
+        yy, xx = np.mgrid[0:200, 0:200]
+        core = np.hypot(xx - 99.5, yy - 99.5) < 60
+        values = photo.image[core]
+        shares.append(float(np.mean(values < 0.5 * (values.min() + values.max()))))
+    assert shares[0] == pytest.approx(0.5, abs=0.05)
+    assert shares[1] == pytest.approx(4 * np.arcsin(1 / 5) / (2 * np.pi), abs=0.03)
+    with pytest.raises(SettingsError):
+        make_fringe_photo(flat, shape=(64, 64), finesse=-1.0)
