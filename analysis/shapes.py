@@ -445,14 +445,16 @@ class CutCircle(Shape):
                           for a, d in self.flats]}
 
     def moved(self, dx=0.0, dy=0.0, grow=1.0, turn_deg=0.0, stretch=1.0):
-        return CutCircle(self.center_x_px + dx, self.center_y_px + dy,
-                         self.radius_px * grow,
-                         tuple((a + turn_deg, d * grow) for a, d in self.flats))
+        # stretched, the flats move out (or in) across the part; they stay on it
+        r = self.radius_px * grow
+        return CutCircle(self.center_x_px + dx, self.center_y_px + dy, r,
+                         tuple((a + turn_deg, min(max(d * grow * stretch, 0.05 * r),
+                                                  0.999 * r))
+                               for a, d in self.flats))
 
     def describe(self):
         count = len(self.flats)
-        return (f"circle {2 * self.radius_px:.0f} px across, {count} "
-                f"flat{'s' if count != 1 else ''}")
+        return f"circle {2 * self.radius_px:.0f} px, {count} flat{'s' if count != 1 else ''}"
 
 
 # --- reading and writing ---------------------------------------------------------------

@@ -93,6 +93,18 @@ def test_a_circle_with_a_flat_has_the_segment_area_cut_off():
     assert np.ptp(line[on_flat, 0]) == pytest.approx(2 * math.sqrt(r * r - d * d), abs=1e-6)
 
 
+def test_a_circle_with_flats_is_moved_grown_turned_and_its_flats_shifted():
+    cut = CutCircle(300.0, 200.0, 150.0, ((90.0, 120.0), (200.0, 140.0)))
+    moved = cut.moved(dx=5, dy=-5, grow=1.1, turn_deg=30.0)
+    assert (moved.center_x_px, moved.center_y_px) == pytest.approx((305.0, 195.0))
+    assert moved.radius_px == pytest.approx(165.0)
+    assert np.ravel(moved.flats) == pytest.approx([120.0, 132.0, 230.0, 154.0])
+    # the station's narrow / widen keys move the flats in and out, never off the part
+    assert cut.moved(stretch=1 / 1.02).flats[0][1] == pytest.approx(120.0 / 1.02)
+    assert cut.moved(stretch=1.5).flats[1][1] == pytest.approx(0.999 * 150.0)
+    assert Aperture.of_shape(cut).reshaped(turn_deg=-90.0).shape.flats[0][0] == pytest.approx(0.0)
+
+
 def test_polygon_area_and_centre_by_shoelace():
     # a 200 x 100 rectangle given by its corners (shoelace formula, common practice)
     p = Polygon(((10, 20), (210, 20), (210, 120), (10, 120)))
