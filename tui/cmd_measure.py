@@ -22,7 +22,7 @@ from .options import (
     terms_type,
     wavelength_type,
 )
-from .parallel import jobs_type
+from .parallel import interrupts_held, jobs_type
 from .record_options import add_record_options
 from .safe_text import shown
 
@@ -368,8 +368,9 @@ def run(args: argparse.Namespace) -> int:
                             SettingsError) as exc:
                         outcome = exc
                 progress.pause()
-                ready[i] = finish(photo, opts, outcome)
-                show_ready()
+                with interrupts_held():  # a logged result is always shown
+                    ready[i] = finish(photo, opts, outcome)
+                    show_ready()
         else:
             # settings that failed are reported in their turn; the rest go to the workers
             todo = [(i, p, s) for i, (p, o, s) in enumerate(prepared) if o is not None]
@@ -382,10 +383,11 @@ def run(args: argparse.Namespace) -> int:
             with closing(measure_in_parallel([(p, s) for _, p, s in todo], workers)) as runs:
                 for fin in runs:
                     i = todo[fin.index][0]
-                    ready[i] = finish(fin.photo, prepared[i][1], fin.outcome)
-                    done += 1
-                    progress.pause()
-                    show_ready()
+                    with interrupts_held():  # a logged result is always shown
+                        ready[i] = finish(fin.photo, prepared[i][1], fin.outcome)
+                        done += 1
+                        progress.pause()
+                        show_ready()
                     progress.start(f"measuring, {workers} at once", done)
     except KeyboardInterrupt:
         # ctrl+c: everything finished is logged already; show it all, in the order given,

@@ -402,11 +402,21 @@ def photo_options(path: Path, args: argparse.Namespace) -> argparse.Namespace:
 
 
 def _handle(path: Path, args: argparse.Namespace, tally: Tally) -> None:
-    def measured() -> tuple[argparse.Namespace, tuple[dict, str | None]]:
-        opts = photo_options(path, args)
-        return opts, measure_photo(path, opts)
+    from .parallel import interrupts_held
 
-    _tell(path, _judged(path, measured), tally)
+    try:  # ctrl+c stops the measurement at once (KeyboardInterrupt is no Exception)
+        outcome = (photo_options(path, args),)
+        outcome += (measure_photo(path, outcome[0]),)
+    except Exception as exc:  # noqa: BLE001 - judged (and told) below, as _judged says
+        outcome = exc
+
+    def measured() -> tuple[argparse.Namespace, tuple[dict, str | None]]:
+        if isinstance(outcome, Exception):
+            raise outcome
+        return outcome
+
+    with interrupts_held():  # a logged result is always shown
+        _tell(path, _judged(path, measured), tally)
 
 
 def _judged(path: Path, measured) -> tuple:
@@ -456,7 +466,7 @@ def _handle_together(paths: list[Path], args: argparse.Namespace, tally: Tally,
     from contextlib import closing
 
     from ..analysis.errors import FlatsightError
-    from .parallel import measure_in_parallel
+    from .parallel import interrupts_held, measure_in_parallel
 
     todo, told, judged = [], 0, {}
     for path in paths:
@@ -489,8 +499,9 @@ def _handle_together(paths: list[Path], args: argparse.Namespace, tally: Tally,
         runs = [(i, str(p), s) for i, (p, o, s) in enumerate(todo) if o is not None]
         with closing(measure_in_parallel([(p, s) for _, p, s in runs], workers)) as done:
             for fin in done:
-                finished(runs[fin.index][0], fin.outcome)
-                tell_ready()
+                with interrupts_held():  # a logged result is always shown
+                    finished(runs[fin.index][0], fin.outcome)
+                    tell_ready()
         tell_ready()
     except KeyboardInterrupt:
         for i in sorted(judged):  # finished, logged: shown before the watch stops

@@ -11,17 +11,44 @@ from __future__ import annotations
 
 import os
 import signal
+import threading
 from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["Finished", "available_cores", "jobs_type", "measure_in_parallel"]
+__all__ = ["Finished", "available_cores", "interrupts_held", "jobs_type",
+           "measure_in_parallel"]
 
 #: the environment variable the analysis reads for its FFT threads (analysis/extension.py)
 FFT_THREADS_ENV = "FLATSIGHT_FFT_THREADS"
 #: what a worker process reads for its threads when it starts: the FFTs', and those of
 #: the BLAS and OpenMP libraries numpy and scipy use (read once, when they load)
 THREAD_ENV = (FFT_THREADS_ENV, "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+@contextmanager
+def interrupts_held() -> Iterator[None]:
+    """Hold ctrl+c while a finished result is logged and queued to be shown.
+
+    A ctrl+c between the record's commit and its place in the queue would leave a
+    logged result that is never shown. Within the block, SIGINT is only noted. On
+    leaving the block the usual handler is back, and ``KeyboardInterrupt`` is raised if
+    one came. Python runs signal handlers in the main thread only, so this holds
+    whichever thread the system delivers the signal to. Elsewhere (not the main
+    thread) the block runs as it is.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    came: list[int] = []
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: came.append(signum))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    if came:
+        raise KeyboardInterrupt
 
 
 def available_cores() -> int:
