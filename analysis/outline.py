@@ -42,7 +42,7 @@ import numpy as np
 from scipy import ndimage as ndi
 from scipy.optimize import least_squares
 
-from .aperture import Aperture, Exclusion, find_aperture
+from .aperture import Aperture, Exclusion, _kasa_circle, find_aperture
 from .errors import UnanalysablePhotoError
 from .shapes import Annulus, CutCircle, Ellipse, Polygon, Rectangle, Shape
 
@@ -457,6 +457,24 @@ def _side_step(pixels: np.ndarray, a: np.ndarray, b: np.ndarray, inward: np.ndar
     return d0
 
 
+def _side_move(pixels: np.ndarray, a: np.ndarray, b: np.ndarray, inward: np.ndarray,
+               period: float, wave: tuple[float, float], reach: float,
+               part: tuple[float, float] = (0.1, 0.9)) -> tuple[float, float]:
+    """How far (px, outward) the middle of side ``a``-``b`` lies from the photo's 50 %
+    edge, and its turn (outward move per px along it), from each half of ``part``
+    alone; the turn NaN when a half is not found (the whole side then), the move 0 when
+    no edge is."""
+    lo, hi = part
+    mid = 0.5 * (lo + hi)
+    first = _side_step(pixels, a, b, inward, period, wave, reach, (lo, mid))
+    second = _side_step(pixels, a, b, inward, period, wave, reach, (mid, hi))
+    if first is not None and second is not None:
+        length = float(np.hypot(*(b - a)))
+        return 0.5 * (first + second), (second - first) / (0.5 * (hi - lo) * length)
+    whole = _side_step(pixels, a, b, inward, period, wave, reach, part)
+    return (0.0 if whole is None else whole), math.nan
+
+
 def _refine_sides(pixels: np.ndarray, shape: Shape, period: float,
                   wave: tuple[float, float], *, max_move_px: float) -> Shape:
     """The rectangle or polygon with each straight side moved to the photo's 50 % edge
@@ -476,15 +494,7 @@ def _refine_sides(pixels: np.ndarray, shape: Shape, period: float,
         if np.dot(centre - a, inward) < 0:
             inward = -inward
         normals[i] = -inward
-        # each half of the side alone, so its turn is found too
-        first = _side_step(pixels, a, b, inward, period, wave, max_move_px, (0.1, 0.5))
-        second = _side_step(pixels, a, b, inward, period, wave, max_move_px, (0.5, 0.9))
-        if first is not None and second is not None:
-            moves[i] = 0.5 * (first + second)
-            slopes[i] = (second - first) / (0.4 * lengths[i])
-        else:
-            whole = _side_step(pixels, a, b, inward, period, wave, max_move_px)
-            moves[i] = 0.0 if whole is None else whole
+        moves[i], slopes[i] = _side_move(pixels, a, b, inward, period, wave, max_move_px)
     if not np.any(moves) and not np.any(np.isfinite(slopes)):
         return shape
     if isinstance(shape, Rectangle):
@@ -535,11 +545,8 @@ def _refine_flats(pixels: np.ndarray, shape: CutCircle, period: float,
         half = math.sqrt(max(shape.radius_px ** 2 - dist ** 2, 0.0))
         mid = np.array([shape.center_x_px, shape.center_y_px]) + dist * n
         p, q = mid - half * t, mid + half * t
-        first = _side_step(pixels, p, q, -n, period, wave, max_move_px, (0.15, 0.5))
-        second = _side_step(pixels, p, q, -n, period, wave, max_move_px, (0.5, 0.85))
-        if first is not None and second is not None:
-            move = 0.5 * (first + second)
-            slope = (second - first) / (0.35 * 2.0 * half)
+        move, slope = _side_move(pixels, p, q, -n, period, wave, max_move_px, (0.15, 0.85))
+        if np.isfinite(slope):
             # the far end (toward q) further out: the normal turns toward -t
             turned = n - slope * t
             turned /= np.hypot(*turned)
@@ -547,8 +554,7 @@ def _refine_flats(pixels: np.ndarray, shape: CutCircle, period: float,
             dist = float(np.dot(mid + move * n - [shape.center_x_px, shape.center_y_px],
                                 turned))
         else:
-            whole = _side_step(pixels, p, q, -n, period, wave, max_move_px, (0.15, 0.85))
-            dist += 0.0 if whole is None else whole
+            dist += move
         flats.append((angle, dist))
     return replace(shape, flats=tuple(flats))
 
@@ -600,12 +606,12 @@ def _cut_fit(x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[CutCircle,
         return None
     keep = np.ones(x.size, dtype=bool)
     for _ in range(3):
-        cx, cy, r = _circle_lsq(x[keep], y[keep])
+        cx, cy, r = _kasa_circle(x[keep], y[keep])
         e = np.hypot(x - cx, y - cy) - r
         keep = e > -2.0 * tolerance
         if keep.sum() < 0.4 * x.size:
             return None
-    cx, cy, r = _circle_lsq(x[keep], y[keep])
+    cx, cy, r = _kasa_circle(x[keep], y[keep])
     e = np.hypot(x - cx, y - cy) - r
     if float(np.mean(np.abs(e) <= 1.5 * tolerance)) < 0.4:
         return None
@@ -663,13 +669,6 @@ def _flat_of_run(x: np.ndarray, y: np.ndarray, cx: float, cy: float, r: float,
         return None
     return math.degrees(math.atan2(n[1], n[0])), float(n[0] * mx + n[1] * my)
 
-
-def _circle_lsq(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
-    """The circle through points by linear least squares (the algebraic fit of Kasa,
-    IEEE Trans. Instrum. Meas. 25, 8, 1976): ``x^2 + y^2 = 2 a x + 2 b y + c``."""
-    design = np.column_stack([2.0 * x, 2.0 * y, np.ones_like(x)])
-    (a, b, c), *_ = np.linalg.lstsq(design, x * x + y * y, rcond=None)
-    return float(a), float(b), float(math.sqrt(max(c + a * a + b * b, 1e-12)))
 
 
 def _fit(start: Shape, x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[Shape, float]:

@@ -13,6 +13,7 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
+from flatsight.analysis.atomic import atomic_path
 from flatsight.analysis.shapes import parse_shape
 from flatsight.analysis.synthetic import SyntheticSurface, make_fringe_photo, write_photo
 
@@ -452,17 +453,9 @@ def _phone_colour(grey: np.ndarray, seed: int) -> np.ndarray:
 def _write_colour_jpeg(rgb: np.ndarray, path: Path, quality: int = 85) -> None:
     from PIL import Image
 
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    os.close(fd)
-    try:
+    with atomic_path(path) as tmp:
         Image.fromarray(np.round(rgb * 255.0).astype(np.uint8), "RGB").save(
             tmp, "JPEG", quality=quality)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
 
 
 def _atomic_json(data: dict, path: Path) -> None:
