@@ -8,9 +8,11 @@ import sys
 from pathlib import Path
 
 from .options import (
+    APERTURE_HELP,
+    APERTURE_METAVAR,
     NO_TOLERANCE_EXIT_CODES,
+    aperture_type,
     check_map_path,
-    circle_type,
     diameter_type,
     save_map,
     terms_type,
@@ -111,10 +113,10 @@ def add_parser(sub: argparse._SubParsersAction) -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--aperture",
-        type=circle_type,
-        metavar="X,Y,R",
+        type=aperture_type,
+        metavar=APERTURE_METAVAR,
         default=None,
-        help="clear aperture in photo pixels (x right, y down); default: found from the frames",
+        help=APERTURE_HELP.replace("found automatically", "a circle found from the frames"),
     )
     p.add_argument(
         "--diameter",
@@ -178,7 +180,6 @@ def stack_record(result, frame_paths: list[str]) -> dict:
 
 
 def run(args: argparse.Namespace) -> int:
-    from flatsight.analysis.aperture import Aperture
     from flatsight.analysis.errors import (
         SettingsError,
         UnanalysablePhotoError,
@@ -204,7 +205,7 @@ def run(args: argparse.Namespace) -> int:
             n_terms=int(args.terms),
             invert=bool(args.invert),
             diameter_mm=args.diameter,
-            aperture=Aperture(*args.aperture) if args.aperture else None,
+            aperture=args.aperture,  # an Aperture (options.parse_aperture) or None
         )
         frames, notes = [], []
         for path in paths:
@@ -243,6 +244,19 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
+def _outline_text(ap: dict) -> str:
+    """``r=412.0 px at (640.0, 480.0)``, or an outline's description and centre."""
+    where = f"({ap['center_x_px']:.1f}, {ap['center_y_px']:.1f})"
+    if ap.get("shape"):
+        from flatsight.analysis.shapes import shape_from_dict
+
+        try:
+            return f"{shape_from_dict(ap['shape']).describe()} at {where}"
+        except (KeyError, TypeError, ValueError):
+            return f"outline {shown(str(ap['shape'].get('kind')))} at {where}"
+    return f"r={ap['radius_px']:.1f} px at {where}"
+
+
 def _print_table(record: dict) -> None:
     from rich.console import Console
     from rich.text import Text
@@ -255,8 +269,7 @@ def _print_table(record: dict) -> None:
     c.print(Text.assemble(
         (f"{len(record['frames'])} frames", "bold"),
         f" from {shown(record['frames'][0])}   "
-        f"{record['wavelength_nm']:g} nm   aperture r={ap['radius_px']:.1f} px at "
-        f"({ap['center_x_px']:.1f}, {ap['center_y_px']:.1f})"
+        f"{record['wavelength_nm']:g} nm   aperture {_outline_text(ap)}"
     ))
     c.print(
         f"algorithm: {record['algorithm']}   step found: "

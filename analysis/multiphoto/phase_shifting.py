@@ -608,26 +608,23 @@ def measure_stack(
     tick("phase", 0.2)
     result = demodulate_sequence(small, step_deg=step_deg, algorithm=algorithm)
     tick("aperture", 0.4)
-    if settings.aperture is not None:
-        ap_map = Aperture(
-            (settings.aperture.center_x_px - (k - 1) / 2.0) / k,
-            (settings.aperture.center_y_px - (k - 1) / 2.0) / k,
-            settings.aperture.radius_px / k,
-        )
-    else:
-        ap_map = aperture_from_modulation(result.amplitude, source=label)
     geometry = MapGeometry(
         origin_x_px=(k - 1) / 2.0, origin_y_px=(k - 1) / 2.0, step_px=float(k), shape=small[0].shape
     )
     exclusions = tuple(settings.exclusions) + (
         tuple(settings.aperture.exclusions) if settings.aperture is not None else ()
     )
-    aperture = Aperture(
-        geometry.origin_x_px + k * ap_map.center_x_px,
-        geometry.origin_y_px + k * ap_map.center_y_px,
-        k * ap_map.radius_px,
-        exclusions,
-    )
+    if settings.aperture is not None:
+        # as given, in photo pixels: a circle or any outline (``shapes``)
+        aperture = settings.aperture.with_exclusions(exclusions)
+    else:
+        ap_map = aperture_from_modulation(result.amplitude, source=label)
+        aperture = Aperture(
+            geometry.origin_x_px + k * ap_map.center_x_px,
+            geometry.origin_y_px + k * ap_map.center_y_px,
+            k * ap_map.radius_px,
+            exclusions,
+        )
     px, py = geometry.photo_xy()
     disk = (px - aperture.center_x_px) ** 2 + (py - aperture.center_y_px) ** 2 <= (
         aperture.radius_px**2

@@ -5,7 +5,8 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 
-__all__ = ["FIGURES", "TARGETS", "within", "score"]
+__all__ = ["FEW_FRINGE_OTHERS", "FEW_FRINGE_TARGETS", "FIGURES", "TARGETS", "score",
+           "score_few_fringes", "within"]
 
 #: figure -> (floor nm, share of the true value): the error allowed is the larger of the two.
 #: irregularity, C, power, RMS and PVr are the accuracy issue's targets; PV, RMSi, RMSa
@@ -61,17 +62,36 @@ FEW_FRINGE_TARGETS: dict[str, tuple[float, float]] = {
 }
 
 
-def score_few_fringes(record: Mapping, truth: Mapping) -> dict[str, dict]:
-    """Error and allowance of RMS, PVr and power against :data:`FEW_FRINGE_TARGETS`.
+#: The other figures a verdict can use, scored on the same photos with allowances twice
+#: the accuracy issue's (as the few-fringe targets are for RMS and PVr).
+FEW_FRINGE_OTHERS: dict[str, tuple[float, float]] = {
+    "pv_nm": (8.0, 0.10),
+    "irregularity_nm": (8.0, 0.10),
+    "symmetric_irregularity_nm": (6.0, 0.20),
+    "rms_irregularity_nm": (2.0, 0.06),
+    "astigmatism_nm": (2.0, 0.06),
+}
 
-    Returns ``{figure: {"true", "measured", "error", "allowed", "ok"}}``.
+
+def score_few_fringes(record: Mapping, truth: Mapping,
+                      targets: Mapping[str, tuple[float, float]] = FEW_FRINGE_TARGETS
+                      ) -> dict[str, dict]:
+    """Error and allowance of each figure of ``targets`` (by default RMS, PVr and power,
+    :data:`FEW_FRINGE_TARGETS`).
+
+    Returns ``{figure: {"true", "measured", "error", "allowed", "ok", "covered"}}``;
+    ``covered`` tells whether the record's expanded uncertainty holds the error (None
+    when the record gives none).
     """
     out = {}
-    for fig, (floor, share) in FEW_FRINGE_TARGETS.items():
+    unc = record.get("uncertainty") or {}
+    for fig, (floor, share) in targets.items():
         t = float(truth[fig])
         m = record.get(fig)
         m = float(m) if m is not None else math.nan
         allowed = max(floor, share * abs(t))
+        u = unc.get(fig)
         out[fig] = {"true": t, "measured": m, "error": m - t, "allowed": allowed,
-                    "ok": bool(abs(m - t) <= allowed)}
+                    "ok": bool(abs(m - t) <= allowed),
+                    "covered": None if u is None else bool(abs(m - t) <= float(u))}
     return out

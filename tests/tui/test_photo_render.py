@@ -188,3 +188,43 @@ def test_downsampling_keeps_the_mean_grey():
 
     photo = np.random.default_rng(0).uniform(0.2, 0.8, (400, 600))
     assert downsample_photo(photo, (20, 30)).mean() == pytest.approx(photo.mean(), abs=0.01)
+
+
+def _status_measurement(masked: float = 0.031, fringes: float = 16.0):
+    from types import SimpleNamespace
+
+    q = SimpleNamespace(sign="carrier", masked_fraction=masked, carrier_fringes=fringes,
+                        per_photo=())
+    return SimpleNamespace(quality=q, settings=SimpleNamespace(ring_sign=None))
+
+
+@pytest.mark.parametrize("width", [200, 60, 46, 40, 32, 24])
+def test_the_status_line_under_the_photo_drops_whole_pieces_to_fit(width):
+    """The line under a narrow fringe view never cuts a label from its value: at any
+    width the masked share keeps its number, and pieces go whole."""
+    from flatsight.analysis.shapes import CutCircle
+    from flatsight.tui.widgets.fringe_view import _status_line
+
+    ap = Aperture.of_shape(CutCircle(478.0, 362.0, 579.0, ((90.0, 520.0),)))
+    text = _status_line(ap, _status_measurement(), width).plain
+    full = _status_line(ap, _status_measurement(), 10**6).plain
+    assert full.startswith("c 478,362  circle 1158 px, 1 flat  0 excl  16 fr  masked 3 %")
+    if width >= len(full):
+        assert text == full
+    elif width >= len("circle with flats  masked 3 %"):
+        assert len(text) <= width
+        assert text.endswith("masked 3 %")
+        assert "0 excl" not in text  # no exclusion: the count goes first
+    else:  # too narrow for even the shortest form: the widget cuts it, nothing else
+        assert text == "circle with flats  masked 3 %"
+
+
+def test_the_status_line_keeps_a_circle_with_exclusions_whole_where_it_fits():
+    from flatsight.tui.widgets.fringe_view import _status_line
+
+    ap = Aperture(400.0, 300.0, 250.0, (Exclusion(410.0, 310.0, 12.0),))
+    text = _status_line(ap, _status_measurement(0.052, 21.0), 60).plain
+    assert text == "c 400,300  r 250 px  1 excl  21 fr  masked 5 %"
+    # narrower: the centre goes before the exclusion count that is not zero
+    assert _status_line(ap, _status_measurement(0.052, 21.0), 36).plain == (
+        "r 250 px  1 excl  21 fr  masked 5 %")

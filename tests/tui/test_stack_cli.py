@@ -131,6 +131,29 @@ def test_stack_errors_are_one_line_with_documented_codes(tmp_path, capsys):
     assert "Traceback" not in err
 
 
+def test_stack_takes_an_outline_for_its_aperture(tmp_path, capsys):
+    # a round part with a flat ground on it, given as cut:CX,CY,R;ANGLE,DIST (the frames'
+    # disk has centre 165,118 and radius 95; the flat cuts it 70 px right of the centre)
+    paths = write_sequence(tmp_path, SyntheticSurface(zernike_nm={4: 20.0}), [0, 90, 180, 270])
+    code, out, err = run_cli(["stack", *paths, "-w", "hene", "--json",
+                              "--aperture", "cut:165,118,95;0,70"], capsys, cmd_stack)
+    assert code == 0, err
+    record = json.loads(out)
+    assert record["aperture"]["shape"]["kind"] == "cut"
+    assert record["aperture"]["shape"]["flats"] == [{"angle_deg": 0.0, "distance_px": 70.0}]
+    code, out, err = run_cli(["stack", *paths, "-w", "hene",
+                              "--aperture", "cut:165,118,95;0,70"], capsys, cmd_stack)
+    assert code == 0 and "circle 190 px, 1 flat at (165.0, 118.0)" in out
+    # a flat beyond the rim is a usage error: one line, exit 2 (the command line's own
+    # parser, as an operator meets it)
+    from flatsight.tui.cli import main
+
+    code = main(["stack", *paths, "-w", "hene", "--aperture", "cut:165,118,95;0,120"])
+    _, err = capsys.readouterr()
+    assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
+    assert "less than the radius" in err
+
+
 # ---- absolute ---------------------------------------------------------------------------------
 
 

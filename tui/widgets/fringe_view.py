@@ -81,7 +81,7 @@ class FringeView(StationView):
                 lines, panel, left_width=max((len(x) for x in lines), default=0), height=h
             )
         out = Text("\n").join(lines)
-        for line in self._summary(aperture):
+        for line in self._summary(aperture, w):
             out.append("\n")
             line.truncate(w)
             out.append_text(line)
@@ -112,8 +112,12 @@ class FringeView(StationView):
             return
         await self.screen.run_action(f"centre_at({x:.1f}, {y:.1f})")
 
-    def _summary(self, aperture) -> list[Text]:
-        """Two lines under the photo when there is no room for the side panel."""
+    def _summary(self, aperture, width: int = 10**6) -> list[Text]:
+        """Two lines under the photo when there is no room for the side panel.
+
+        The second line drops whole pieces, least needed first, until it fits ``width``
+        (a label is never left without its value).
+        """
         e = self.entry
         if aperture is None:
             return [Text(e.name, style="bold")]
@@ -124,25 +128,9 @@ class FringeView(StationView):
             ("  editing ", "dim"),
             (editing, "bold #60e8ff"),
         )
-        # an outline says its own size; a circle its radius
-        size = (aperture.shape.describe() if aperture.shape is not None
-                else f"r {aperture.radius_px:.0f} px")
-        second = Text(
-            f"c {aperture.center_x_px:.0f},{aperture.center_y_px:.0f}  "
-            f"{size}  {len(aperture.exclusions)} excl"
-        )
-        m = e.measurement
-        if m is not None:
-            # closed fringes have no carrier: their stated sign says more in the room
-            stated = m.quality.sign == "stated" and m.settings.ring_sign
-            second.append(
-                f"  {f'{m.settings.ring_sign} stated' if stated else carrier_short(m.quality)}"
-                f"  masked {100 * m.quality.masked_fraction:.0f} %",
-                style="dim",
-            )
-        elif e.error:
-            second = Text(f"✗ {e.error}", style="#ff6e8a")
-        return [first, second]
+        if e.measurement is None and e.error:
+            return [first, Text(f"✗ {e.error}", style="#ff6e8a")]
+        return [first, _status_line(aperture, e.measurement, width)]
 
     def _panel(self, aperture) -> list[Text]:
         e = self.entry
@@ -178,3 +166,52 @@ class FringeView(StationView):
 def wrapped(message: str, style: str, width: int = PANEL_WIDTH) -> list[Text]:
     """A message broken into panel-wide lines."""
     return [Text(line, style=style) for line in textwrap.wrap(shown(message), width)]
+
+
+def _status_line(aperture, m, width: int) -> Text:
+    """The outline and the measurement in one line of at most ``width`` cells.
+
+    Pieces go whole, least needed first: the exclusion count when there is none, the
+    centre, the outline's full description (its kind stays), then the carrier.
+    """
+    shape = aperture.shape
+    # an outline says its own size; a circle its radius
+    size = shape.describe() if shape is not None else f"r {aperture.radius_px:.0f} px"
+    short_size = (("rectangle" if shape.kind == "rect" else
+                   "polygon" if shape.kind == "poly" else
+                   "circle with flats" if shape.kind == "cut" else shape.kind)
+                  if shape is not None else size)
+    n_excl = len(aperture.exclusions)
+    pieces = {
+        "centre": f"c {aperture.center_x_px:.0f},{aperture.center_y_px:.0f}",
+        "size": size,
+        "excl": f"{n_excl} excl",
+    }
+    tail = {}
+    if m is not None:
+        # closed fringes have no carrier: their stated sign says more in the room
+        stated = m.quality.sign == "stated" and m.settings.ring_sign
+        tail["carrier"] = (f"{m.settings.ring_sign} stated" if stated
+                           else carrier_short(m.quality))
+        tail["masked"] = f"masked {100 * m.quality.masked_fraction:.0f} %"
+
+    def line() -> Text:
+        text = Text("  ".join(pieces.values()))
+        if tail:
+            text.append(("  " if pieces else "") + "  ".join(tail.values()), style="dim")
+        return text
+
+    steps = [
+        lambda: n_excl == 0 and pieces.pop("excl", None),
+        lambda: pieces.pop("centre", None),
+        lambda: pieces.__setitem__("size", short_size),
+        lambda: tail.pop("carrier", None),
+        lambda: pieces.pop("excl", None),
+    ]
+    text = line()
+    for step in steps:
+        if text.cell_len <= width:
+            break
+        step()
+        text = line()
+    return text
