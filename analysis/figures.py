@@ -482,7 +482,8 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
                     wavelength_uncertainty_nm: float = 0.0,
                     reference_uncertainty_nm: float = 0.0, photos: int = 1,
                     prepared: MapFigures | None = None,
-                    region: np.ndarray | None = None) -> Figures:
+                    region: np.ndarray | None = None,
+                    scale_uncertainty: float = 0.0) -> Figures:
     """Figures of a height map with their expanded uncertainties (see the module docstring).
 
     Parameters
@@ -515,6 +516,9 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
     prepared : MapFigures, optional
         The same map already prepared (:func:`prepare_map`): figures with other terms
         removed then reuse its fits and its Monte Carlo copies instead of redoing them.
+    scale_uncertainty : float
+        Relative standard uncertainty of the height scale the method's aperture carries
+        (``uncertainty.INTENSITY_FIT_SCALE`` for the intensity fit; 0 with a carrier).
     """
     from .uncertainty import expanded_uncertainty, noise_effects
 
@@ -538,6 +542,6 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
         figures, spread=spread, noise_nm=prepared.noise_nm, wavelength_nm=wavelength_nm,
         wavelength_uncertainty_nm=wavelength_uncertainty_nm,
         reference_uncertainty_nm=reference_uncertainty_nm, photos=photos,
-        corrections=corrections)
+        corrections=corrections, scale_uncertainty=scale_uncertainty)
     return replace(figures, uncertainty_nm=uncertainty, uncertainty_budget=budget,
                    noise_bias_removed_nm=corrections)

@@ -350,6 +350,18 @@ def _part_pixels(aperture: Aperture, geometry: MapGeometry, xu: np.ndarray,
     return aperture.region(*geometry.photo_xy()), True
 
 
+def _scale_uncertainty(method: str | None, per_photo=()) -> float:
+    """The height scale's relative standard uncertainty from how the aperture was set:
+    the intensity fit's (its own photo's, or any averaged photo's) finds it from the
+    contrast or the lit disk alone (``uncertainty.INTENSITY_FIT_SCALE``); with a carrier
+    it is within the method's own share. Averaging keeps it whole: a soft edge misleads
+    every photo of a part alike."""
+    from .uncertainty import INTENSITY_FIT_SCALE
+
+    methods = {method} | {getattr(q, "method", None) for q in (per_photo or ())}
+    return INTENSITY_FIT_SCALE if "intensity-fit" in methods else 0.0
+
+
 def _resolution_px(resolution_cycles_per_aperture: float, xu: np.ndarray) -> float | None:
     """The resolution as a Gaussian width in map pixels (None when unknown).
 
@@ -452,7 +464,8 @@ def measurement_from_height(
         height_sigma_nm=height_sigma_nm,
         wavelength_uncertainty_nm=settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=settings.reference_uncertainty_nm,
-        photos=int(qf.get("photos", 1)), prepared=prepared, region=region)
+        photos=int(qf.get("photos", 1)), prepared=prepared, region=region,
+        scale_uncertainty=_scale_uncertainty(qf.get("method"), qf.get("per_photo", ())))
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
@@ -558,7 +571,8 @@ def with_terms_removed(
         resolution_px=resolution_px, height_sigma_nm=m.height_sigma_nm,
         wavelength_uncertainty_nm=m.settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=m.settings.reference_uncertainty_nm,
-        photos=m.quality.photos, prepared=prepared, region=region)
+        photos=m.quality.photos, prepared=prepared, region=region,
+        scale_uncertainty=_scale_uncertainty(m.quality.method, m.quality.per_photo))
     idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
     out = np.full(m.height_nm.shape, np.nan)
     out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]

@@ -45,8 +45,8 @@ import math
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["COVERAGE_FACTOR", "METHOD", "UNCERTAIN_FIGURES", "expanded_uncertainty",
-           "noise_effects"]
+__all__ = ["COVERAGE_FACTOR", "INTENSITY_FIT_SCALE", "METHOD", "UNCERTAIN_FIGURES",
+           "expanded_uncertainty", "noise_effects"]
 
 COVERAGE_FACTOR = 2.0
 UNCERTAIN_FIGURES = ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm",
@@ -67,6 +67,14 @@ METHOD = {
     "rms_asymmetric_nm": (0.008, 0.12, 0.3),
     "astigmatism_nm": (0.01, 0.10, 0.5),
 }
+#: The relative standard uncertainty of the height scale of a photo measured by the
+#: intensity fit (few, bent or closed fringes). Its aperture is found by the fringes'
+#: contrast or the lit disk alone, to about half a per cent of the radius, and power and
+#: every figure it dominates scale with the radius squared. Set from the relative errors
+#: of RMS, power, RMSi and astigmatism on 90 photos of tests/refset's few_fringe_case
+#: (seeds 200-229, kinds few, bent and closed): standard deviation 0.85-1.3 %, mean
+#: 0.3-0.5 %. With a carrier the aperture is found ten times closer, within METHOD.
+INTENSITY_FIT_SCALE = 0.011
 _REALISATIONS = 8
 # noise added in the Monte Carlo, in units of the map's own: the map then carries sqrt(1 + a^2)
 # times its noise (sqrt 2 and 2), the two points beyond the measurement SIMEX extrapolates from
@@ -177,6 +185,7 @@ def expanded_uncertainty(figures, *, spread: dict[str, float], noise_nm: float,
                          wavelength_nm: float, wavelength_uncertainty_nm: float = 0.0,
                          reference_uncertainty_nm: float = 0.0, photos: int = 1,
                          corrections: dict[str, float] | None = None,
+                         scale_uncertainty: float = 0.0,
                          ) -> tuple[dict[str, float], dict[str, dict]]:
     """Expanded uncertainty (k = 2) of each figure, and its budget.
 
@@ -199,6 +208,10 @@ def expanded_uncertainty(figures, *, spread: dict[str, float], noise_nm: float,
     corrections : dict, optional
         Figure name -> the noise bias removed from it, nm; half of it counts as the
         correction's own standard uncertainty.
+    scale_uncertainty : float
+        Relative standard uncertainty of the whole height scale beyond what ``METHOD``
+        holds (:data:`INTENSITY_FIT_SCALE` for the intensity fit's aperture); it counts
+        in the method part, as a share of every figure.
 
     Returns
     -------
@@ -218,7 +231,8 @@ def expanded_uncertainty(figures, *, spread: dict[str, float], noise_nm: float,
             # the noise's spread, and half the SIMEX correction: how far off it may be
             "noise_nm": math.hypot(spread[name], 0.5 * corrections.get(name, 0.0)),
             "method_nm": math.sqrt((share * value) ** 2 + floor**2
-                                   + (k_noise * noise) ** 2),
+                                   + (k_noise * noise) ** 2
+                                   + (scale_uncertainty * value) ** 2),
             "wavelength_nm": value * wavelength_uncertainty_nm / wavelength_nm,
             "reference_nm": reference_uncertainty_nm / COVERAGE_FACTOR,
         }

@@ -8,6 +8,7 @@ truth in ``tests/refset`` (direct quadrature, written without the project's code
 from __future__ import annotations
 
 import math
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -236,6 +237,27 @@ def test_stated_uncertainties_enter_in_quadrature_with_k_2():
     u_lam = abs(base.power_nm) * 0.01
     assert wl.uncertainty_nm["power_nm"] / 2 == pytest.approx(
         math.hypot(base.uncertainty_nm["power_nm"] / 2, u_lam), rel=1e-9)
+
+
+def test_a_scale_uncertainty_is_a_share_of_every_figure_in_the_method_part():
+    # GUM (JCGM 100:2008) 5.1: independent parts add in quadrature. The intensity fit's
+    # aperture sets the height scale to about 1 % (u), so every figure gains u |F| there.
+    from flatsight.analysis.pipeline import _scale_uncertainty
+    from flatsight.analysis.uncertainty import INTENSITY_FIT_SCALE
+
+    base = figures_of({4: 40.0, 6: 12.0})
+    scaled = figures_of({4: 40.0, 6: 12.0}, scale_uncertainty=INTENSITY_FIT_SCALE)
+    for name in ("rms_nm", "power_nm", "astigmatism_nm", "rms_irregularity_nm"):
+        value = abs(getattr(base, name))
+        assert scaled.uncertainty_budget[name]["method_nm"] == pytest.approx(math.hypot(
+            base.uncertainty_budget[name]["method_nm"], INTENSITY_FIT_SCALE * value),
+            rel=1e-9)
+        assert scaled.uncertainty_nm[name] > base.uncertainty_nm[name]
+    # only the intensity fit's aperture carries it: its own photo, or any averaged one
+    assert _scale_uncertainty("carrier") == 0.0
+    assert _scale_uncertainty("intensity-fit") == INTENSITY_FIT_SCALE
+    assert _scale_uncertainty(None, [SimpleNamespace(method="carrier"),
+                                     SimpleNamespace(method="intensity-fit")]) > 0
 
 
 def test_the_photo_count_is_no_second_divisor():
