@@ -53,6 +53,7 @@ def _measure(job):
         return seed, kind, None, case.truth, str(exc), case.part
     found = m.aperture.kind
     figures = {name: float(getattr(m.figures, name)) for name in TARGETS}
+    figures.update({"U " + name: float(m.figures.uncertainty_nm[name]) for name in TARGETS})
     return seed, kind, (found, figures), case.truth, None, case.part
 
 
@@ -71,7 +72,7 @@ def main(argv=None) -> int:
     table = {}
     for seed, kind, got, truth, error, _part in results:
         row = table.setdefault(kind, {"n": 0, "kind_ok": 0, "refused": 0,
-                                      **{f: [0, 0.0] for f in TARGETS}})
+                                      **{f: [0, 0.0, 0] for f in TARGETS}})
         row["n"] += 1
         if got is None:
             row["refused"] += 1
@@ -88,21 +89,24 @@ def main(argv=None) -> int:
             row[name][0] += abs(err) <= allowed
             # the worst error as a share of what is allowed
             row[name][1] = max(row[name][1], abs(err) / allowed)
+            row[name][2] += abs(err) <= figures["U " + name]  # the truth within U
             if name == "rms_nm" and abs(err) > allowed:
                 print(f"  {kind} seed {seed}: RMS {figures[name]:.2f} nm, true {true:.2f} "
                       f"nm (found {found})")
     print()
     head = f"{'shape':8} {'photos':>6} {'outline':>8} {'refused':>7}"
     for name in TARGETS:
-        head += f" {LABELS[name] + ' ok':>9} {'worst':>6}"
+        head += f" {LABELS[name] + ' ok':>9} {'worst':>6} {'in U':>5}"
     print(head)
     for kind, row in table.items():
         line = f"{kind:8} {row['n']:6d} {row['kind_ok']:8d} {row['refused']:7d}"
         for name in TARGETS:
-            ok, worst = row[name]
-            line += f" {ok:9d} {worst:6.2f}" if math.isfinite(worst) else f" {ok:9d}      -"
+            ok, worst, covered = row[name]
+            line += (f" {ok:9d} {worst:6.2f}" if math.isfinite(worst) else f" {ok:9d}      -")
+            line += f" {covered:5d}"
         print(line)
-    print("\nworst: the largest error as a multiple of what the target allows (1.00 = at it)")
+    print("\nworst: the largest error as a multiple of what the target allows (1.00 = at it); "
+          "in U: photos whose error lies within the record's expanded uncertainty U")
     return 0
 
 

@@ -268,9 +268,9 @@ def _print_table(record: dict) -> None:
     step = record["step_found_deg"]
     c.print(Text.assemble(
         (f"{len(record['frames'])} frames", "bold"),
-        f" from {shown(record['frames'][0])}   "
-        f"{record['wavelength_nm']:g} nm   aperture {_outline_text(ap)}"
+        f" from {shown(record['frames'][0])}   {record['wavelength_nm']:g} nm"
     ))
+    c.print(Text(f"aperture {_outline_text(ap)}"))  # data, never markup
     c.print(
         f"algorithm: {record['algorithm']}   step found: "
         f"{'-' if step is None else f'{step:.2f} deg'}   visibility "
