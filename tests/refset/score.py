@@ -31,20 +31,22 @@ def within(figure: str, true_nm: float) -> float:
     return max(floor, share * abs(true_nm))
 
 
-def score(record: Mapping, truth: Mapping) -> dict[str, dict]:
-    """Error, allowance and uncertainty coverage of every figure of a record.
+def score(record: Mapping, truth: Mapping,
+          targets: Mapping[str, tuple[float, float]] = TARGETS) -> dict[str, dict]:
+    """Error, allowance and uncertainty coverage of each figure of ``targets`` (by
+    default every figure, :data:`TARGETS`) in a record.
 
     Returns ``{figure: {"true", "measured", "error", "allowed", "ok", "u", "covered"}}``;
     ``u`` is the record's expanded uncertainty (None when it gives none).
     """
     out = {}
     unc = record.get("uncertainty") or {}
-    for fig in FIGURES:
+    for fig, (floor, share) in targets.items():
         t = float(truth[fig])
         m = record.get(fig)
         m = float(m) if m is not None else math.nan
         err = m - t
-        allowed = within(fig, t)
+        allowed = max(floor, share * abs(t))
         u = unc.get(fig)
         out[fig] = {
             "true": t, "measured": m, "error": err, "allowed": allowed,
@@ -76,22 +78,6 @@ FEW_FRINGE_OTHERS: dict[str, tuple[float, float]] = {
 def score_few_fringes(record: Mapping, truth: Mapping,
                       targets: Mapping[str, tuple[float, float]] = FEW_FRINGE_TARGETS
                       ) -> dict[str, dict]:
-    """Error and allowance of each figure of ``targets`` (by default RMS, PVr and power,
-    :data:`FEW_FRINGE_TARGETS`).
-
-    Returns ``{figure: {"true", "measured", "error", "allowed", "ok", "covered"}}``;
-    ``covered`` tells whether the record's expanded uncertainty holds the error (None
-    when the record gives none).
-    """
-    out = {}
-    unc = record.get("uncertainty") or {}
-    for fig, (floor, share) in targets.items():
-        t = float(truth[fig])
-        m = record.get(fig)
-        m = float(m) if m is not None else math.nan
-        allowed = max(floor, share * abs(t))
-        u = unc.get(fig)
-        out[fig] = {"true": t, "measured": m, "error": m - t, "allowed": allowed,
-                    "ok": bool(abs(m - t) <= allowed),
-                    "covered": None if u is None else bool(abs(m - t) <= float(u))}
-    return out
+    """:func:`score` against the few-fringe targets (by default RMS, PVr and power,
+    :data:`FEW_FRINGE_TARGETS`; :data:`FEW_FRINGE_OTHERS` for the other figures)."""
+    return score(record, truth, targets)
