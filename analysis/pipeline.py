@@ -350,6 +350,11 @@ def _part_pixels(aperture: Aperture, geometry: MapGeometry, xu: np.ndarray,
     return aperture.region(*geometry.photo_xy()), True
 
 
+def _methods(method: str | None, per_photo=()) -> set:
+    """The single-photo methods behind a map: its own, or each averaged photo's."""
+    return {method} | {getattr(q, "method", None) for q in (per_photo or ())}
+
+
 def _scale_uncertainty(method: str | None, per_photo=()) -> float:
     """The height scale's relative standard uncertainty from how the aperture was set:
     the intensity fit's (its own photo's, or any averaged photo's) finds it from the
@@ -358,8 +363,15 @@ def _scale_uncertainty(method: str | None, per_photo=()) -> float:
     every photo of a part alike."""
     from .uncertainty import INTENSITY_FIT_SCALE
 
-    methods = {method} | {getattr(q, "method", None) for q in (per_photo or ())}
-    return INTENSITY_FIT_SCALE if "intensity-fit" in methods else 0.0
+    return INTENSITY_FIT_SCALE if "intensity-fit" in _methods(method, per_photo) else 0.0
+
+
+def _demodulated_outline(aperture: Aperture, method: str | None, per_photo=()) -> str | None:
+    """The outline kind whose corners add to the method part (``uncertainty.OUTLINE_METHOD``)
+    when the map is one photo's demodulation, or an average of such; None for a
+    phase-shifted stack or a combined map, whose heights no demodulation window smoothed."""
+    demodulated = _methods(method, per_photo) & {"carrier", "intensity-fit"}
+    return aperture.kind if demodulated else None
 
 
 def _resolution_px(resolution_cycles_per_aperture: float, xu: np.ndarray) -> float | None:
@@ -465,7 +477,8 @@ def measurement_from_height(
         wavelength_uncertainty_nm=settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=settings.reference_uncertainty_nm,
         photos=int(qf.get("photos", 1)), prepared=prepared, region=region,
-        scale_uncertainty=_scale_uncertainty(qf.get("method"), qf.get("per_photo", ())))
+        scale_uncertainty=_scale_uncertainty(qf.get("method"), qf.get("per_photo", ())),
+        outline=_demodulated_outline(aperture, qf.get("method"), qf.get("per_photo", ())))
     tilt = basis[:, :3] @ fit.coefficients_nm[:3]
     surface = np.full(np.shape(height_nm), np.nan)
     surface[valid] = h - tilt
@@ -572,7 +585,8 @@ def with_terms_removed(
         wavelength_uncertainty_nm=m.settings.wavelength_uncertainty_nm,
         reference_uncertainty_nm=m.settings.reference_uncertainty_nm,
         photos=m.quality.photos, prepared=prepared, region=region,
-        scale_uncertainty=_scale_uncertainty(m.quality.method, m.quality.per_photo))
+        scale_uncertainty=_scale_uncertainty(m.quality.method, m.quality.per_photo),
+        outline=_demodulated_outline(m.aperture, m.quality.method, m.quality.per_photo))
     idx = [j - 1 for j in removed if j <= m.zernike.n_terms]
     out = np.full(m.height_nm.shape, np.nan)
     out[valid] = h - basis[:, idx] @ m.zernike.coefficients_nm[idx]

@@ -45,8 +45,8 @@ import math
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["COVERAGE_FACTOR", "INTENSITY_FIT_SCALE", "METHOD", "UNCERTAIN_FIGURES",
-           "expanded_uncertainty", "noise_effects"]
+__all__ = ["COVERAGE_FACTOR", "INTENSITY_FIT_SCALE", "METHOD", "OUTLINE_METHOD",
+           "UNCERTAIN_FIGURES", "expanded_uncertainty", "noise_effects"]
 
 COVERAGE_FACTOR = 2.0
 UNCERTAIN_FIGURES = ("pv_nm", "rms_nm", "pvr_nm", "power_nm", "irregularity_nm",
@@ -75,6 +75,26 @@ METHOD = {
 #: (seeds 200-229, kinds few, bent and closed): standard deviation 0.85-1.3 %, mean
 #: 0.3-0.5 %. With a carrier the aperture is found ten times closer, within METHOD.
 INTENSITY_FIT_SCALE = 0.011
+#: outline kind -> figure -> a further share of the figure (relative standard uncertainty)
+#: in the method part of a single photo's figures on a part that is not a circle seen
+#: square-on. ``METHOD`` was set on round parts; a rectangle's or polygon's corners, a
+#: ring's inner edge and the ends of a round part's flats meet the demodulation window
+#: with part of it outside, where detail finer than the fringes carry is left
+#: unresolved, and a peak-to-valley that lands there can be off by a tenth of itself or
+#: more (an ellipse's, mapped back to the part's circle, somewhat less). Set from the
+#: errors on dev seeds 0-59 of tests/refset/shaped.py (an independent generator; truth
+#: by quadrature or a direct sum over the part) so that U covers a little over 90 % of
+#: them, and checked on held-out seeds (benchmarks/shape_accuracy.py: the truth within U
+#: on 95 % of pairs, seeds 200-229). PVr takes PV's share (its truth within U on 27-30
+#: of 30 per outline there); RMS and RMSi need none. A phase-shifted stack resolves the
+#: corners and takes none of these (its B within U on 26-30 of 30).
+OUTLINE_METHOD = {
+    "rect": {"pv_nm": 0.06, "pvr_nm": 0.06, "irregularity_nm": 0.15},
+    "poly": {"pv_nm": 0.085, "pvr_nm": 0.085, "irregularity_nm": 0.10, "power_nm": 0.025},
+    "annulus": {"pv_nm": 0.035, "pvr_nm": 0.035, "irregularity_nm": 0.10},
+    "ellipse": {"pv_nm": 0.03, "pvr_nm": 0.03, "irregularity_nm": 0.08},
+    "cut": {"irregularity_nm": 0.04},
+}
 _REALISATIONS = 8
 # noise added in the Monte Carlo, in units of the map's own: the map then carries sqrt(1 + a^2)
 # times its noise (sqrt 2 and 2), the two points beyond the measurement SIMEX extrapolates from
@@ -185,7 +205,7 @@ def expanded_uncertainty(figures, *, spread: dict[str, float], noise_nm: float,
                          wavelength_nm: float, wavelength_uncertainty_nm: float = 0.0,
                          reference_uncertainty_nm: float = 0.0, photos: int = 1,
                          corrections: dict[str, float] | None = None,
-                         scale_uncertainty: float = 0.0,
+                         scale_uncertainty: float = 0.0, outline: str | None = None,
                          ) -> tuple[dict[str, float], dict[str, dict]]:
     """Expanded uncertainty (k = 2) of each figure, and its budget.
 
@@ -223,16 +243,18 @@ def expanded_uncertainty(figures, *, spread: dict[str, float], noise_nm: float,
     noise = float(noise_nm)
     base = {name: float(getattr(figures, name)) for name in UNCERTAIN_FIGURES}
     corrections = corrections or {}
+    outline_shares = OUTLINE_METHOD.get(outline or "", {})
     uncertainty, budget = {}, {}
     for name in UNCERTAIN_FIGURES:
         share, floor, k_noise = METHOD[name]
         value = abs(base[name])
+        relative = math.hypot(scale_uncertainty, outline_shares.get(name, 0.0))
         parts = {
             # the noise's spread, and half the SIMEX correction: how far off it may be
             "noise_nm": math.hypot(spread[name], 0.5 * corrections.get(name, 0.0)),
             "method_nm": math.sqrt((share * value) ** 2 + floor**2
                                    + (k_noise * noise) ** 2
-                                   + (scale_uncertainty * value) ** 2),
+                                   + (relative * value) ** 2),
             "wavelength_nm": value * wavelength_uncertainty_nm / wavelength_nm,
             "reference_nm": reference_uncertainty_nm / COVERAGE_FACTOR,
         }

@@ -249,6 +249,11 @@ def subtract_reference(measurement, reference: ReferenceMap) -> ReferenceSubtrac
                 "fringe_period_px": q.fringe_period_px,
                 "resolution_cycles_per_aperture": q.resolution_cycles_per_aperture,
                 "binning": q.binning,
+                # the photo's method stays its own: its scale and outline shares of U
+                "method": q.method,
+                "method_reason": q.method_reason,
+                "per_photo": q.per_photo,
+                "photos": q.photos,
             },
             spectrum=m.spectrum,
             warnings=warnings,

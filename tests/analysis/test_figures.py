@@ -260,6 +260,35 @@ def test_a_scale_uncertainty_is_a_share_of_every_figure_in_the_method_part():
                                      SimpleNamespace(method="intensity-fit")]) > 0
 
 
+def test_corners_add_their_share_to_the_peak_figures_of_one_photo_only():
+    # GUM (JCGM 100:2008) 5.1 again: a rectangle's corners leave detail one photo cannot
+    # resolve, a further share of PV, PVr and B in the method part; the RMS figures keep
+    # theirs (their errors on shaped reference photos stay within the round parts' U).
+    from flatsight.analysis.aperture import Aperture
+    from flatsight.analysis.pipeline import _demodulated_outline
+    from flatsight.analysis.shapes import Rectangle
+    from flatsight.analysis.uncertainty import OUTLINE_METHOD
+
+    base = figures_of({4: 40.0, 6: 12.0, 11: 8.0})
+    rect = figures_of({4: 40.0, 6: 12.0, 11: 8.0}, outline="rect")
+    for name in ("pv_nm", "pvr_nm", "irregularity_nm"):
+        share = OUTLINE_METHOD["rect"][name]
+        assert share > 0.0
+        assert rect.uncertainty_budget[name]["method_nm"] == pytest.approx(math.hypot(
+            base.uncertainty_budget[name]["method_nm"], share * abs(getattr(base, name))),
+            rel=1e-9)
+    for name in ("rms_nm", "rms_irregularity_nm"):
+        assert rect.uncertainty_nm[name] == pytest.approx(base.uncertainty_nm[name], rel=1e-9)
+    # a circle adds nothing; a demodulated photo (or an average of them) takes its
+    # outline's share, a phase-shifted stack (no single-photo method) none
+    assert figures_of({4: 40.0}, outline="circle").uncertainty_nm == pytest.approx(
+        figures_of({4: 40.0}).uncertainty_nm, rel=1e-12)
+    part = Aperture.of_shape(Rectangle(200.0, 150.0, 240.0, 120.0, 10.0))
+    assert _demodulated_outline(part, "carrier") == "rect"
+    assert _demodulated_outline(part, "", [SimpleNamespace(method="intensity-fit")]) == "rect"
+    assert _demodulated_outline(part, "") is None
+
+
 def test_the_photo_count_is_no_second_divisor():
     # An average's map carries the noise averaging left (GUM 4.2.3: u / sqrt N for the
     # mean of N independent values), and U is taken on that map; dividing U by sqrt N

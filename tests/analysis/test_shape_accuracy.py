@@ -63,6 +63,9 @@ def test_the_outline_is_found_and_named(measured):
         cx, cy = case.center_px
         for u, v in true:
             assert abs(m.aperture.shape.edge_distance_px(cx + u, cy - v)) < 6.0
+        # and it has the part's eight corners: the edge's approximation once left two more
+        # where the sides hardly turn (ten), which bent a side a few pixels out of the part
+        assert len(m.aperture.shape.corners_px) == len(true)
     elif case.kind == "annulus":
         # the hole is found as dark as the surround, centred, its edge to half a pixel
         shape = m.aperture.shape

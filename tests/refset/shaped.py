@@ -29,21 +29,28 @@ The polygon's and the annulus' truth is a direct sum over a fine square grid of 
 on the part (:func:`area_truth`, about 1.7 million points, each standing for its small
 square): the same figures as the rectangle's, about the part's own centre of area.
 
+:func:`render_shaped_stack` renders a phase-shifted stack of a case's part: the same
+surface, outline and lamp, a few tilt fringes, the phase stepped between frames; and
+:func:`outline_text` writes the part's true outline as an operator gives it with
+``--aperture``.
+
 Pixel coordinates as in :mod:`photo`: x right, y down, from pixel centres.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .cases import random_surface
 from .photo import carrier_for
-from .surface import RefSurface, truth
+from .surface import FRINGE36_NOLL, RefSurface, truth, zernike
 
-__all__ = ["ShapedCase", "area_truth", "random_shaped_case", "rect_truth", "render_shaped"]
+__all__ = ["ShapedCase", "area_truth", "outline_text", "random_shaped_case", "rect_truth",
+           "render_shaped", "render_shaped_stack"]
 
 
 def _turn(px, py, angle_deg):
@@ -119,11 +126,13 @@ def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960
                   center_px=None, fringes: float = 20.0, angle_deg: float = 30.0,
                   wavelength_nm: float = 632.8, visibility: float = 0.7, level: float = 0.45,
                   noise: float = 0.01, illumination: float = 0.2,
-                  edge_width_px: float = 2.0, seed: int = 0) -> np.ndarray:
+                  edge_width_px: float = 2.0, seed: int | Sequence[int] = 0,
+                  phase_deg: float = 0.0) -> np.ndarray:
     """An 8-bit photo of a shaped part (see the module docstring); ``part`` holds
     ``radius_px, view_deg, axis_deg`` (ellipse) or ``width_px, height_px, angle_deg``
     (rect). ``fringes`` is the count across the part along the carrier, as the
-    operator sees it."""
+    operator sees it. ``phase_deg`` is added to the fringe phase everywhere (a frame of
+    a phase-shifted stack, :func:`render_shaped_stack`; 0 leaves the photo as it was)."""
     rows, cols = shape
     cx, cy = center_px if center_px is not None else ((cols - 1) / 2.0, (rows - 1) / 2.0)
     span = _reach(kind, part)
@@ -137,6 +146,7 @@ def render_shaped(surface: RefSurface, kind: str, part: dict, *, shape=(720, 960
     oblique = math.cos(math.radians(part.get("view_deg", 0.0)))
     phase = 2.0 * math.pi * (fx * (xx - cx) + fy * (yy - cy)) + 4.0 * math.pi * h * oblique \
         / wavelength_nm
+    phase = phase + math.radians(phase_deg)  # adding 0.0 changes no bit
     edge = np.clip(0.5 - dist / (edge_width_px / 0.8), 0.0, 1.0)  # a linear ramp
     light = 1.0 + illumination * 0.5 * (px * 0.8 - py * 0.6) / span
     img = level * light * (0.02 + edge * (1.0 + visibility * np.cos(phase)))
@@ -171,9 +181,19 @@ def _figures(x, y, values, weight, centre) -> dict:
     res_t, _ = residual([one, x, y])
     res_p, c_p = residual([one, x, y, x * x + y * y])
     far = float(np.max((x - centre[0]) ** 2 + (y - centre[1]) ** 2))
+    # PVr (Evans, Opt. Eng. 48(4), 043605, 2009): the PV of the least-squares fit by the
+    # 36 FRINGE terms over the part, its own plane taken out, plus three times the RMS of
+    # what the fit leaves (least squares by numpy.linalg.lstsq: on a narrow rectangle the
+    # terms are far from orthogonal, so no normal equations)
+    terms = np.column_stack([zernike(j, x, y) for j in FRINGE36_NOLL])
+    root = np.sqrt(weight)
+    fit = terms @ np.linalg.lstsq(terms * root[:, None], values * root, rcond=None)[0]
+    plane = np.linalg.lstsq(np.column_stack([one, x, y]) * np.sqrt(weight)[:, None],
+                            fit * np.sqrt(weight), rcond=None)[0]
+    fit_pv = float(np.ptp(fit - (plane[0] + plane[1] * x + plane[2] * y)))
     return {"rms_nm": rms(res_t), "pv_nm": float(np.ptp(res_t)),
             "rms_irregularity_nm": rms(res_p), "irregularity_nm": float(np.ptp(res_p)),
-            "power_nm": float(-c_p[3] * far)}
+            "power_nm": float(-c_p[3] * far), "pvr_nm": fit_pv + 3.0 * rms(values - fit)}
 
 
 def area_truth(surface: RefSurface, kind: str, part: dict, points: int = 1500) -> dict:
@@ -218,6 +238,7 @@ class ShapedCase:
     wavelength_nm: float
     truth: dict
     settings: dict = field(default_factory=dict)
+    surface: RefSurface | None = None  # the surface photographed (for more frames of it)
 
 
 def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
@@ -288,4 +309,51 @@ def random_shaped_case(seed: int, kind: str, *, view_deg: float | None = None,
     pixels = render_shaped(surface, kind, part, shape=(rows, cols), center_px=(cx, cy),
                            wavelength_nm=wavelength, seed=seed, **settings)
     return ShapedCase(kind=kind, pixels=pixels, part=part, center_px=(cx, cy),
-                      wavelength_nm=wavelength, truth=answer, settings=settings)
+                      wavelength_nm=wavelength, truth=answer, settings=settings,
+                      surface=surface)
+
+
+def outline_text(case: ShapedCase) -> str:
+    """The part's true outline as an operator types it for ``--aperture`` (the form the
+    README documents: photo pixels, x right, y down; angles counter-clockwise as seen)."""
+    cx, cy = case.center_px
+    p = case.part
+
+    def nums(*values):
+        return ",".join(f"{v:.6f}" for v in values)
+
+    if case.kind == "ellipse":
+        b = p["radius_px"] * math.cos(math.radians(p["view_deg"]))
+        return "ellipse:" + nums(cx, cy, p["radius_px"], b, p["axis_deg"])
+    if case.kind == "rect":
+        return "rect:" + nums(cx, cy, p["width_px"], p["height_px"], p["angle_deg"])
+    if case.kind == "poly":  # offsets with y up to photo pixels with y down
+        return "poly:" + ";".join(nums(cx + a, cy - b) for a, b in p["corners_px"])
+    if case.kind == "annulus":
+        return "annulus:" + nums(cx, cy, p["radius_px"], p["inner_px"])
+    # the flats' directions are already counter-clockwise with y up, as --aperture takes them
+    return "cut:" + nums(cx, cy, p["radius_px"]) + "".join(
+        ";" + nums(a, d) for a, d in p["flats"])
+
+
+def render_shaped_stack(case: ShapedCase, count: int, step_deg: float, *,
+                        fringes: float | None = None, seed: int = 0) -> list[np.ndarray]:
+    """``count`` 8-bit frames of ``case``'s part taken with the gap widening by
+    ``step_deg`` of fringe phase between frames.
+
+    The surface, part, lamp, edge, visibility and noise level are the case's (as
+    :func:`render_shaped` draws its photo); only the tilt differs: ``fringes`` across the
+    part (by default 2 to 6, drawn from ``seed``), as an operator leaves a few in a
+    stack. The photo's phase rises with height, that is as the gap narrows, so with the gap
+    widening frame ``k``'s phase is the photo's less ``k * step_deg``. Each frame has its
+    own camera noise (from ``seed`` and ``k``).
+    """
+    if case.surface is None:
+        raise ValueError("the case carries no surface to render more frames of")
+    if fringes is None:
+        fringes = float(np.random.default_rng([seed, 1]).uniform(2.0, 6.0))
+    settings = {**case.settings, "fringes": float(fringes)}
+    return [render_shaped(case.surface, case.kind, case.part, shape=case.pixels.shape,
+                          center_px=case.center_px, wavelength_nm=case.wavelength_nm,
+                          seed=[seed, 2, k], phase_deg=-k * step_deg, **settings)
+            for k in range(count)]

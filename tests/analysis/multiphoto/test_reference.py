@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 from flatsight.analysis.aperture import Aperture
@@ -23,7 +25,8 @@ def stored_map(shape=(150, 170), center=(88.4, 73.2), radius=64.0):
     return np.where(np.hypot(xu, yu) <= 1.0, h, np.nan)
 
 
-def measured_pair(shape=(231, 240), center=(250.0, 190.0), radius=180.0, step=1.6):
+def measured_pair(shape=(231, 240), center=(250.0, 190.0), radius=180.0, step=1.6,
+                  method="carrier"):
     """What a photo of the part against that reference measures: the sum of both."""
     ox = center[0] - step * (shape[1] - 1) / 2
     oy = center[1] - step * (shape[0] - 1) / 2
@@ -39,6 +42,7 @@ def measured_pair(shape=(231, 240), center=(250.0, 190.0), radius=180.0, step=1.
         geometry=geometry,
         settings=MeasureSettings(),
         photo="BW-FL-0412.png",
+        quality_fields={"method": method},
     )
 
 
@@ -71,6 +75,25 @@ def test_subtracting_the_reference_leaves_the_part(tmp_path, suffix):
     assert out.measurement.photo == m.photo
     # the pair's own fit still carried the reference's terms
     assert m.zernike.coefficients_nm[5] == pytest.approx(-5.0, abs=0.25)
+
+
+def test_the_photo_keeps_its_method_and_its_share_of_u(tmp_path):
+    # The map left after the reference is taken out is still the photo's: an intensity
+    # fit's aperture sets its height scale as before, so its figures keep that share of
+    # U (GUM, JCGM 100:2008, 5.1: the parts add in quadrature) and the record its method.
+    from flatsight.analysis.uncertainty import INTENSITY_FIT_SCALE
+
+    path = tmp_path / "r.npy"
+    np.save(path, stored_map())
+    ref = load_reference_map(path)
+    fit = subtract_reference(measured_pair(method="intensity-fit"), ref).measurement
+    carrier = subtract_reference(measured_pair(method="carrier"), ref).measurement
+    assert fit.quality.method == "intensity-fit" and carrier.quality.method == "carrier"
+    for name in ("rms_nm", "power_nm"):
+        value = abs(getattr(carrier.figures, name))
+        assert fit.figures.uncertainty_budget[name]["method_nm"] == pytest.approx(math.hypot(
+            carrier.figures.uncertainty_budget[name]["method_nm"],
+            INTENSITY_FIT_SCALE * value), rel=1e-6)
 
 
 def test_input_measurement_is_left_alone(tmp_path):
