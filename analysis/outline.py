@@ -689,29 +689,44 @@ def _fit(start: Shape, x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[
 
 def _polygon_fit(x: np.ndarray, y: np.ndarray, tolerance: float) -> tuple[Polygon, float] | None:
     """The polygon that fits the outline, and its median miss; None when no polygon of 3
-    to 12 corners does, or a fitted corner has left the outline."""
+    to 12 corners does."""
     corners = _polygon_corners(x, y, tolerance)
     if corners is None:
         return None
-    poly, miss = _fit(corners, x, y, tolerance)
-    if not isinstance(poly, Polygon) or miss > tolerance:
-        return None
+
+    def reach(shape: Polygon) -> np.ndarray:
+        """How far each corner lies from the outline's nearest point (binned px)."""
+        return np.array([np.min(np.hypot(x - px, y - py)) for px, py in shape.corners_px])
+
+    def without(shape: Polygon, i: int) -> Polygon:
+        return Polygon(tuple(map(tuple, np.delete(np.asarray(shape.corners_px), i, axis=0))))
+
+    while True:
+        poly, miss = _fit(corners, x, y, tolerance)
+        if not isinstance(poly, Polygon) or miss > tolerance:
+            return None
+        far = reach(poly)
+        if np.all(far <= 4.0 * tolerance):
+            break
+        # a corner the fit flung far off along its side: the approximation put one too
+        # many there (two along one rounded corner); the start goes on without it
+        if len(corners.corners_px) <= 3:
+            return None
+        corners = without(corners, int(np.argmax(far)))
     # a fitted corner where the sides hardly turn (under 20 deg) is the approximation's:
     # left in, it bends a side a few pixels out of the part, where the map is not the
     # part's. It goes, and the rest are fitted again, while the fit stays about as close.
     while len(poly.corners_px) > 3:
-        points = np.asarray(poly.corners_px, dtype=float)
-        turns = _turns(points)
+        turns = _turns(np.asarray(poly.corners_px, dtype=float))
         i = int(np.argmin(turns))
         if turns[i] >= math.radians(20.0):
             break
-        fewer, fewer_miss = _fit(Polygon(tuple(map(tuple, np.delete(points, i, axis=0)))),
-                                 x, y, tolerance)
-        if not isinstance(fewer, Polygon) or fewer_miss > 1.3 * miss + 0.02 * tolerance:
+        fewer, fewer_miss = _fit(without(poly, i), x, y, tolerance)
+        if (not isinstance(fewer, Polygon) or fewer_miss > 1.3 * miss + 0.02 * tolerance
+                or np.any(reach(fewer) > 4.0 * tolerance)):
             break
         poly, miss = fewer, fewer_miss
-    reach = np.array([np.min(np.hypot(x - px, y - py)) for px, py in poly.corners_px])
-    return (poly, miss) if np.all(reach <= 4.0 * tolerance) else None
+    return poly, miss
 
 
 def _turns(points: np.ndarray) -> np.ndarray:
