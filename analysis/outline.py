@@ -785,10 +785,9 @@ def _polygon_corners(x: np.ndarray, y: np.ndarray, tolerance: float) -> Polygon 
     # a corner where the outline hardly turns is the approximation's, not the part's:
     # the fit below would fling it far off
     while len(points) > 3:
-        a = points - np.roll(points, 1, axis=0)
-        b = np.roll(points, -1, axis=0) - points
+        sides = np.hypot(*(np.roll(points, -1, axis=0) - points).T)  # side i: i to i + 1
+        short = np.minimum(sides, np.roll(sides, 1))  # the shorter side at each corner
         turn = _turns(points)
-        short = np.minimum(np.hypot(*a.T), np.hypot(*b.T))
         weak = np.where(short < 4.0 * tolerance, 0.0, turn)
         i = int(np.argmin(weak))
         if weak[i] >= math.radians(10.0):
