@@ -16,7 +16,11 @@ measured pixels stands in.
 * **Irregularity (B)** is the PV after piston, tilt and power are removed, astigmatism
   included (ISO 10110-5, read as ISO 14999-4 describes, from memory).
 * **C** is the PV of the rotationally symmetric part beyond power: the filtered map's
-  mean around each circle about the centre, less its best fit by ``a + b rho^2``.
+  mean around each circle about the centre, less its best fit by ``a + b rho^2``. On an
+  outline other than the disk the circles may be cut by it; the radial part is then
+  first fitted together with the terms that are not radial (to radial order 4), so a
+  rectangle's astigmatism is not read as symmetric, and only what that fit leaves is
+  averaged around the circles.
 * **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map with piston and tilt, then power
   too, removed; RMSa is the RMS of what is left after the mean around each circle is
   taken out (the non-rotationally-symmetric part).
@@ -56,6 +60,7 @@ from .zernike import (
     nm_basis,
     noll_to_nm,
     orthonormalized,
+    zernike_basis,
 )
 
 __all__ = [
@@ -74,6 +79,9 @@ PISTON_TILT = (1, 2, 3)
 PVR_TERMS = 36  # Evans's PVr: the first 36 terms of the Fringe set
 FIGURE_TERMS = 45  # the fit that stands in for unmeasured pixels: Noll 1..45, n <= 8
 _SECTORS = 16
+# on an outline other than the disk, the symmetric part is told from the terms up to this
+# one that are not radial (radial order 4) by fitting them together (``_radial_part``)
+_SEPARATED_TERMS = 15
 SQRT3 = float(np.sqrt(3.0))
 SQRT6 = float(np.sqrt(6.0))
 
@@ -219,6 +227,7 @@ class MapFigures:
     # (on the disk -2 sqrt 3: Noll 4 is sqrt 3 (2 rho^2 - 1), from centre to rim)
     orthonormal: bool = False
     power_per_a4: float = -2.0 * SQRT3
+    xy: tuple[np.ndarray, np.ndarray] | None = None  # (Q,) coordinates of each disk pixel
 
     @classmethod
     def of(cls, height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray, *,
@@ -267,13 +276,14 @@ class MapFigures:
             fringe_basis=fringe, fringe_inverse=_least_squares_inverse(fringe[measured]),
             measured_nm=np.asarray(height_nm, dtype=float)[disk][measured],
             noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors,
-            orthonormal=orthonormal, power_per_a4=power_per_a4)
+            orthonormal=orthonormal, power_per_a4=power_per_a4, xy=(x, y))
         return prepared.with_noise_measured()
 
     def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
         """The same map with ``delta_nm`` (over the disk's pixels) added where measured."""
         copy = replace(self, measured_nm=self.measured_nm + delta_nm[self.measured])
         copy.__dict__["smoothed_weight"] = self.smoothed_weight  # the same pixels
+        copy.__dict__["_radial_fit"] = self._radial_fit
         return copy
 
     @cached_property
@@ -330,11 +340,45 @@ class MapFigures:
         """The fit's rotationally symmetric Noll terms (m = 0), piston and power included.
 
         None on an outline other than the disk: made orthonormal over it, no term is
-        exactly radial, and the mean around each ring alone gives the symmetric part.
+        exactly radial (the radial part is then fitted afresh, ``_radial_part``).
         """
         if self.orthonormal:
             return []
         return [j for j in range(1, self.coefficients_nm.size + 1) if noll_to_nm(j)[1] == 0]
+
+    @cached_property
+    def _radial_fit(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """On an outline other than the disk: the radial polynomials ``1, rho^2 .. rho^8``
+        and the plain Noll terms up to radial order 4 that are not radial, over its
+        pixels, and their least-squares inverse (None on the disk)."""
+        if not self.orthonormal:
+            return None
+        radial = np.stack([self.rho ** (2 * k) for k in range(5)], axis=1)
+        x, y = self.xy
+        others = [j for j in range(2, _SEPARATED_TERMS + 1) if noll_to_nm(j)[1] != 0]
+        design = np.concatenate([radial, zernike_basis(_SEPARATED_TERMS, x, y)[
+            :, [j - 1 for j in others]]], axis=1)
+        return design, np.linalg.pinv(design)
+
+    def _radial_part(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray | float]:
+        """The exactly radial part of ``values`` the symmetric figures start from.
+
+        On the disk, the fit's own m = 0 terms. On any other outline the terms are
+        orthonormal over the part and none is radial: there the radial part is what
+        ``1, rho^2 .. rho^8`` (the powers of Noll 1, 4, 11, 22, 37) take in a least-squares
+        fit by them together with the Noll terms up to radial order 4 that are not
+        radial. Fitted together, a rectangle's or a polygon's astigmatism and coma are not
+        taken for symmetric, as the mean around rings the outline cuts would take them;
+        on whole rings (an annulus) the two agree.
+
+        Returns the radial part and the part of ``values`` the mean around rings must not
+        see (the fitted terms that are not radial; 0 on the disk, whose rings are whole).
+        """
+        if self._radial_fit is None:
+            return self.terms(self.symmetric_terms), 0.0
+        design, inverse = self._radial_fit
+        coef = inverse @ values
+        return design[:, :5] @ coef[:5], design[:, 5:] @ coef[5:]
 
     def terms(self, js) -> np.ndarray:
         """Sum of the fitted Noll terms ``js`` over the disk."""
@@ -373,11 +417,12 @@ class MapFigures:
         left = surface - pt
         irregular = surface - ptp_
         tilted = surface - self.terms(PISTON_TILT)
-        # the symmetric part: the fit's own m = 0 terms (exactly radial) plus the mean
-        # around each ring of what the fit leaves (small, so a ring of pixels that samples
-        # its circle unevenly hardly matters)
-        m0 = self.terms(self.symmetric_terms)
-        mean, rho2, n = self.symmetric_profile(tilted - m0)
+        # the symmetric part: an exactly radial part plus the mean around each ring of
+        # what it leaves (small, so a ring of pixels that samples its circle unevenly, or
+        # spans a little of the radius, hardly matters: on a ring the power
+        # left in a ring two pixels wide once read C 12 nm on a surface with none)
+        m0, not_radial = self._radial_part(tilted)
+        mean, rho2, n = self.symmetric_profile(tilted - m0 - not_radial)
         ring_of = np.cumsum(np.bincount(self.radial_bins) > 0) - 1
         symmetric_px = m0 + mean[ring_of[self.radial_bins]]
         # C: that profile less its best a + b rho^2 (pixels weigh by their area)

@@ -128,6 +128,35 @@ def test_symmetric_irregularity_takes_only_the_rotationally_symmetric_part():
     assert g.symmetric_irregularity_nm == pytest.approx(0.0, abs=0.1)
 
 
+@pytest.mark.parametrize("outline", ["ring", "rect"])
+def test_symmetric_irregularity_over_a_part_that_is_not_the_disk(outline):
+    # ISO 10110-5's C is the rotationally symmetric part beyond power: power and
+    # astigmatism alone leave none, over any outline. On a ring, a term in rho^4 leaves
+    # its own profile less the best a + b rho^2 (least squares by area, weight rho); the
+    # truth here is that PV on a fine 1-D grid by numpy.linalg.lstsq (direct numerical
+    # evaluation). Terms made orthonormal over the part have no radial term, and the
+    # power left within each ring two pixels wide once read C 12 nm on a surface with none.
+    xu, yu = grid(241)
+    rho = np.hypot(xu, yu)
+    region = (rho <= 1.0) & (rho >= 0.35) if outline == "ring" else (
+        (np.abs(xu) <= 0.8) & (np.abs(yu) <= 0.6))
+
+    def c_of(h):
+        fit = fit_zernike(h[region], xu[region], yu[region], n_terms=36)
+        return compute_figures(h, region, xu, yu, fit, wavelength_nm=632.8, region=region)
+
+    plain = c_of(300.0 * rho**2 + 40.0 * (xu**2 - yu**2) + 5.0 * xu)
+    assert plain.symmetric_irregularity_nm == pytest.approx(0.0, abs=0.3)
+    if outline == "ring":
+        r = np.linspace(0.35, 1.0, 20001)
+        profile = 30.0 * r**4
+        design = np.column_stack([np.ones_like(r), r**2]) * np.sqrt(r)[:, None]
+        ab = np.linalg.lstsq(design, profile * np.sqrt(r), rcond=None)[0]
+        expected = float(np.ptp(profile - ab[0] - ab[1] * r**2))
+        f = c_of(300.0 * rho**2 + 30.0 * rho**4 + 40.0 * xu * yu)
+        assert f.symmetric_irregularity_nm == pytest.approx(expected, rel=0.03)
+
+
 @pytest.mark.parametrize("a5, a6, axis", [(0.0, 10.0, 0.0), (10.0, 0.0, 45.0),
                                           (0.0, -10.0, 90.0), (-10.0, 0.0, 135.0)])
 def test_astigmatism_pv_and_axis(a5, a6, axis):

@@ -28,6 +28,12 @@ Five kinds, rendered and judged with no project code:
 The polygon's and the annulus' truth is a direct sum over a fine square grid of points
 on the part (:func:`area_truth`, about 1.7 million points, each standing for its small
 square): the same figures as the rectangle's, about the part's own centre of area.
+Every outline's truth also holds the astigmatism: the PV over the part of what the
+best-fit quadratic ``{1, x, y, rho^2, xy, x^2 - y^2}`` holds beyond the best-fit
+``{1, x, y, rho^2}`` (Noll 5 and 6 made orthonormal over the part after 1-4). A ring's
+and an ellipse's circle hold whole rings about the centre, and their truth holds C and
+RMSa too (from the means around thin rings); the others' rings are cut by the outline
+and have none.
 
 :func:`render_shaped_stack` renders a phase-shifted stack of a case's part: the same
 surface, outline and lamp, a few tilt fringes, the phase stepped between frames; and
@@ -191,9 +197,38 @@ def _figures(x, y, values, weight, centre) -> dict:
     plane = np.linalg.lstsq(np.column_stack([one, x, y]) * np.sqrt(weight)[:, None],
                             fit * np.sqrt(weight), rcond=None)[0]
     fit_pv = float(np.ptp(fit - (plane[0] + plane[1] * x + plane[2] * y)))
+    # astigmatism: what the full quadratic fit {1, x, y, rho^2, xy, x^2 - y^2} holds beyond
+    # {1, x, y, rho^2}, its PV over the part. That is the part of the surface in Noll 5
+    # and 6 made orthonormal over the part after 1-4 (Gram-Schmidt in Noll order,
+    # Mahajan & Dai, JOSA A 24(9), 2994, 2007); it depends on neither the origin nor the
+    # scale nor the turn of the coordinates, so no outline centre has to agree
+    res_q, _ = residual([one, x, y, x * x + y * y, x * y, x * x - y * y])
     return {"rms_nm": rms(res_t), "pv_nm": float(np.ptp(res_t)),
             "rms_irregularity_nm": rms(res_p), "irregularity_nm": float(np.ptp(res_p)),
-            "power_nm": float(-c_p[3] * far), "pvr_nm": fit_pv + 3.0 * rms(values - fit)}
+            "power_nm": float(-c_p[3] * far), "pvr_nm": fit_pv + 3.0 * rms(values - fit),
+            "astigmatism_nm": float(np.ptp(res_p - res_q))}
+
+
+def _ring_figures(x, y, values, *, inner: float, rings: int = 600) -> dict:
+    """C and RMSa of ``values`` at points ``(x, y)`` on an annulus about the origin from
+    radius ``inner`` to 1, each point weighing alike (ISO 10110-5's C and RMSa as
+    ISO 14999-4 describes them, from memory): the mean around each thin ring is the
+    rotationally symmetric part; C is its PV after its best ``a + b rho^2`` (by area) is
+    taken out; RMSa is the RMS of what the ring means leave, its plane taken out."""
+    rho = np.hypot(x, y)
+    ring = np.minimum(((rho - inner) / (1.0 - inner) * rings).astype(int), rings - 1)
+    count = np.bincount(ring, minlength=rings).astype(float)
+    mean = np.bincount(ring, weights=values, minlength=rings) / np.maximum(count, 1.0)
+    r2 = np.bincount(ring, weights=rho * rho, minlength=rings) / np.maximum(count, 1.0)
+    used = count > 0
+    design = np.column_stack([np.ones(used.sum()), r2[used]]) * np.sqrt(count[used])[:, None]
+    ab = np.linalg.lstsq(design, mean[used] * np.sqrt(count[used]), rcond=None)[0]
+    symmetric = mean[used] - (ab[0] + ab[1] * r2[used])
+    left = values - mean[ring]
+    plane = np.column_stack([np.ones_like(x), x, y])
+    left = left - plane @ np.linalg.lstsq(plane, left, rcond=None)[0]
+    return {"symmetric_irregularity_nm": float(np.ptp(symmetric)),
+            "rms_asymmetric_nm": float(np.sqrt(np.mean(left * left)))}
 
 
 def area_truth(surface: RefSurface, kind: str, part: dict, points: int = 1500) -> dict:
@@ -209,7 +244,10 @@ def area_truth(surface: RefSurface, kind: str, part: dict, points: int = 1500) -
     x, y = xu[on], yu[on]
     values = surface.height_nm(x, y)
     centre = (0.0, 0.0) if kind == "cut" else (float(x.mean()), float(y.mean()))
-    return _figures(x, y, values, np.ones_like(x), centre)
+    answer = _figures(x, y, values, np.ones_like(x), centre)
+    if kind == "annulus":  # whole rings about the part's centre
+        answer.update(_ring_figures(x, y, values, inner=part["inner_px"] / reach))
+    return answer
 
 
 def rect_truth(surface: RefSurface, part: dict, nodes: int = 160) -> dict:

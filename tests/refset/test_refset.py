@@ -621,3 +621,12 @@ def test_area_truth_agrees_with_gauss_legendre_and_the_disk():
     # PVr (Evans, Opt. Eng. 48(4), 043605, 2009) by a least-squares FRINGE-36 fit over
     # the points, against the disk's by projection onto the orthogonal terms
     assert ring["pvr_nm"] == pytest.approx(disk["pvr_nm"], rel=1e-2)
+    # astigmatism as the quadratic fit's part beyond {1, x, y, rho^2}, against the disk's
+    # from its Noll 5 and 6 coefficients by projection; C and RMSa from the means around
+    # thin rings of the grid's points, against the disk's polar quadrature
+    assert ring["astigmatism_nm"] == pytest.approx(disk["astigmatism_nm"], rel=2e-3)
+    assert ring["symmetric_irregularity_nm"] == pytest.approx(
+        disk["symmetric_irregularity_nm"], rel=1e-2)
+    assert ring["rms_asymmetric_nm"] == pytest.approx(disk["rms_asymmetric_nm"], rel=2e-3)
+    # the rectangle's astigmatism by the grid and by Gauss-Legendre nodes
+    assert by_grid["astigmatism_nm"] == pytest.approx(by_nodes["astigmatism_nm"], rel=1e-2)
