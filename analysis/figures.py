@@ -17,10 +17,9 @@ measured pixels stands in.
   included (ISO 10110-5, read as ISO 14999-4 describes, from memory).
 * **C** is the PV of the rotationally symmetric part beyond power: the filtered map's
   mean around each circle about the centre, less its best fit by ``a + b rho^2``. On an
-  outline other than the disk the circles may be cut by it; the radial part is then
-  first fitted together with the terms that are not radial (to radial order 4), so a
-  rectangle's astigmatism is not read as symmetric, and only what that fit leaves is
-  averaged around the circles.
+  outline other than the disk the circles may be cut by it; the best-fit sphere, the
+  plane and the astigmatism are then taken out first, so a rectangle's astigmatism is
+  not read as symmetric, and only what they leave is averaged around the circles.
 * **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map with piston and tilt, then power
   too, removed; RMSa is the RMS of what is left after the mean around each circle is
   taken out (the non-rotationally-symmetric part).
@@ -60,7 +59,6 @@ from .zernike import (
     nm_basis,
     noll_to_nm,
     orthonormalized,
-    zernike_basis,
 )
 
 __all__ = [
@@ -79,9 +77,6 @@ PISTON_TILT = (1, 2, 3)
 PVR_TERMS = 36  # Evans's PVr: the first 36 terms of the Fringe set
 FIGURE_TERMS = 45  # the fit that stands in for unmeasured pixels: Noll 1..45, n <= 8
 _SECTORS = 16
-# on an outline other than the disk, the symmetric part is told from the terms up to this
-# one that are not radial (radial order 4) by fitting them together (``_radial_part``)
-_SEPARATED_TERMS = 15
 SQRT3 = float(np.sqrt(3.0))
 SQRT6 = float(np.sqrt(6.0))
 
@@ -348,37 +343,38 @@ class MapFigures:
 
     @cached_property
     def _radial_fit(self) -> tuple[np.ndarray, np.ndarray] | None:
-        """On an outline other than the disk: the radial polynomials ``1, rho^2 .. rho^8``
-        and the plain Noll terms up to radial order 4 that are not radial, over its
-        pixels, and their least-squares inverse (None on the disk)."""
+        """On an outline other than the disk: ``1, rho^2, x, y`` over its pixels and their
+        least-squares inverse (None on the disk)."""
         if not self.orthonormal:
             return None
-        radial = np.stack([self.rho ** (2 * k) for k in range(5)], axis=1)
         x, y = self.xy
-        others = [j for j in range(2, _SEPARATED_TERMS + 1) if noll_to_nm(j)[1] != 0]
-        design = np.concatenate([radial, zernike_basis(_SEPARATED_TERMS, x, y)[
-            :, [j - 1 for j in others]]], axis=1)
+        design = np.stack([np.ones_like(self.rho), self.rho**2, x, y], axis=1)
         return design, np.linalg.pinv(design)
 
     def _radial_part(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray | float]:
         """The exactly radial part of ``values`` the symmetric figures start from.
 
         On the disk, the fit's own m = 0 terms. On any other outline the terms are
-        orthonormal over the part and none is radial: there the radial part is what
-        ``1, rho^2 .. rho^8`` (the powers of Noll 1, 4, 11, 22, 37) take in a least-squares
-        fit by them together with the Noll terms up to radial order 4 that are not
-        radial. Fitted together, a rectangle's or a polygon's astigmatism and coma are not
-        taken for symmetric, as the mean around rings the outline cuts would take them;
-        on whole rings (an annulus) the two agree.
+        orthonormal over the part and none is radial: there it is the best-fit sphere's
+        ``a + b rho^2`` (fitted with a plane, as power is), and the plane and the
+        astigmatism (terms 5 and 6, orthonormal over the part after 1-4) are taken out
+        before the mean around each ring. A rectangle's astigmatism is then not read as
+        symmetric, as the mean around rings the outline cuts would read it; on whole rings
+        (an annulus) the two agree. Higher orders are left to the rings: over a narrow
+        part, radial and other terms of order 4 and up are nearly alike, and fitted
+        together they split at random (on a 3:1 rectangle C read 27 nm, and RMSa more
+        than the RMS).
 
         Returns the radial part and the part of ``values`` the mean around rings must not
-        see (the fitted terms that are not radial; 0 on the disk, whose rings are whole).
+        see (0 on the disk, whose rings are whole).
         """
         if self._radial_fit is None:
             return self.terms(self.symmetric_terms), 0.0
         design, inverse = self._radial_fit
         coef = inverse @ values
-        return design[:, :5] @ coef[:5], design[:, 5:] @ coef[5:]
+        astig = self.basis[:, 4:6]  # orthonormal over the part: unit mean square
+        not_radial = design[:, 2:] @ coef[2:] + astig @ (astig.T @ values / values.size)
+        return design[:, :2] @ coef[:2], not_radial
 
     def terms(self, js) -> np.ndarray:
         """Sum of the fitted Noll terms ``js`` over the disk."""
