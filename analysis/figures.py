@@ -343,27 +343,29 @@ class MapFigures:
 
     @cached_property
     def _radial_fit(self) -> tuple[np.ndarray, np.ndarray] | None:
-        """On an outline other than the disk: ``1, rho^2, x, y`` over its pixels and their
-        least-squares inverse (None on the disk)."""
+        """On an outline other than the disk: ``1, rho^2, x, y, rho^4, rho^6, rho^8`` over
+        its pixels and their least-squares inverse (None on the disk)."""
         if not self.orthonormal:
             return None
         x, y = self.xy
-        design = np.stack([np.ones_like(self.rho), self.rho**2, x, y], axis=1)
+        design = np.stack([np.ones_like(self.rho), self.rho**2, x, y, self.rho**4,
+                           self.rho**6, self.rho**8], axis=1)
         return design, np.linalg.pinv(design)
 
     def _radial_part(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray | float]:
         """The exactly radial part of ``values`` the symmetric figures start from.
 
         On the disk, the fit's own m = 0 terms. On any other outline the terms are
-        orthonormal over the part and none is radial: there it is the best-fit sphere's
-        ``a + b rho^2`` (fitted with a plane, as power is), and the plane and the
-        astigmatism (terms 5 and 6, orthonormal over the part after 1-4) are taken out
-        before the mean around each ring. A rectangle's astigmatism is then not read as
-        symmetric, as the mean around rings the outline cuts would read it; on whole rings
-        (an annulus) the two agree. Higher orders are left to the rings: over a narrow
-        part, radial and other terms of order 4 and up are nearly alike, and fitted
-        together they split at random (on a 3:1 rectangle C read 27 nm, and RMSa more
-        than the RMS).
+        orthonormal over the part and none is radial: there it is what ``1, rho^2 ..
+        rho^8`` (the powers of Noll 1, 4, 11, 22, 37) take in a fit with a plane once the
+        astigmatism (terms 5 and 6, orthonormal over the part after 1-4) is out, so that
+        a ring two map pixels wide leaves hardly a step of them; the plane and the
+        astigmatism are kept from the mean around each ring. A rectangle's astigmatism is
+        then not read as symmetric, as the mean around rings the outline cuts would read
+        it; on whole rings (an annulus) the two agree. Terms of order 4 and up that are
+        not radial are not fitted with them: over a narrow part they are nearly alike
+        the radial ones, and fitted together the two split at random (on a 3:1 rectangle
+        C read 27 nm, and RMSa more than the RMS).
 
         Returns the radial part and the part of ``values`` the mean around rings must not
         see (0 on the disk, whose rings are whole).
@@ -371,10 +373,11 @@ class MapFigures:
         if self._radial_fit is None:
             return self.terms(self.symmetric_terms), 0.0
         design, inverse = self._radial_fit
-        coef = inverse @ values
-        astig = self.basis[:, 4:6]  # orthonormal over the part: unit mean square
-        not_radial = design[:, 2:] @ coef[2:] + astig @ (astig.T @ values / values.size)
-        return design[:, :2] @ coef[:2], not_radial
+        terms = self.basis[:, 4:6]  # orthonormal over the part: unit mean square
+        astig = terms @ (terms.T @ values / values.size)
+        coef = inverse @ (values - astig)
+        not_radial = design[:, 2:4] @ coef[2:4] + astig
+        return design[:, :2] @ coef[:2] + design[:, 4:] @ coef[4:], not_radial
 
     def terms(self, js) -> np.ndarray:
         """Sum of the fitted Noll terms ``js`` over the disk."""
