@@ -222,7 +222,6 @@ class MapFigures:
     # (on the disk -2 sqrt 3: Noll 4 is sqrt 3 (2 rho^2 - 1), from centre to rim)
     orthonormal: bool = False
     power_per_a4: float = -2.0 * SQRT3
-    xy: tuple[np.ndarray, np.ndarray] | None = None  # (Q,) coordinates of each disk pixel
 
     @classmethod
     def of(cls, height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray, *,
@@ -271,7 +270,7 @@ class MapFigures:
             fringe_basis=fringe, fringe_inverse=_least_squares_inverse(fringe[measured]),
             measured_nm=np.asarray(height_nm, dtype=float)[disk][measured],
             noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors,
-            orthonormal=orthonormal, power_per_a4=power_per_a4, xy=(x, y))
+            orthonormal=orthonormal, power_per_a4=power_per_a4)
         return prepared.with_noise_measured()
 
     def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
@@ -343,13 +342,13 @@ class MapFigures:
 
     @cached_property
     def _radial_fit(self) -> tuple[np.ndarray, np.ndarray] | None:
-        """On an outline other than the disk: ``1, rho^2, x, y, rho^4, rho^6, rho^8`` over
-        its pixels and their least-squares inverse (None on the disk)."""
+        """On an outline other than the disk: ``1, rho^2 .. rho^8`` and the plane (the
+        fit's own terms 2 and 3) over its pixels, and their least-squares inverse (None
+        on the disk)."""
         if not self.orthonormal:
             return None
-        x, y = self.xy
-        design = np.stack([np.ones_like(self.rho), self.rho**2, x, y, self.rho**4,
-                           self.rho**6, self.rho**8], axis=1)
+        design = np.concatenate([self.rho[:, None] ** (2 * np.arange(5)),
+                                 self.basis[:, 1:3]], axis=1)
         return design, np.linalg.pinv(design)
 
     def _radial_part(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray | float]:
@@ -376,8 +375,7 @@ class MapFigures:
         terms = self.basis[:, 4:6]  # orthonormal over the part: unit mean square
         astig = terms @ (terms.T @ values / values.size)
         coef = inverse @ (values - astig)
-        not_radial = design[:, 2:4] @ coef[2:4] + astig
-        return design[:, :2] @ coef[:2] + design[:, 4:] @ coef[4:], not_radial
+        return design[:, :5] @ coef[:5], design[:, 5:] @ coef[5:] + astig
 
     def terms(self, js) -> np.ndarray:
         """Sum of the fitted Noll terms ``js`` over the disk."""
