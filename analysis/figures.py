@@ -11,8 +11,14 @@ measured pixels stands in.
   therefore taken over the *filtered map*: the 45-term Zernike fit plus what the
   measured map departs from it, smoothed (Gaussian) at the method's resolution,
   the finest detail the fringes can carry. Noise finer than that resolution cannot be
-  told from the surface, so nothing real is lost. The raw PV of the unfiltered map is
-  kept as ``pv_raw_nm``.
+  told from the surface, so nothing real is lost. The fit's own terms carry the noise
+  too: each coefficient has a standard deviation the map's noise gives it (computed
+  from the noise's size, grain and growth toward the rim), and a high-order term
+  within a few of those of zero is mostly noise, yet it peaks at the rim where a PV is
+  decided. So in the map the PV figures are taken over, each term beyond power is
+  shrunk by the non-negative garrote at its own noise, ``a max(0, 1 - s^2 / a^2)``
+  (Breiman 1995): a term ten times its noise loses a hundredth of itself, one at its
+  noise is dropped. The raw PV of the unfiltered map is kept as ``pv_raw_nm``.
 * **Irregularity (B)** is the PV after piston, tilt and power are removed, astigmatism
   included (ISO 10110-5, read as ISO 14999-4 describes, from memory).
 * **C** is the PV of the rotationally symmetric part beyond power: the filtered map's
@@ -20,9 +26,10 @@ measured pixels stands in.
   outline other than the disk the circles may be cut by it; the best-fit sphere, the
   plane and the astigmatism are then taken out first, so a rectangle's astigmatism is
   not read as symmetric, and only what they leave is averaged around the circles.
-* **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map with piston and tilt, then power
-  too, removed; RMSa is the RMS of what is left after the mean around each circle is
-  taken out (the non-rotationally-symmetric part).
+* **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map (its terms not shrunk: noise
+  adds to an RMS in quadrature, which the noise-bias step takes out exactly) with
+  piston and tilt, then power too, removed; RMSa is the RMS of what is left after the
+  mean around each circle is taken out (the non-rotationally-symmetric part).
 * **PVr** (Evans 2009): the PV of a fit by the 36 terms of the Fringe set, plus three
   times the RMS of what that fit leaves over the measured pixels, with the map's noise
   (measured from its fine-scale roughness) taken out of that RMS in quadrature.
@@ -35,6 +42,9 @@ measured pixels stands in.
 
 References
 ----------
+L. Breiman, "Better subset regression using the nonnegative garrote", Technometrics
+37(4), 373-384 (1995); for terms orthogonal over the map the garrote is the shrinkage
+above (H.-Y. Gao, J. Comput. Graph. Stat. 7(4), 469-488 (1998), from memory).
 C. J. Evans, "PVr - a robust amplitude parameter for optical surface specification",
 Opt. Eng. 48(4), 043605 (2009).
 ISO 10110-5:2015 (surface form tolerances) and ISO 14999-4:2015 (their
@@ -50,8 +60,10 @@ from dataclasses import dataclass, field, replace
 from functools import cached_property
 
 import numpy as np
+import scipy.fft as sfft
 from scipy import ndimage
 
+from .extension import WORKERS
 from .zernike import (
     ZernikeFit,
     aperture_basis,
@@ -67,6 +79,7 @@ __all__ = [
     "MapFigures",
     "PISTON_TILT",
     "compute_figures",
+    "noise_shape",
     "prepare_map",
     "radius_of_curvature_m",
     "to_fringes",
@@ -77,6 +90,11 @@ PISTON_TILT = (1, 2, 3)
 PVR_TERMS = 36  # Evans's PVr: the first 36 terms of the Fringe set
 FIGURE_TERMS = 45  # the fit that stands in for unmeasured pixels: Noll 1..45, n <= 8
 _SECTORS = 16
+# the peak map's terms shrunk at their noise: those beyond piston, tilt and power (index
+# from 0: Noll 5 on); the figures taken over it
+_SHRUNK_FROM = 4
+_PEAK_FIGURES = ("pv_nm", "irregularity_nm", "symmetric_irregularity_nm")
+_TERMS_PER_TRANSFORM = 9  # bounds the memory the coefficients' noise takes
 SQRT3 = float(np.sqrt(3.0))
 SQRT6 = float(np.sqrt(6.0))
 
@@ -88,7 +106,8 @@ class Figures:
     Attributes
     ----------
     pv_nm : float
-        PV of the filtered map with the removed terms taken out.
+        PV of the filtered map (the fit's noisy terms shrunk) with the removed terms
+        taken out.
     rms_nm : float
         RMS of the filtered map with the removed terms taken out (RMSt).
     pvr_nm : float
@@ -102,7 +121,8 @@ class Figures:
         Radius of the best-fit sphere, signed like the power (None without a diameter
         or with no measurable power).
     irregularity_nm : float
-        PV of the filtered map after piston, tilt and power are removed (ISO 10110-5 B).
+        PV of the filtered map (the fit's noisy terms shrunk) after piston, tilt and
+        power are removed (ISO 10110-5 B).
     astigmatism_nm : float
         PV of the astigmatism terms (Noll 5 and 6) together, ``2 sqrt(6) sqrt(a5^2 + a6^2)``.
     astigmatism_axis_deg : float
@@ -187,6 +207,37 @@ def _smooth(values: np.ndarray, weight: np.ndarray, sigma_px: float,
     return np.where(den > 1e-3, num / np.maximum(den, 1e-3), 0.0)
 
 
+def noise_shape(height_sigma_nm: np.ndarray | None, disk: np.ndarray, measured: np.ndarray,
+                rho: np.ndarray) -> np.ndarray | None:
+    """The noise at each disk pixel relative to the interior's, from the demodulation's
+    per-pixel estimate (only its shape counts): 1 in the interior, up to 5 where the fit
+    had less to go on. None without an estimate."""
+    if height_sigma_nm is None:
+        return None
+    sig = np.asarray(height_sigma_nm, dtype=float)[disk]
+    inner = measured & (rho <= 0.8) & np.isfinite(sig)
+    if inner.sum() <= 50:
+        return None
+    ref = float(np.median(sig[inner])) or 1.0
+    return np.clip(np.nan_to_num(sig / ref, nan=1.0, posinf=5.0), 1.0, 5.0)
+
+
+def _sum_of_columns(basis: np.ndarray, coefficients: np.ndarray, idx: list[int]) -> np.ndarray:
+    """``basis[:, idx] @ coefficients[idx]`` without copying many columns: a run of
+    columns is a view, and beyond a few columns all of them are summed with the rest
+    weighted 0."""
+    idx = sorted(set(idx))
+    if not idx:
+        return np.zeros(basis.shape[0])
+    if idx[-1] - idx[0] + 1 == len(idx):
+        return basis[:, idx[0]:idx[-1] + 1] @ coefficients[idx[0]:idx[-1] + 1]
+    if len(idx) <= 4:
+        return basis[:, idx] @ coefficients[idx]
+    weights = np.zeros(basis.shape[1])
+    weights[idx] = coefficients[idx]
+    return basis @ weights
+
+
 def _least_squares_inverse(basis: np.ndarray) -> np.ndarray:
     """``(B^T B)^-1 B^T``: Zernike terms over a disk are close to orthonormal, so the
     normal equations are well conditioned (a badly masked disk falls back to the SVD)."""
@@ -222,11 +273,15 @@ class MapFigures:
     # (on the disk -2 sqrt 3: Noll 4 is sqrt 3 (2 rho^2 - 1), from centre to rim)
     orthonormal: bool = False
     power_per_a4: float = -2.0 * SQRT3
+    # (Q,) the noise at each disk pixel relative to the interior's (at least 1: larger at
+    # the rim and beside specks, where the demodulation had less to go on), or None
+    noise_shape: np.ndarray | None = None
 
     @classmethod
     def of(cls, height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray, *,
            resolution_px: float | None = None, n_terms: int = FIGURE_TERMS,
-           region: np.ndarray | None = None) -> MapFigures:
+           region: np.ndarray | None = None,
+           height_sigma_nm: np.ndarray | None = None) -> MapFigures:
         """Prepare a map.
 
         Parameters
@@ -246,6 +301,9 @@ class MapFigures:
             The part's pixels when its outline is not the unit disk of ``xu, yu`` (a
             rectangle, a polygon, an annulus): every figure is taken over them, and the
             terms are made orthonormal over them (:func:`zernike.orthonormalized`).
+        height_sigma_nm : (M, N) ndarray, optional
+            The demodulation's noise estimate per pixel: only its shape is used, to grow
+            the noise where the fit had less to go on (:func:`noise_shape`).
         """
         orthonormal = region is not None
         disk = np.hypot(xu, yu) <= 1.0 if region is None else np.asarray(region, bool)
@@ -270,7 +328,8 @@ class MapFigures:
             fringe_basis=fringe, fringe_inverse=_least_squares_inverse(fringe[measured]),
             measured_nm=np.asarray(height_nm, dtype=float)[disk][measured],
             noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors,
-            orthonormal=orthonormal, power_per_a4=power_per_a4)
+            orthonormal=orthonormal, power_per_a4=power_per_a4,
+            noise_shape=noise_shape(height_sigma_nm, disk, measured, rho))
         return prepared.with_noise_measured()
 
     def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
@@ -278,12 +337,62 @@ class MapFigures:
         copy = replace(self, measured_nm=self.measured_nm + delta_nm[self.measured])
         copy.__dict__["smoothed_weight"] = self.smoothed_weight  # the same pixels
         copy.__dict__["_radial_fit"] = self._radial_fit
+        copy.__dict__["coefficient_noise_nm"] = self.coefficient_noise_nm  # the same noise
         return copy
 
     @cached_property
     def coefficients_nm(self) -> np.ndarray:
         """The stand-in fit's Noll coefficients."""
         return self.fit_inverse @ self.measured_nm
+
+    @cached_property
+    def coefficient_noise_nm(self) -> np.ndarray:
+        """Standard deviation of each of the stand-in fit's coefficients under the map's
+        noise, as the Monte Carlo copies carry it (``uncertainty._noise_fields``).
+
+        The fit is ``a = F h``. Noise ``s_x (G * w)_x / sqrt(sum G^2)`` (white noise
+        ``w`` given the map's grain by a Gaussian kernel ``G``, of unit variance, times
+        the noise at each pixel) gives ``var a_j = |G * (F_j s)|^2 / sum G^2``, summed over
+        the plane (generalised least squares: ``F C F^T`` with ``C`` the noise's
+        covariance, written as one smoothing per term).
+        """
+        n = self.coefficients_nm.size
+        if self.noise_nm <= 0:
+            return np.zeros(n)
+        sigma = max(0.5 * (self.resolution_px or 1.0), 0.5)
+        s = np.full(int(self.measured.sum()), self.noise_nm)
+        if self.noise_shape is not None:
+            s = s * self.noise_shape[self.measured]
+        # by Parseval, |G * f|^2 = sum |f^|^2 |G^|^2 / size over a grid padded beyond
+        # the kernel's reach (so nothing wraps); a few terms' images per transform
+        reach = int(4.0 * sigma + 0.5) + 1
+        shape = tuple(sfft.next_fast_len(d + 2 * reach, real=True) for d in self.disk.shape)
+        rows, cols = np.nonzero(self.disk)
+        rows, cols = rows[self.measured], cols[self.measured]
+        delta = np.zeros(shape)
+        delta[0, 0] = 1.0
+        gain = np.abs(sfft.rfft2(ndimage.gaussian_filter(delta, sigma, mode="wrap"))) ** 2
+        # the half spectrum: the columns that stand for two count twice
+        gain[:, 1:(shape[1] + 1) // 2] *= 2.0
+        power = np.empty(n)
+        for j0 in range(0, n, _TERMS_PER_TRANSFORM):
+            j1 = min(j0 + _TERMS_PER_TRANSFORM, n)
+            images = np.zeros((j1 - j0, *shape), np.float32)
+            images[:, rows, cols] = self.fit_inverse[j0:j1] * s
+            spectra = sfft.rfft2(images, workers=WORKERS)
+            power[j0:j1] = np.einsum("jab,ab->j", spectra.real**2 + spectra.imag**2, gain)
+        return np.sqrt(power / np.sum(gain))
+
+    @cached_property
+    def map_coefficients_nm(self) -> np.ndarray:
+        """The coefficients the filtered map is built from: the fit's, each term beyond
+        power shrunk by the non-negative garrote at its own noise, ``a max(0, 1 -
+        s^2 / a^2)`` (see the module docstring)."""
+        a = self.coefficients_nm.copy()
+        s = self.coefficient_noise_nm[_SHRUNK_FROM:]
+        b = a[_SHRUNK_FROM:]
+        a[_SHRUNK_FROM:] = b * np.maximum(0.0, 1.0 - s * s / np.maximum(b * b, 1e-300))
+        return a
 
     @cached_property
     def raw_nm(self) -> np.ndarray:
@@ -308,6 +417,13 @@ class MapFigures:
             return fit + _smooth(resid, weight, self.resolution_px,
                                  self.smoothed_weight)[self.disk]
         return fit + resid[self.disk]
+
+    @cached_property
+    def peak_map_nm(self) -> np.ndarray:
+        """The filtered map with the fit's noisy terms shrunk (``map_coefficients_nm``):
+        what the peak-to-valley figures are taken over."""
+        return self.filtered_nm + self.basis @ (self.map_coefficients_nm
+                                                - self.coefficients_nm)
 
     @cached_property
     def smoothed_weight(self) -> np.ndarray | None:
@@ -351,11 +467,13 @@ class MapFigures:
                                  self.basis[:, 1:3]], axis=1)
         return design, np.linalg.pinv(design)
 
-    def _radial_part(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray | float]:
+    def _radial_part(self, values: np.ndarray, coefficients: np.ndarray | None = None
+                     ) -> tuple[np.ndarray, np.ndarray | float]:
         """The exactly radial part of ``values`` the symmetric figures start from.
 
-        On the disk, the fit's own m = 0 terms. On any other outline the terms are
-        orthonormal over the part and none is radial: there it is what ``1, rho^2 ..
+        On the disk, the fit's own m = 0 terms (with ``coefficients`` in place of the
+        fit's own when given). On any other outline the terms are orthonormal over the
+        part and none is radial: there it is what ``1, rho^2 ..
         rho^8`` (the powers of Noll 1, 4, 11, 22, 37) take in a fit with a plane once the
         astigmatism (terms 5 and 6, orthonormal over the part after 1-4) is out, so that
         a ring two map pixels wide leaves hardly a step of them; the plane and the
@@ -370,19 +488,18 @@ class MapFigures:
         see (0 on the disk, whose rings are whole).
         """
         if self._radial_fit is None:
-            return self.terms(self.symmetric_terms), 0.0
+            return self.terms(self.symmetric_terms, coefficients), 0.0
         design, inverse = self._radial_fit
         terms = self.basis[:, 4:6]  # orthonormal over the part: unit mean square
         astig = terms @ (terms.T @ values / values.size)
         coef = inverse @ (values - astig)
         return design[:, :5] @ coef[:5], design[:, 5:] @ coef[5:] + astig
 
-    def terms(self, js) -> np.ndarray:
-        """Sum of the fitted Noll terms ``js`` over the disk."""
-        idx = [j - 1 for j in js if j <= self.coefficients_nm.size]
-        if not idx:
-            return np.zeros(self.rho.size)
-        return self.basis[:, idx] @ self.coefficients_nm[idx]
+    def terms(self, js, coefficients: np.ndarray | None = None) -> np.ndarray:
+        """Sum of the fitted Noll terms ``js`` over the disk (with ``coefficients`` in
+        place of the fit's own when given)."""
+        a = self.coefficients_nm if coefficients is None else coefficients
+        return _sum_of_columns(self.basis, a, [j - 1 for j in js if j <= a.size])
 
     def symmetric_profile(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """The mean of ``values`` around each ring one map pixel wide.
@@ -406,19 +523,29 @@ class MapFigures:
         n = counts[keep].astype(float)
         return mean, rho2 / n, n
 
-    def peak_figures(self, surface: np.ndarray, removed: tuple[int, ...]) -> dict[str, float]:
-        """PV, B, C, RMSt, RMSi and RMSa of a filtered ``surface`` over the disk."""
-        pt = self.terms(removed)
+    def peak_figures(self, removed: tuple[int, ...]) -> dict[str, float]:
+        """PV, B, C, RMSt, RMSi and RMSa over the disk: the peak-to-valley ones over
+        the peak map (the fit's noisy terms shrunk), the RMS ones over the filtered map
+        (noise adds to an RMS in quadrature, and SIMEX takes that out exactly)."""
+        peak = self._map_figures(self.peak_map_nm, removed, self.map_coefficients_nm)
+        plain = self._map_figures(self.filtered_nm, removed, self.coefficients_nm)
+        return {name: (peak if name in _PEAK_FIGURES else plain)[name] for name in peak}
+
+    def _map_figures(self, surface: np.ndarray, removed: tuple[int, ...],
+                     coefficients: np.ndarray) -> dict[str, float]:
+        """PV, B, C, RMSt, RMSi and RMSa of ``surface`` over the disk, the removed terms
+        taken out with ``coefficients``."""
+        pt = self.terms(removed, coefficients)
         with_power = sorted(set(removed) | {4})
-        ptp_ = self.terms(with_power)
+        ptp_ = self.terms(with_power, coefficients)
         left = surface - pt
         irregular = surface - ptp_
-        tilted = surface - self.terms(PISTON_TILT)
+        tilted = surface - self.terms(PISTON_TILT, coefficients)
         # the symmetric part: an exactly radial part plus the mean around each ring of
         # what it leaves (small, so a ring of pixels that samples its circle unevenly, or
         # spans a little of the radius, hardly matters: on a ring the power
         # left in a ring two pixels wide once read C 12 nm on a surface with none)
-        m0, not_radial = self._radial_part(tilted)
+        m0, not_radial = self._radial_part(tilted, coefficients)
         mean, rho2, n = self.symmetric_profile(tilted - m0 - not_radial)
         ring_of = np.cumsum(np.bincount(self.radial_bins) > 0) - 1
         symmetric_px = m0 + mean[ring_of[self.radial_bins]]
@@ -448,7 +575,7 @@ class MapFigures:
         coef, resid_rms = self._fringe_fit
         # Fringe 1..3 are piston and tilt, 4 is power: drop what the caller removes
         keep = [i for i in range(PVR_TERMS) if not _fringe_removed(i + 1, removed)]
-        fit_pv = _ptp(self.fringe_basis[:, keep] @ coef[keep])
+        fit_pv = _ptp(_sum_of_columns(self.fringe_basis, coef, keep))
         return fit_pv + 3.0 * np.sqrt(max(resid_rms**2 - self.noise_nm**2, 0.0))
 
     def figures(self, *, wavelength_nm: float, diameter_mm: float | None,
@@ -462,7 +589,7 @@ class MapFigures:
         a = (np.asarray(report_fit.coefficients_nm, float) if report_fit is not None
              else self.coefficients_nm)
         removed = tuple(sorted(set(PISTON_TILT) | set(removed_terms)))
-        peaks = self.peak_figures(self.filtered_nm, removed)
+        peaks = self.peak_figures(removed)
         a4 = a[3] if a.size >= 4 else 0.0
         power = self.power_per_a4 * a4 if 4 not in removed else 0.0
         a5 = a[4] if a.size >= 6 and 5 not in removed else 0.0
@@ -514,11 +641,13 @@ def _fringe_removed(j_fringe: int, removed: tuple[int, ...]) -> bool:
 
 def prepare_map(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray,
                 fit: ZernikeFit, *, resolution_px: float | None = None,
-                region: np.ndarray | None = None) -> MapFigures:
+                region: np.ndarray | None = None,
+                height_sigma_nm: np.ndarray | None = None) -> MapFigures:
     """The map prepared for :func:`compute_figures` (keep it to figure the map again);
-    ``region``: the part's pixels when it is not the unit disk (see :meth:`MapFigures.of`)."""
+    ``region``, ``height_sigma_nm``: see :meth:`MapFigures.of`."""
     return MapFigures.of(height_nm, valid, xu, yu, resolution_px=resolution_px,
-                         n_terms=max(FIGURE_TERMS, fit.n_terms), region=region)
+                         n_terms=max(FIGURE_TERMS, fit.n_terms), region=region,
+                         height_sigma_nm=height_sigma_nm)
 
 
 def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray,
@@ -573,17 +702,13 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
     from .uncertainty import expanded_uncertainty, noise_effects
 
     if prepared is None:
-        prepared = prepare_map(height_nm, valid, xu, yu, fit,
-                               resolution_px=resolution_px, region=region)
+        prepared = prepare_map(height_nm, valid, xu, yu, fit, resolution_px=resolution_px,
+                               region=region, height_sigma_nm=height_sigma_nm)
     figures = prepared.figures(wavelength_nm=wavelength_nm, diameter_mm=diameter_mm,
                                removed_terms=removed_terms, report_fit=fit)
-    scale = None
-    if height_sigma_nm is not None:
-        sig = np.asarray(height_sigma_nm, dtype=float)[prepared.disk]
-        inner = prepared.measured & (prepared.rho <= 0.8) & np.isfinite(sig)
-        if inner.sum() > 50:
-            ref = float(np.median(sig[inner])) or 1.0
-            scale = np.clip(np.nan_to_num(sig / ref, nan=1.0, posinf=5.0), 1.0, 5.0)
+    scale = prepared.noise_shape
+    if scale is None:  # prepared without the estimate
+        scale = noise_shape(height_sigma_nm, prepared.disk, prepared.measured, prepared.rho)
     spread, corrected = noise_effects(prepared, figures, removed=figures.removed_terms,
                                       noise_scale=scale, wavelength_nm=wavelength_nm)
     corrections = {name: getattr(figures, name) - value for name, value in corrected.items()}

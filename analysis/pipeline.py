@@ -469,7 +469,7 @@ def measurement_from_height(
                                    xu)
     region = disk if orthonormal else None
     prepared = prepare_map(height_nm, valid, xu, yu, fit, resolution_px=resolution_px,
-                           region=region)
+                           region=region, height_sigma_nm=height_sigma_nm)
     figures = compute_figures(
         height_nm, valid, xu, yu, fit, wavelength_nm=settings.wavelength_nm,
         diameter_mm=settings.diameter_mm, resolution_px=resolution_px,
@@ -576,7 +576,7 @@ def with_terms_removed(
     prepared = _recalled_map(m)
     if prepared is None:
         prepared = prepare_map(full, valid, xu, yu, m.zernike, resolution_px=resolution_px,
-                               region=region)
+                               region=region, height_sigma_nm=m.height_sigma_nm)
         _remember_map(m, prepared)
     figures = compute_figures(
         full, valid, xu, yu, m.zernike, wavelength_nm=m.settings.wavelength_nm,

@@ -34,8 +34,10 @@ UNCERTAINTY_BASIS = (
     "Carlo (JCGM 101:2008), the method's limits as validated on independent reference "
     "photos, the stated wavelength and reference-flat uncertainties")
 FIGURES_METHOD = (
-    "PV, irregularity (B) and C over the filtered map (45-term Zernike fit plus the "
-    "measured departures from it smoothed at the method's resolution); C from the mean "
+    "PV, irregularity (B) and C over the filtered map (45-term Zernike fit, each term "
+    "beyond power shrunk by the non-negative garrote at its own noise, Breiman 1995, "
+    "plus the measured departures from the fit smoothed at the method's resolution); "
+    "C from the mean "
     "around each circle less its best a + b rho^2; RMS over the filtered map; PVr after "
     "Evans 2009 with the 36-term Fringe set and the map's noise taken out of its residual; "
     "the bias the map's noise adds to PV, B, C, PVr and the RMS figures removed by "

@@ -214,6 +214,64 @@ def test_a_spike_moves_the_raw_pv_but_not_the_robust_figures():
     assert f.pvr_nm == pytest.approx(2 * SQ6 * 10.0, abs=1.5)
 
 
+def _noisy_disk_map(n: int, noise_nm: float, resolution_px: float, coeffs: dict[int, float],
+                    seed: int = 7):
+    """A map of Noll terms plus Gaussian-smoothed white noise (numpy, scipy.ndimage),
+    prepared for figures with its noise set to ``noise_nm``."""
+    from dataclasses import replace
+
+    from scipy import ndimage
+
+    xu, yu = grid(n)
+    disk = np.hypot(xu, yu) <= 1.0
+    h = sum(c * zernike(j, xu, yu) for j, c in coeffs.items())
+    noise = ndimage.gaussian_filter(np.random.default_rng(seed).standard_normal(xu.shape),
+                                    0.5 * resolution_px)
+    h = h + noise * (noise_nm / noise[disk].std())
+    prepared = MapFigures.of(h, disk, xu, yu, resolution_px=resolution_px)
+    return replace(prepared, noise_nm=noise_nm), xu, yu, disk
+
+
+def test_the_fits_coefficient_noise_is_the_least_squares_covariance():
+    # generalised least squares (e.g. Bjorck, Numerical methods for least squares
+    # problems, SIAM 1996, 4.1): coefficients a = F h have covariance F S F^T for noise of
+    # covariance S. White noise smoothed by a Gaussian of width s has correlation
+    # exp(-d^2 / 4 s^2) at distance d (the Gaussian's autocorrelation).
+    s = 3.0
+    prepared, xu, yu, disk = _noisy_disk_map(61, 2.0, 2 * s, {4: 10.0})
+    ys, xs = np.nonzero(disk)
+    d2 = (ys[:, None] - ys[None, :]) ** 2 + (xs[:, None] - xs[None, :]) ** 2
+    cov = 2.0**2 * np.exp(-d2 / (4 * s * s))
+    basis = np.stack([zernike(j, xu[disk], yu[disk]) for j in range(1, 46)], axis=1)
+    f = np.linalg.pinv(basis)
+    expected = np.sqrt(np.diag(f @ cov @ f.T))
+    # the kernel scipy.ndimage smooths by is the continuous Gaussian to far better than
+    # a part in a thousand at this width
+    assert prepared.coefficient_noise_nm == pytest.approx(expected, rel=2e-3)
+
+
+def test_terms_at_their_noise_are_shrunk_and_clear_terms_kept():
+    # the non-negative garrote (Breiman, Technometrics 37(4), 373, 1995) for orthogonal
+    # terms: a max(0, 1 - s^2 / a^2) (Gao, J. Comput. Graph. Stat. 7(4), 469, 1998;
+    # from memory)
+    prepared, *_ = _noisy_disk_map(161, 3.0, 6.0, {4: 40.0, 6: 20.0, 11: 6.0})
+    a, s = prepared.coefficients_nm, prepared.coefficient_noise_nm
+    kept = prepared.map_coefficients_nm
+    # piston, tilt and power are never shrunk
+    assert np.array_equal(kept[:4], a[:4])
+    assert kept[4:] == pytest.approx(a[4:] * np.maximum(0.0, 1.0 - s[4:] ** 2 / a[4:] ** 2))
+    assert kept[5] == pytest.approx(20.0, abs=0.3) and kept[10] == pytest.approx(6.0, abs=0.3)
+    noise_only = [j - 1 for j in range(7, 46) if j != 11]
+    assert np.all(kept[noise_only][np.abs(a[noise_only]) <= s[noise_only]] == 0.0)
+    # of terms that are pure noise it keeps sqrt(1/3) = 0.58 of the RMS (the integral of
+    # (z - 1/z)^2 over |z| > 1 under the standard normal density is 1/3)
+    assert 0.4 * _rms(a[noise_only]) < _rms(kept[noise_only]) < 0.75 * _rms(a[noise_only])
+
+
+def _rms(v):
+    return float(np.sqrt(np.mean(np.square(v))))
+
+
 def test_inputs_are_not_mutated():
     xu, yu = grid(121)
     disk = np.hypot(xu, yu) <= 1.0
