@@ -11,14 +11,9 @@ measured pixels stands in.
   therefore taken over the *filtered map*: the 45-term Zernike fit plus what the
   measured map departs from it, smoothed (Gaussian) at the method's resolution,
   the finest detail the fringes can carry. Noise finer than that resolution cannot be
-  told from the surface, so nothing real is lost. The fit's own terms carry the noise
-  too: each coefficient has a standard deviation the map's noise gives it (computed
-  from the noise's size, grain and growth toward the rim), and a high-order term
-  within a few of those of zero is mostly noise, yet it peaks at the rim where a PV is
-  decided. So in the map the PV figures are taken over, each term beyond power is
-  shrunk by the non-negative garrote at its own noise, ``a max(0, 1 - s^2 / a^2)``
-  (Breiman 1995): a term ten times its noise loses a hundredth of itself, one at its
-  noise is dropped. The raw PV of the unfiltered map is kept as ``pv_raw_nm``.
+  told from the surface, so nothing real is lost. Each fitted term beyond power is
+  shrunk at the noise its coefficient carries (non-negative garrote, Breiman 1995): a
+  noisy high-order term peaks at the rim. The raw PV is kept as ``pv_raw_nm``.
 * **Irregularity (B)** is the PV after piston, tilt and power are removed, astigmatism
   included (ISO 10110-5, read as ISO 14999-4 describes, from memory).
 * **C** is the PV of the rotationally symmetric part beyond power: the filtered map's
@@ -26,8 +21,7 @@ measured pixels stands in.
   outline other than the disk the circles may be cut by it; the best-fit sphere, the
   plane and the astigmatism are then taken out first, so a rectangle's astigmatism is
   not read as symmetric, and only what they leave is averaged around the circles.
-* **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map (its terms not shrunk: noise
-  adds to an RMS in quadrature, which the noise-bias step takes out exactly) with
+* **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map (its terms not shrunk) with
   piston and tilt, then power too, removed; RMSa is the RMS of what is left after the
   mean around each circle is taken out (the non-rotationally-symmetric part).
 * **PVr** (Evans 2009): the PV of a fit by the 36 terms of the Fringe set, plus three
