@@ -73,7 +73,6 @@ __all__ = [
     "MapFigures",
     "PISTON_TILT",
     "compute_figures",
-    "noise_shape",
     "prepare_map",
     "radius_of_curvature_m",
     "to_fringes",
@@ -85,9 +84,8 @@ PVR_TERMS = 36  # Evans's PVr: the first 36 terms of the Fringe set
 FIGURE_TERMS = 45  # the fit that stands in for unmeasured pixels: Noll 1..45, n <= 8
 _SECTORS = 16
 # the peak map's terms shrunk at their noise: those beyond piston, tilt and power (index
-# from 0: Noll 5 on); the figures taken over it
+# from 0: Noll 5 on)
 _SHRUNK_FROM = 4
-_PEAK_FIGURES = ("pv_nm", "irregularity_nm", "symmetric_irregularity_nm")
 _TERMS_PER_TRANSFORM = 9  # bounds the memory the coefficients' noise takes
 SQRT3 = float(np.sqrt(3.0))
 SQRT6 = float(np.sqrt(6.0))
@@ -201,7 +199,7 @@ def _smooth(values: np.ndarray, weight: np.ndarray, sigma_px: float,
     return np.where(den > 1e-3, num / np.maximum(den, 1e-3), 0.0)
 
 
-def noise_shape(height_sigma_nm: np.ndarray | None, disk: np.ndarray, measured: np.ndarray,
+def _noise_shape(height_sigma_nm: np.ndarray | None, disk: np.ndarray, measured: np.ndarray,
                 rho: np.ndarray) -> np.ndarray | None:
     """The noise at each disk pixel relative to the interior's, from the demodulation's
     per-pixel estimate (only its shape counts): 1 in the interior, up to 5 where the fit
@@ -297,7 +295,7 @@ class MapFigures:
             terms are made orthonormal over them (:func:`zernike.orthonormalized`).
         height_sigma_nm : (M, N) ndarray, optional
             The demodulation's noise estimate per pixel: only its shape is used, to grow
-            the noise where the fit had less to go on (:func:`noise_shape`).
+            the noise where the fit had less to go on (:func:`_noise_shape`).
         """
         orthonormal = region is not None
         disk = np.hypot(xu, yu) <= 1.0 if region is None else np.asarray(region, bool)
@@ -323,14 +321,15 @@ class MapFigures:
             measured_nm=np.asarray(height_nm, dtype=float)[disk][measured],
             noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors,
             orthonormal=orthonormal, power_per_a4=power_per_a4,
-            noise_shape=noise_shape(height_sigma_nm, disk, measured, rho))
+            noise_shape=_noise_shape(height_sigma_nm, disk, measured, rho))
         return prepared.with_noise_measured()
 
     def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
         """The same map with ``delta_nm`` (over the disk's pixels) added where measured."""
         copy = replace(self, measured_nm=self.measured_nm + delta_nm[self.measured])
         copy.__dict__["smoothed_weight"] = self.smoothed_weight  # the same pixels
-        copy.__dict__["_radial_fit"] = self._radial_fit
+        for shared in ("_radial_fit", "_ring_of_pixel", "_sphere_fit"):  # the same pixels
+            copy.__dict__[shared] = getattr(self, shared)
         copy.__dict__["coefficient_noise_nm"] = self.coefficient_noise_nm  # the same noise
         return copy
 
@@ -338,6 +337,12 @@ class MapFigures:
     def coefficients_nm(self) -> np.ndarray:
         """The stand-in fit's Noll coefficients."""
         return self.fit_inverse @ self.measured_nm
+
+    @property
+    def noise_grain_px(self) -> float:
+        """The width (Gaussian sigma, map pixels) of the grain the map's noise is given
+        wherever it is modelled: half the resolution."""
+        return max(0.5 * (self.resolution_px or 1.0), 0.5)
 
     @cached_property
     def coefficient_noise_nm(self) -> np.ndarray:
@@ -353,7 +358,7 @@ class MapFigures:
         n = self.coefficients_nm.size
         if self.noise_nm <= 0:
             return np.zeros(n)
-        sigma = max(0.5 * (self.resolution_px or 1.0), 0.5)
+        sigma = self.noise_grain_px
         s = np.full(int(self.measured.sum()), self.noise_nm)
         if self.noise_shape is not None:
             s = s * self.noise_shape[self.measured]
@@ -521,41 +526,45 @@ class MapFigures:
         """PV, B, C, RMSt, RMSi and RMSa over the disk: the peak-to-valley ones over
         the peak map (the fit's noisy terms shrunk), the RMS ones over the filtered map
         (noise adds to an RMS in quadrature, and SIMEX takes that out exactly)."""
-        peak = self._map_figures(self.peak_map_nm, removed, self.map_coefficients_nm)
-        plain = self._map_figures(self.filtered_nm, removed, self.coefficients_nm)
-        return {name: (peak if name in _PEAK_FIGURES else plain)[name] for name in peak}
-
-    def _map_figures(self, surface: np.ndarray, removed: tuple[int, ...],
-                     coefficients: np.ndarray) -> dict[str, float]:
-        """PV, B, C, RMSt, RMSi and RMSa of ``surface`` over the disk, the removed terms
-        taken out with ``coefficients``."""
-        pt = self.terms(removed, coefficients)
         with_power = sorted(set(removed) | {4})
-        ptp_ = self.terms(with_power, coefficients)
-        left = surface - pt
-        irregular = surface - ptp_
-        tilted = surface - self.terms(PISTON_TILT, coefficients)
-        # the symmetric part: an exactly radial part plus the mean around each ring of
-        # what it leaves (small, so a ring of pixels that samples its circle unevenly, or
-        # spans a little of the radius, hardly matters: on a ring the power
-        # left in a ring two pixels wide once read C 12 nm on a surface with none)
-        m0, not_radial = self._radial_part(tilted, coefficients)
-        mean, rho2, n = self.symmetric_profile(tilted - m0 - not_radial)
-        ring_of = np.cumsum(np.bincount(self.radial_bins) > 0) - 1
-        symmetric_px = m0 + mean[ring_of[self.radial_bins]]
+        shrunk, peak = self.map_coefficients_nm, self.peak_map_nm
+        symmetric_px = self._symmetric_part(peak - self.terms(PISTON_TILT, shrunk), shrunk)
         # C: that profile less its best a + b rho^2 (pixels weigh by their area)
-        design = np.stack([np.ones_like(self.rho), self.rho**2], axis=1)
-        c, *_ = np.linalg.lstsq(design, symmetric_px, rcond=None)
-        symmetric = symmetric_px - design @ c
-        asym = tilted - symmetric_px
+        design, inverse = self._sphere_fit
+        symmetric = symmetric_px - design @ (inverse @ symmetric_px)
+        plain = self.filtered_nm
+        tilted = plain - self.terms(PISTON_TILT)
         return {
-            "pv_nm": _ptp(left),
-            "rms_nm": _rms(left),
-            "irregularity_nm": _ptp(irregular),
-            "rms_irregularity_nm": _rms(irregular),
+            "pv_nm": _ptp(peak - self.terms(removed, shrunk)),
+            "rms_nm": _rms(plain - self.terms(removed)),
+            "irregularity_nm": _ptp(peak - self.terms(with_power, shrunk)),
+            "rms_irregularity_nm": _rms(plain - self.terms(with_power)),
             "symmetric_irregularity_nm": _ptp(symmetric),
-            "rms_asymmetric_nm": _rms(asym),
+            "rms_asymmetric_nm": _rms(tilted - self._symmetric_part(tilted)),
         }
+
+    def _symmetric_part(self, tilted: np.ndarray, coefficients: np.ndarray | None = None
+                        ) -> np.ndarray:
+        """The rotationally symmetric part of ``tilted`` (a map with piston and tilt out)
+        at each pixel: an exactly radial part (``coefficients`` in place of the fit's own
+        on the disk) plus the mean around each ring of what it leaves (small, so a ring
+        of pixels that samples its circle unevenly, or spans a little of the radius,
+        hardly matters: on a ring the power left in a ring two pixels wide once read C
+        12 nm on a surface with none)."""
+        m0, not_radial = self._radial_part(tilted, coefficients)
+        mean, _, _ = self.symmetric_profile(tilted - m0 - not_radial)
+        return m0 + mean[self._ring_of_pixel]
+
+    @cached_property
+    def _ring_of_pixel(self) -> np.ndarray:
+        """Each disk pixel's index among the rings that hold pixels."""
+        return (np.cumsum(np.bincount(self.radial_bins) > 0) - 1)[self.radial_bins]
+
+    @cached_property
+    def _sphere_fit(self) -> tuple[np.ndarray, np.ndarray]:
+        """``a + b rho^2`` over the disk's pixels and its least-squares inverse."""
+        design = np.stack([np.ones_like(self.rho), self.rho**2], axis=1)
+        return design, np.linalg.pinv(design)
 
     @cached_property
     def _fringe_fit(self) -> tuple[np.ndarray, float]:
@@ -676,7 +685,8 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
         The method's resolution in map pixels (see :meth:`MapFigures.of`).
     height_sigma_nm : (M, N) ndarray, optional
         The demodulation's noise estimate per pixel: only its shape is used, to grow
-        the noise where the fit had less to go on (the rim, beside specks).
+        the noise where the fit had less to go on (the rim, beside specks). With
+        ``prepared`` given, its own (:func:`prepare_map`) counts instead.
     wavelength_uncertainty_nm, reference_uncertainty_nm : float
         What the operator states (see ``uncertainty``).
     photos : int
@@ -700,11 +710,9 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
                                region=region, height_sigma_nm=height_sigma_nm)
     figures = prepared.figures(wavelength_nm=wavelength_nm, diameter_mm=diameter_mm,
                                removed_terms=removed_terms, report_fit=fit)
-    scale = prepared.noise_shape
-    if scale is None:  # prepared without the estimate
-        scale = noise_shape(height_sigma_nm, prepared.disk, prepared.measured, prepared.rho)
     spread, corrected = noise_effects(prepared, figures, removed=figures.removed_terms,
-                                      noise_scale=scale, wavelength_nm=wavelength_nm)
+                                      noise_scale=prepared.noise_shape,
+                                      wavelength_nm=wavelength_nm)
     corrections = {name: getattr(figures, name) - value for name, value in corrected.items()}
     figures = replace(figures, **corrected)
     uncertainty, budget = expanded_uncertainty(

@@ -115,7 +115,7 @@ def _noise_fields(shape, disk: np.ndarray, measured: np.ndarray, sigma_px: float
     """Unit-RMS noise with the map's grain over the measured disk pixels, ``(K, Q)``."""
     out = np.empty((_REALISATIONS, int(measured.size)))
     for k in range(_REALISATIONS):
-        field = ndimage.gaussian_filter(rng.standard_normal(shape), max(sigma_px, 0.5))
+        field = ndimage.gaussian_filter(rng.standard_normal(shape), sigma_px)
         v = field[disk]
         out[k] = v / (np.std(v[measured]) or 1.0)
     return out
@@ -152,7 +152,7 @@ def _noisy_copies(prepared, noise_scale: np.ndarray | None, seed: int) -> list[l
         return memo[1]
     rng = np.random.default_rng(seed)
     fields = _noise_fields(prepared.disk.shape, prepared.disk, prepared.measured,
-                           0.5 * (prepared.resolution_px or 1.0), rng)
+                           prepared.noise_grain_px, rng)
     scale = prepared.noise_nm if noise_scale is None else prepared.noise_nm * noise_scale
     copies = [[prepared.perturbed(fields[k] * scale * added) for k in range(_REALISATIONS)]
               for added in _ADDED]
