@@ -146,11 +146,22 @@ def measure_in_parallel(jobs: list[tuple[str, Any]], workers: int) -> Iterator[F
             # interrupted: drop what has not started and stop what has, now (the
             # executor has no public way to end a running task; its processes do)
             procs = list((getattr(pool, "_processes", None) or {}).values())
+            results = getattr(pool, "_result_queue", None)
+            manager = getattr(pool, "_executor_manager_thread", None)
             pool.shutdown(wait=False, cancel_futures=True)
             for proc in procs:
                 proc.terminate()
             for proc in procs:
                 proc.join(timeout=5)
+            # a worker stopped while sending its result leaves the executor's thread
+            # waiting for the rest of it, for ever, and the interpreter waits for that
+            # thread at exit; this process holds the results pipe's last open write end,
+            # so closing it ends that wait (the thread then winds the executor up)
+            writer = getattr(results, "_writer", None)
+            if writer is not None:
+                writer.close()
+            if manager is not None:
+                manager.join(timeout=5)
         for name, value in previous.items():
             if value is None:
                 os.environ.pop(name, None)
