@@ -397,12 +397,15 @@ def demodulate(
     known2 = known & ~specks
     filled = gerchberg_extend(data, known2, band, gerchberg_iterations - n1, cancel,
                         np.where(known2, data, filled))
-    noise = _noise_beside_sideband(mag, (u, v), f0_bins, int(known.sum()))
     report("extension", 1.0)
 
     # 5. first pass: plain Takeda, to get a smooth model of the phase
     fc = (int(round(u)), int(round(v)))
     spec = sfft.fft2(filled, workers=WORKERS)
+    # the noise from the extended photo: the aperture's hard edge would spread the
+    # fringes' own power across the spectrum, and read as noise on a clean photo
+    noise = _noise_beside_sideband(np.abs(spec[:, : nx // 2 + 1]), (u, v), f0_bins,
+                                   int(known2.sum()))
 
     step1 = max(step, int(size // max(64, int(3.2 * 0.6 * f0_bins))) or 1)
     while size % step1:

@@ -24,9 +24,9 @@ measured pixels stands in.
 * **RMS (RMSt), RMSi, RMSa**: RMS over the filtered map (its terms not shrunk) with
   piston and tilt, then power too, removed; RMSa is the RMS of what is left after the
   mean around each circle is taken out (the non-rotationally-symmetric part).
-* **PVr** (Evans 2009): the PV of a fit by the 36 terms of the Fringe set, plus three
-  times the RMS of what that fit leaves over the measured pixels, with the map's noise
-  (measured from its fine-scale roughness) taken out of that RMS in quadrature.
+* **PVr** (Evans 2009): the PV of a fit by the 36 terms of the Fringe set (shrunk
+  alike), plus three times the RMS of what it leaves, less in quadrature the map's
+  noise (its fine roughness, at most what the photo's spectrum shows).
 * **Power** is the sag of the best-fit sphere from edge to centre, ``-2 sqrt(3) a4``,
   positive when the centre stands high; **astigmatism** the PV of Noll 5 and 6.
 * **Noise bias.** What noise the filtered map still carries can only raise a PV or an
@@ -200,18 +200,30 @@ def _smooth(values: np.ndarray, weight: np.ndarray, sigma_px: float,
 
 
 def _noise_shape(height_sigma_nm: np.ndarray | None, disk: np.ndarray, measured: np.ndarray,
-                rho: np.ndarray) -> np.ndarray | None:
+                rho: np.ndarray) -> tuple[np.ndarray | None, float | None]:
     """The noise at each disk pixel relative to the interior's, from the demodulation's
-    per-pixel estimate (only its shape counts): 1 in the interior, up to 5 where the fit
-    had less to go on. None without an estimate."""
+    per-pixel estimate: 1 in the interior, up to 5 where the fit had less to go on; and
+    the interior's noise itself (nm). None, None without an estimate."""
     if height_sigma_nm is None:
-        return None
+        return None, None
     sig = np.asarray(height_sigma_nm, dtype=float)[disk]
     inner = measured & (rho <= 0.8) & np.isfinite(sig)
     if inner.sum() <= 50:
-        return None
-    ref = float(np.median(sig[inner])) or 1.0
-    return np.clip(np.nan_to_num(sig / ref, nan=1.0, posinf=5.0), 1.0, 5.0)
+        return None, None
+    ref = float(np.median(sig[inner]))
+    if not ref > 0:
+        return None, None
+    return np.clip(np.nan_to_num(sig / ref, nan=1.0, posinf=5.0), 1.0, 5.0), ref
+
+
+def _garrote(coefficients: np.ndarray, noise: np.ndarray) -> np.ndarray:
+    """Each term beyond power (Noll or Fringe 5 on) shrunk by the non-negative garrote at
+    its own noise, ``a max(0, 1 - s^2 / a^2)``."""
+    a = np.array(coefficients, dtype=float)
+    s = noise[_SHRUNK_FROM:]
+    b = a[_SHRUNK_FROM:]
+    a[_SHRUNK_FROM:] = b * np.maximum(0.0, 1.0 - s * s / np.maximum(b * b, 1e-300))
+    return a
 
 
 def _sum_of_columns(basis: np.ndarray, coefficients: np.ndarray, idx: list[int]) -> np.ndarray:
@@ -268,6 +280,12 @@ class MapFigures:
     # (Q,) the noise at each disk pixel relative to the interior's (at least 1: larger at
     # the rim and beside specks, where the demodulation had less to go on), or None
     noise_shape: np.ndarray | None = None
+    # the interior's noise as the demodulation estimates it from the photo (nm), or None:
+    # the most the map's roughness may count as noise (``with_noise_measured``)
+    noise_ceiling_nm: float | None = None
+    # the map's fine-scale roughness (nm): its noise plus the surface's own detail finer
+    # than the fit, which the method resolves only in part (``with_noise_measured``)
+    roughness_nm: float = 0.0
 
     @classmethod
     def of(cls, height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu: np.ndarray, *,
@@ -294,8 +312,9 @@ class MapFigures:
             rectangle, a polygon, an annulus): every figure is taken over them, and the
             terms are made orthonormal over them (:func:`zernike.orthonormalized`).
         height_sigma_nm : (M, N) ndarray, optional
-            The demodulation's noise estimate per pixel: only its shape is used, to grow
-            the noise where the fit had less to go on (:func:`_noise_shape`).
+            The demodulation's noise estimate per pixel: its shape grows the noise where
+            the fit had less to go on (:func:`_noise_shape`), and its interior level
+            caps the noise the map's roughness reads (:meth:`with_noise_measured`).
         """
         orthonormal = region is not None
         disk = np.hypot(xu, yu) <= 1.0 if region is None else np.asarray(region, bool)
@@ -314,6 +333,7 @@ class MapFigures:
         width = 2.0 * max(step, 1e-3)
         rings = np.minimum((rho / width).astype(int), max(int(1.0 / width) - 1, 0))
         sectors = ((np.arctan2(y, x) + np.pi) / (2 * np.pi) * _SECTORS).astype(int) % _SECTORS
+        shape, ceiling = _noise_shape(height_sigma_nm, disk, measured, rho)
         prepared = cls(
             disk=disk, measured=measured, rho=rho, basis=basis,
             fit_inverse=_least_squares_inverse(basis[measured]),
@@ -321,7 +341,7 @@ class MapFigures:
             measured_nm=np.asarray(height_nm, dtype=float)[disk][measured],
             noise_nm=0.0, resolution_px=resolution_px, radial_bins=rings, sectors=sectors,
             orthonormal=orthonormal, power_per_a4=power_per_a4,
-            noise_shape=_noise_shape(height_sigma_nm, disk, measured, rho))
+            noise_shape=shape, noise_ceiling_nm=ceiling)
         return prepared.with_noise_measured()
 
     def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
@@ -330,7 +350,8 @@ class MapFigures:
         copy.__dict__["smoothed_weight"] = self.smoothed_weight  # the same pixels
         for shared in ("_radial_fit", "_ring_of_pixel", "_sphere_fit"):  # the same pixels
             copy.__dict__[shared] = getattr(self, shared)
-        copy.__dict__["coefficient_noise_nm"] = self.coefficient_noise_nm  # the same noise
+        for shared in ("coefficient_noise_nm", "fringe_noise_nm"):  # the same noise
+            copy.__dict__[shared] = getattr(self, shared)
         return copy
 
     @cached_property
@@ -347,15 +368,25 @@ class MapFigures:
     @cached_property
     def coefficient_noise_nm(self) -> np.ndarray:
         """Standard deviation of each of the stand-in fit's coefficients under the map's
-        noise, as the Monte Carlo copies carry it (``uncertainty._noise_fields``).
+        noise, as the Monte Carlo copies carry it (``uncertainty._noise_fields``)."""
+        return self._fit_noise_nm(self.fit_inverse)
 
-        The fit is ``a = F h``. Noise ``s_x (G * w)_x / sqrt(sum G^2)`` (white noise
-        ``w`` given the map's grain by a Gaussian kernel ``G``, of unit variance, times
-        the noise at each pixel) gives ``var a_j = |G * (F_j s)|^2 / sum G^2``, summed over
-        the plane (generalised least squares: ``F C F^T`` with ``C`` the noise's
-        covariance, written as one smoothing per term).
+    @cached_property
+    def fringe_noise_nm(self) -> np.ndarray:
+        """The same for PVr's Fringe-36 fit."""
+        return self._fit_noise_nm(self.fringe_inverse)
+
+    def _fit_noise_nm(self, inverse: np.ndarray) -> np.ndarray:
+        """Standard deviation of each coefficient of the fit ``a = F h`` (``inverse``)
+        under the map's noise.
+
+        Noise ``s_x (G * w)_x / sqrt(sum G^2)`` (white noise ``w`` given the map's grain
+        by a Gaussian kernel ``G``, of unit variance, times the noise at each pixel)
+        gives ``var a_j = |G * (F_j s)|^2 / sum G^2``, summed over the plane (generalised
+        least squares: ``F C F^T`` with ``C`` the noise's covariance, written as one
+        smoothing per term).
         """
-        n = self.coefficients_nm.size
+        n = inverse.shape[0]
         if self.noise_nm <= 0:
             return np.zeros(n)
         sigma = self.noise_grain_px
@@ -377,7 +408,7 @@ class MapFigures:
         for j0 in range(0, n, _TERMS_PER_TRANSFORM):
             j1 = min(j0 + _TERMS_PER_TRANSFORM, n)
             images = np.zeros((j1 - j0, *shape), np.float32)
-            images[:, rows, cols] = self.fit_inverse[j0:j1] * s
+            images[:, rows, cols] = inverse[j0:j1] * s
             spectra = sfft.rfft2(images, workers=WORKERS)
             power[j0:j1] = np.einsum("jab,ab->j", spectra.real**2 + spectra.imag**2, gain)
         return np.sqrt(power / np.sum(gain))
@@ -385,13 +416,9 @@ class MapFigures:
     @cached_property
     def map_coefficients_nm(self) -> np.ndarray:
         """The coefficients the filtered map is built from: the fit's, each term beyond
-        power shrunk by the non-negative garrote at its own noise, ``a max(0, 1 -
-        s^2 / a^2)`` (see the module docstring)."""
-        a = self.coefficients_nm.copy()
-        s = self.coefficient_noise_nm[_SHRUNK_FROM:]
-        b = a[_SHRUNK_FROM:]
-        a[_SHRUNK_FROM:] = b * np.maximum(0.0, 1.0 - s * s / np.maximum(b * b, 1e-300))
-        return a
+        power shrunk by the non-negative garrote at its own noise (see the module
+        docstring)."""
+        return _garrote(self.coefficients_nm, self.coefficient_noise_nm)
 
     @cached_property
     def raw_nm(self) -> np.ndarray:
@@ -435,14 +462,25 @@ class MapFigures:
                                        truncate=3.0)
 
     def with_noise_measured(self) -> MapFigures:
-        """A copy whose ``noise_nm`` is the map's fine-scale roughness (robust RMS)."""
+        """A copy whose ``noise_nm`` is the map's fine-scale roughness (robust RMS), at
+        most the demodulation's own estimate of the noise (``noise_ceiling_nm``).
+
+        Roughness cannot tell noise from a surface's own detail finer than the fit (a
+        ripple, a turned edge): on such a surface it reads that detail as noise, and the
+        figures would then be corrected for noise the photo does not have. The
+        demodulation reads the photo's noise from the spectrum beside the fringes, where
+        the surface puts no power, so it is blind to that detail; it is the larger of
+        the two on a noisy photo (it also counts noise the roughness's band leaves out).
+        """
         _, resid, weight = self._residual_map()
         scale = 1.5 * self.resolution_px if self.resolution_px else 2.0
         fine = (resid - _smooth(resid, weight, scale))[self.disk]
         rough = fine[self.measured & (self.rho <= 0.9)]
         noise = (float(1.4826 * np.median(np.abs(rough - np.median(rough))))
                  if rough.size > 50 else 0.0)
-        return replace(self, noise_nm=noise)
+        ceiling = self.noise_ceiling_nm
+        return replace(self, noise_nm=noise if ceiling is None else min(noise, ceiling),
+                       roughness_nm=noise)
 
     @property
     def symmetric_terms(self) -> list[int]:
@@ -574,8 +612,10 @@ class MapFigures:
         return coef, _rms(resid)
 
     def pvr(self, removed: tuple[int, ...]) -> float:
-        """Evans's PVr of the measured heights (Fringe-36 fit, noise-corrected residual)."""
+        """Evans's PVr of the measured heights (Fringe-36 fit, its terms beyond power
+        shrunk at their noise as the peak map's are, and the noise-corrected residual)."""
         coef, resid_rms = self._fringe_fit
+        coef = _garrote(coef, self.fringe_noise_nm)
         # Fringe 1..3 are piston and tilt, 4 is power: drop what the caller removes
         keep = [i for i in range(PVR_TERMS) if not _fringe_removed(i + 1, removed)]
         fit_pv = _ptp(_sum_of_columns(self.fringe_basis, coef, keep))
@@ -684,9 +724,10 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
     resolution_px : float, optional
         The method's resolution in map pixels (see :meth:`MapFigures.of`).
     height_sigma_nm : (M, N) ndarray, optional
-        The demodulation's noise estimate per pixel: only its shape is used, to grow
-        the noise where the fit had less to go on (the rim, beside specks). With
-        ``prepared`` given, its own (:func:`prepare_map`) counts instead.
+        The demodulation's noise estimate per pixel: its shape grows the noise where
+        the fit had less to go on (the rim, beside specks), its interior level caps the
+        noise read from the map. With ``prepared`` given, its own (:func:`prepare_map`)
+        counts instead.
     wavelength_uncertainty_nm, reference_uncertainty_nm : float
         What the operator states (see ``uncertainty``).
     photos : int
@@ -716,7 +757,8 @@ def compute_figures(height_nm: np.ndarray, valid: np.ndarray, xu: np.ndarray, yu
     corrections = {name: getattr(figures, name) - value for name, value in corrected.items()}
     figures = replace(figures, **corrected)
     uncertainty, budget = expanded_uncertainty(
-        figures, spread=spread, noise_nm=prepared.noise_nm, wavelength_nm=wavelength_nm,
+        figures, spread=spread, noise_nm=prepared.noise_nm,
+        roughness_nm=prepared.roughness_nm, wavelength_nm=wavelength_nm,
         wavelength_uncertainty_nm=wavelength_uncertainty_nm,
         reference_uncertainty_nm=reference_uncertainty_nm, photos=photos,
         corrections=corrections, scale_uncertainty=scale_uncertainty, outline=outline)

@@ -39,7 +39,8 @@ FIGURES_METHOD = (
     "plus the measured departures from the fit smoothed at the method's resolution); "
     "C from the mean "
     "around each circle less its best a + b rho^2; RMS over the filtered map; PVr after "
-    "Evans 2009 with the 36-term Fringe set and the map's noise taken out of its residual; "
+    "Evans 2009 with the 36-term Fringe set, shrunk alike, and the map's noise taken out "
+    "of its residual; "
     "the bias the map's noise adds to PV, B, C, PVr and the RMS figures removed by "
     "simulation-extrapolation (Cook & Stefanski 1994); pv_raw_nm is the PV of the "
     "unfiltered map")

@@ -268,6 +268,46 @@ def test_terms_at_their_noise_are_shrunk_and_clear_terms_kept():
     assert 0.4 * _rms(a[noise_only]) < _rms(kept[noise_only]) < 0.75 * _rms(a[noise_only])
 
 
+def test_detail_finer_than_the_fit_is_not_taken_for_noise():
+    # a ripple of 12 cycles per diameter, 3 nm in amplitude, on 10 nm of Noll 4, and no
+    # noise: the map's fine-scale roughness reads the ripple, but the photo's noise (the
+    # demodulation's own estimate, from the spectrum beside the fringes) is 0.2 nm
+    xu, yu = grid(241)
+    disk = np.hypot(xu, yu) <= 1.0
+    h = 10.0 * zernike(4, xu, yu) + 3.0 * np.cos(2.0 * np.pi * 6.0 * xu)
+    sigma = np.full(h.shape, 0.2)
+    prepared = MapFigures.of(h, disk, xu, yu, resolution_px=4.0, height_sigma_nm=sigma)
+    assert prepared.noise_nm == pytest.approx(0.2)
+    assert prepared.roughness_nm > 1.5  # the ripple, kept for the method's part of U
+    assert MapFigures.of(h, disk, xu, yu, resolution_px=4.0).noise_nm > 1.5  # no estimate
+    # PVr as Evans defines it (Opt. Eng. 48(4), 043605, 2009): the PV of the Fringe-36
+    # fit, piston and tilt out, plus three times the RMS of what it leaves; here by
+    # numpy's lstsq over the reference set's Zernike terms (tests/refset/surface.py).
+    # With the ripple taken for noise its residual was taken out: PVr read 30 for 41 nm
+    from tests.refset.surface import FRINGE36_NOLL
+
+    basis = np.stack([zernike(j, xu[disk], yu[disk]) for j in FRINGE36_NOLL], axis=1)
+    c, *_ = np.linalg.lstsq(basis, h[disk], rcond=None)
+    expected = np.ptp(basis[:, 3:] @ c[3:]) + 3.0 * np.std(h[disk] - basis @ c)
+    fit = fit_zernike(h[disk], xu[disk], yu[disk], n_terms=36)
+    f = compute_figures(h, disk, xu, yu, fit, wavelength_nm=632.8, resolution_px=4.0,
+                        height_sigma_nm=sigma)
+    assert f.noise_nm == pytest.approx(0.2)
+    assert f.pvr_nm == pytest.approx(expected, abs=1.0)
+
+
+def test_a_noisy_map_keeps_the_noise_its_roughness_reads():
+    # where the demodulation's estimate is the larger, the roughness stands
+    prepared, xu, yu, disk = _noisy_disk_map(121, 2.0, 4.0, {4: 10.0})
+    h = np.zeros(xu.shape)
+    h[disk] = prepared.raw_nm
+    rough = MapFigures.of(h, disk, xu, yu, resolution_px=4.0)
+    capped = MapFigures.of(h, disk, xu, yu, resolution_px=4.0,
+                           height_sigma_nm=np.full(h.shape, 10.0))
+    assert rough.noise_nm > 1.0
+    assert capped.noise_nm == rough.noise_nm == capped.roughness_nm
+
+
 def _rms(v):
     return float(np.sqrt(np.mean(np.square(v))))
 
