@@ -251,3 +251,35 @@ def test_clean_photo_pv_covers_the_whole_disk(clean):
     assert m.figures.pv_nm == pytest.approx(truth.pv_nm, abs=max(5.0, 0.05 * truth.pv_nm))
     assert m.figures.pvr_nm == pytest.approx(truth.pvr_nm, abs=max(5.0, 0.05 * truth.pvr_nm))
     assert m.figures.rms_nm == pytest.approx(truth.rms_nm, abs=max(1.5, 0.02 * truth.rms_nm))
+
+
+def test_the_last_pass_puts_the_residual_on_the_full_grid_where_it_was_found():
+    # the last pass adds the residual found on the decimated grid (every step-th pixel of
+    # the crop) to the full grid's reference. A local fit that returns the true fringe
+    # against whatever reference it is given must then give back the true residual at
+    # every decimated pixel; a grid shifted by a fraction of a step would not
+    from types import SimpleNamespace
+
+    from flatsight.analysis.demodulation import _referenced_to_residual
+
+    step, m = 4, 40
+    full = (step * m, step * m)
+    rows, cols = np.mgrid[0:full[0], 0:full[1]].astype(float)
+    # a residual that bends steeply toward one side, as a rolled edge does (radians)
+    true = 2.5 * np.exp((cols - full[1]) / 30.0) + 0.4 * np.sin(rows / 25.0)
+    true_m = true[::step, ::step]
+    usable = np.ones((m, m), bool)
+    usable[:3, :3] = False  # a speck: filled from its neighbours, still found exactly
+    outputs = (np.zeros((m, m)), np.zeros((m, m)), np.zeros((m, m)))
+
+    def local_fit(extra):
+        assert extra.shape == full
+        fringe = 0.5 * np.exp(1j * (true_m - extra[::step, ::step]))
+        return SimpleNamespace(fringe=fringe, support=np.ones((m, m)),
+                               level=np.full((m, m), 0.1), phase_gain=np.full((m, m), 2.0))
+
+    c2 = 0.5 * np.exp(1j * true_m)
+    out = _referenced_to_residual(c2, usable, step, full, local_fit, outputs)
+    assert np.allclose(np.angle(out * np.exp(-1j * true_m)), 0.0, atol=1e-5)
+    assert np.allclose(np.abs(out), 0.5)
+    assert np.all(outputs[0] == 1.0) and np.all(outputs[2] == 2.0)
