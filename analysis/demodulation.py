@@ -186,13 +186,13 @@ def _unwrap_small(wrapped: np.ndarray, inside: np.ndarray) -> np.ndarray:
 
 
 def _referenced_to_residual(c2: np.ndarray, usable: np.ndarray, step: int,
-                            full_shape: tuple[int, int], fit, outputs) -> np.ndarray:
+                            full_shape: tuple[int, int], fit) -> np.ndarray:
     """The local fit once more, its reference carrying the residual phase of ``c2``.
 
     ``c2`` is the local fit's complex fringe on the decimated grid; ``fit(extra)`` runs
-    the local fit with ``extra`` (radians, on the full grid) added to its reference, and
-    its support, level and phase gain go into ``outputs``. Returns the new fringe with
-    the residual put back, so its angle is again the residual against the model alone.
+    the local fit with ``extra`` (radians, on the full grid) added to its reference and
+    returns its fringe. Returns the new fringe with the residual put back, so its angle
+    is again the residual against the model alone.
     """
     if not usable.any():
         return c2
@@ -211,11 +211,7 @@ def _referenced_to_residual(c2: np.ndarray, usable: np.ndarray, step: int,
     extra = ndimage.map_coordinates(
         resid, [np.broadcast_to(rows, full_shape), np.broadcast_to(cols, full_shape)],
         order=1, mode="nearest").astype(np.float32)
-    result = fit(extra)
-    for out, value in zip(outputs, (result.support, result.level, result.phase_gain),
-                          strict=True):
-        out[...] = value
-    return result.fringe * np.exp(1j * resid)
+    return fit(extra) * np.exp(1j * resid)
 
 
 def _rho_grid(aperture: Aperture, shape: tuple[int, int], center_rc: tuple[float, float],
@@ -530,10 +526,16 @@ def demodulate(
 
     inside_m = rho_m <= 1.08
 
-    def referenced(model: np.ndarray, radius_bins: float) -> np.ndarray:
-        """The local fit (``local_fit``) against the carrier plus the phase model."""
-        psi_full[...] = model_phase(model)
-        fit = fit_fringe_locally(fit_data, weight, carrier_phase + psi_full,
+    def referenced(model: np.ndarray | None, radius_bins: float,
+                   extra: np.ndarray | None = None) -> np.ndarray:
+        """The local fit (``local_fit``) against the carrier plus the phase model
+        (``None``: the model of the last call), plus ``extra`` radians if given."""
+        if model is not None:
+            psi_full[...] = model_phase(model)
+        reference = carrier_phase + psi_full
+        if extra is not None:
+            reference += extra
+        fit = fit_fringe_locally(fit_data, weight, reference,
                                  radius_bins=radius_bins, flat=W2_FLAT, m=m,
                                  inside=inside_m)
         support[...] = fit.support
@@ -570,12 +572,9 @@ def demodulate(
     # 40 held out; on other outlines (tests/refset/shaped.py, held out) B lost 4 of 150
     # photos and PVr 2, at the corners, so it is left out there.
     if aperture.shape is None:
-        c2 = _referenced_to_residual(c2, disk & ~speck_m, step, (ny, nx),
-                                     lambda extra: fit_fringe_locally(
-                                         fit_data, weight, carrier_phase + psi_full + extra,
-                                         radius_bins=w2_cpa * bins_per_cpa, flat=W2_FLAT,
-                                         m=m, inside=inside_m),
-                                     (support, level, phase_gain))
+        c2 = _referenced_to_residual(
+            c2, disk & ~speck_m, step, (ny, nx),
+            lambda extra: referenced(None, w2_cpa * bins_per_cpa, extra))
     if f_min < 0.35 * fringes:
         warnings.append(
             f"fringes nearly close somewhere on the aperture ({f_min:.1f} fringes per "

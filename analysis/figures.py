@@ -376,6 +376,21 @@ class MapFigures:
         """The same for PVr's Fringe-36 fit."""
         return self._fit_noise_nm(self.fringe_inverse)
 
+    @cached_property
+    def _noise_gain(self) -> tuple[tuple[int, int], np.ndarray]:
+        """The padded grid the fits' noise is summed over, and ``|G^|^2`` on it (the
+        noise grain's kernel in the half spectrum, its columns that stand for two
+        counted twice): by Parseval, ``|G * f|^2 = sum |f^|^2 |G^|^2 / size`` over a
+        grid padded beyond the kernel's reach, so nothing wraps."""
+        sigma = self.noise_grain_px
+        reach = int(4.0 * sigma + 0.5) + 1
+        shape = tuple(sfft.next_fast_len(d + 2 * reach, real=True) for d in self.disk.shape)
+        delta = np.zeros(shape)
+        delta[0, 0] = 1.0
+        gain = np.abs(sfft.rfft2(ndimage.gaussian_filter(delta, sigma, mode="wrap"))) ** 2
+        gain[:, 1:(shape[1] + 1) // 2] *= 2.0
+        return shape, gain
+
     def _fit_noise_nm(self, inverse: np.ndarray) -> np.ndarray:
         """Standard deviation of each coefficient of the fit ``a = F h`` (``inverse``)
         under the map's noise.
@@ -389,21 +404,12 @@ class MapFigures:
         n = inverse.shape[0]
         if self.noise_nm <= 0:
             return np.zeros(n)
-        sigma = self.noise_grain_px
         s = np.full(int(self.measured.sum()), self.noise_nm)
         if self.noise_shape is not None:
             s = s * self.noise_shape[self.measured]
-        # by Parseval, |G * f|^2 = sum |f^|^2 |G^|^2 / size over a grid padded beyond
-        # the kernel's reach (so nothing wraps); a few terms' images per transform
-        reach = int(4.0 * sigma + 0.5) + 1
-        shape = tuple(sfft.next_fast_len(d + 2 * reach, real=True) for d in self.disk.shape)
+        shape, gain = self._noise_gain
         rows, cols = np.nonzero(self.disk)
         rows, cols = rows[self.measured], cols[self.measured]
-        delta = np.zeros(shape)
-        delta[0, 0] = 1.0
-        gain = np.abs(sfft.rfft2(ndimage.gaussian_filter(delta, sigma, mode="wrap"))) ** 2
-        # the half spectrum: the columns that stand for two count twice
-        gain[:, 1:(shape[1] + 1) // 2] *= 2.0
         power = np.empty(n)
         for j0 in range(0, n, _TERMS_PER_TRANSFORM):
             j1 = min(j0 + _TERMS_PER_TRANSFORM, n)
