@@ -247,6 +247,10 @@ def measure(
             # too few fringes for the contrast finder's carrier: the lit disk by its light
             aperture = find_lit_disk(image, photo_name=name)
             by_light = True
+        for ex in aperture.exclusions:  # a dark hole in the part, a chip in its rim
+            warnings.append(f"a dark region at {ex.center_x_px:.0f},{ex.center_y_px:.0f} "
+                            f"(radius {ex.radius_px:.0f} px) is left out: a chip or a hole? "
+                            "check the outline drawn on the photo")
     if settings.exclusions:
         aperture = aperture.with_exclusions(tuple(aperture.exclusions) + settings.exclusions)
     if fringe_photo.saturated_fraction > 0.01:
