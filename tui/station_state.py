@@ -111,9 +111,18 @@ class QueueEntry:
         return None
 
     def shown_aperture(self) -> Aperture | None:
-        """What the fringe view draws: the aperture in force with the operator's exclusions."""
+        """What the fringe view draws: the aperture in force with the operator's exclusions,
+        then those the finder left out of the found aperture (a chip in the rim, a dark
+        hole), which the measurement used; the operator's come first, as ``selected``
+        counts them."""
         base = self.base_aperture()
-        return None if base is None else base.with_exclusions(self.exclusions)
+        if base is None:
+            return None
+        found = ()
+        if self.aperture is None and self.measurement is not None:
+            found = tuple(x for x in self.measurement.aperture.exclusions
+                          if x not in self.exclusions)
+        return base.with_exclusions(tuple(self.exclusions) + found)
 
     def forget_result(self) -> None:
         """Drop the measurement (settings or aperture changed); the photo stays loaded."""

@@ -58,3 +58,21 @@ def test_a_name_that_fits_is_shown_whole_and_an_average_keeps_its_prefix():
     avg = QueueEntry(Path("BW-FL-0412-0.png"), kind="average",
                      sources=(Path("a"), Path("b"), Path("c")))
     assert avg.name_in(12).startswith("avg×3 ") and len(avg.name_in(12)) == 12
+
+
+def test_the_fringe_view_draws_what_the_finder_left_out_after_the_operators_own():
+    # the measurement's aperture holds the finder's exclusions (a chip in the rim) and
+    # the operator's, which the pipeline added to it; the view draws each once, the
+    # operator's first (its selection counts them), and the finder's only while the
+    # finder's aperture is the one in force
+    from types import SimpleNamespace
+
+    from flatsight.analysis.aperture import Aperture, Exclusion
+
+    mine, chip = Exclusion(100.0, 120.0, 10.0), Exclusion(377.0, 77.0, 28.0)
+    found = Aperture(480.0, 360.0, 300.0, (chip, mine))
+    e = QueueEntry(path=Path("part.png"), exclusions=(mine,),
+                   measurement=SimpleNamespace(aperture=found))
+    assert e.shown_aperture().exclusions == (mine, chip)
+    e.aperture = Aperture(481.0, 360.0, 300.0)  # the operator's own aperture
+    assert e.shown_aperture().exclusions == (mine,)
