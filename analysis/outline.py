@@ -333,7 +333,7 @@ def _outline(image: np.ndarray) -> _Found:
         shape = _refine_sides(pixels, shape, factor * period, wave,
                               max_move_px=factor * (tolerance + 1.0))
     return _Found(shape, factor * best[1], x_photo, y_photo, hole, lit, factor,
-                      (outside, inside))
+                  (outside, inside))
 
 
 def _dark_hole(pixels, factor, region, mask, local, sigma, inside, outside, fringes):
