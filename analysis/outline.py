@@ -175,9 +175,7 @@ def _with_bites(aperture: Aperture, found: _Found, image: np.ndarray) -> Apertur
         core = ndi.binary_erosion(sel, iterations=2)
         if core.sum() < 4:
             continue
-        rr, cc = np.nonzero(core)
-        level = float(np.median(np.asarray(image)[rr * f + f // 2, cc * f + f // 2]))
-        if level - dark > 0.1 * (light - dark):
+        if _core_level(image, core, f) - dark > 0.1 * (light - dark):
             continue
         px, py = xx[sel] - cx, yy[sel] - cy
         angle = math.atan2(float(py.mean()), float(px.mean()))
@@ -368,10 +366,7 @@ def _dark_hole(pixels, factor, region, mask, local, sigma, inside, outside, frin
     core = ndi.binary_erosion(dark, iterations=2)
     if core.sum() < 10:
         return None
-    photo = np.asarray(pixels, dtype=np.float64)
-    rows, cols = np.nonzero(core)
-    level = float(np.median(photo[rows * factor + factor // 2, cols * factor + factor // 2]))
-    if level - outside > 0.05 * (inside - outside):
+    if _core_level(pixels, core, factor) - outside > 0.05 * (inside - outside):
         return None
     yy, xx = np.nonzero(dark)
     r = math.sqrt(dark.sum() / math.pi)
@@ -382,6 +377,14 @@ def _dark_hole(pixels, factor, region, mask, local, sigma, inside, outside, frin
     offset = (factor - 1) / 2.0
     return _hole_edge(pixels, factor * cx + offset, factor * cy + offset, factor * r,
                       reach=factor * sigma * 3.0 + 4.0, fringes=fringes)
+
+
+def _core_level(pixels, core: np.ndarray, factor: int) -> float:
+    """The photo's median over a region of the binned work image (each binned pixel's
+    middle photo pixel): how dark a hole or a chip is, unsmoothed."""
+    rows, cols = np.nonzero(core)
+    return float(np.median(np.asarray(pixels, dtype=np.float64)[
+        rows * factor + factor // 2, cols * factor + factor // 2]))
 
 
 def _hole_edge(pixels, cx: float, cy: float, r: float, *, reach: float, fringes):

@@ -286,18 +286,19 @@ def measure(
         # fringes from tests/refset/shaped.py, 27 times; refset few-0427, 5 fringes: an
         # ellipse 12 deg off axis). The intensity fit measures round parts only, so the carrier
         # method's result on that outline was kept (few-0427: RMS 37.0 for 39.9 nm, power
-        # 6.6 % low). Where the lit region's own edge is round, the fit measures that.
+        # 6.6 % low). Where the lit region's own edge is round, the fit measures that,
+        # kept on the terms ``run_method`` keeps a fit by: that it gives no warning.
+        from .methods import intensity_fit
+
         try:
             lit = find_lit_disk(image, photo_name=name).with_exclusions(aperture.exclusions)
+            fitted = intensity_fit.run(image, lit, reason="too few fringes",
+                                       ring_sign=settings.ring_sign, invert=settings.invert,
+                                       photo_name=name, progress=progress, cancel=cancel)
         except UnanalysablePhotoError:
-            lit = None
-        if lit is not None:
-            try:
-                fitted = run(lit)
-            except UnanalysablePhotoError:
-                fitted = None
-            if fitted is not None and fitted.method == "intensity-fit":
-                aperture, result, by_light = lit, fitted, True
+            fitted = None
+        if fitted is not None and not fitted.warnings:
+            aperture, result, by_light = lit, fitted, True
     lap("demodulate")
     warnings.extend(result.warnings)
     if (settings.aperture is None and not by_light and aperture.shape is None
