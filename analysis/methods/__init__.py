@@ -10,7 +10,9 @@ PhaseResult``:
 
 :func:`run_method` picks one (``"auto"``) or runs the one asked for, and says which and
 why: the carrier method when it finds its carrier and ten or more tilt fringes, the
-intensity fit when it finds fewer, or closed ones.
+intensity fit when it finds fewer, or closed ones. Where the fit warns and the carrier
+method found its carrier, the photo judges: the fit is kept when its misfit is clearly
+below what the carrier method's phase leaves in the same intensity model.
 """
 
 from __future__ import annotations
@@ -34,6 +36,10 @@ METHOD_CHOICES = ("auto", *METHODS)
 #: Under this many tilt fringes auto prefers the intensity fit even where the carrier
 #: method finds its carrier (it warns below 10 itself).
 CARRIER_MIN_FRINGES = 10.0
+#: A fit that warns is still kept over the carrier method's result when the photo itself
+#: says so: its misfit is at most this share of what the carrier's phase leaves in the
+#: same intensity model (piston and tilt fitted, the rest held).
+PRIOR_MARGIN = 0.8
 #: What the operator may state about closed fringes (the push test, README).
 RING_SIGNS = ("convex", "concave")
 
@@ -72,6 +78,9 @@ class PhaseResult:
     sign : {"measured", "stated"}
         Whether the surface's sign came from the tilt (the wedge convention) or from the
         operator's statement about closed fringes.
+    misfit, prior_misfit : float
+        The intensity fit's misfit (RMS, in units of the fringe modulation) and that of
+        the phase it was given as a seed; NaN where they do not apply.
     """
 
     phase: np.ndarray
@@ -86,6 +95,8 @@ class PhaseResult:
     reason: str = ""
     sign: str = "measured"
     warnings: tuple[str, ...] = field(default=())
+    misfit: float = float("nan")
+    prior_misfit: float = float("nan")
 
 
 def run_method(
@@ -147,10 +158,11 @@ def run_method(
         # of them (benchmarks/few_fringe_accuracy.py); the fit meets them. Keep the
         # carrier's result only when the fit cannot do better.
         try:
-            fitted = _fit(image, aperture, reason="too few fringes", **fit_options)
+            fitted = _fit(image, aperture, reason="too few fringes", prior=result,
+                          **fit_options)
         except UnanalysablePhotoError:
             return result
-        if not fitted.warnings:
+        if not fitted.warnings or fitted.misfit <= PRIOR_MARGIN * fitted.prior_misfit:
             return fitted
     return result
 

@@ -18,6 +18,9 @@ where a few tilt fringes cross often enough that the background and modulation
 polynomials cannot mimic them, its seeds are fitted from there out, and the lower
 misfit wins: grown from the centre, a wrong phase can fit within the noise's
 allowance. A fit that still misses the noise by far is reported with a warning.
+Given another method's phase (the carrier method's, on few tilt fringes), the fit also
+grows from it, and reports the misfit that phase leaves in the same model (its piston
+and tilt fitted, the rest held), so the pipeline can let the photo judge between them.
 
 A photo with few fringes carries few Zernike terms: the fit goes to radial order
 ``fringes + 2`` (at most 6, at least 4), where ``fringes`` is the number of fringes the
@@ -51,7 +54,7 @@ from ..aperture import Aperture
 from ..carrier import Spectrum, crop_aperture, radius_grid, spectrum_view
 from ..errors import RingSignNeededError, UnanalysablePhotoError
 from ..extension import check_cancel
-from ..zernike import zernike_basis
+from ..zernike import solve_least_squares, zernike_basis
 
 __all__ = ["IntensityFit", "fit_intensity", "terms_for_fringes"]
 
@@ -108,6 +111,9 @@ class IntensityFit:
     residual_rms : float
         RMS misfit of the intensity model over the fitted disk, in units of the fringe
         modulation (0 for a perfect fit; noise alone gives its own share).
+    prior_misfit : float
+        The same misfit for the other method's phase given as ``prior`` (its projection
+        on the fitted terms, with its own best background and modulation); NaN without.
     """
 
     phase: np.ndarray
@@ -128,6 +134,7 @@ class IntensityFit:
     residual_rms: float
     spectrum: Spectrum
     warnings: tuple[str, ...]
+    prior_misfit: float = float("nan")
 
 
 def terms_for_fringes(fringes: float) -> tuple[int, int]:
@@ -290,6 +297,7 @@ def fit_intensity(
     ring_sign: str | None = None,
     invert: bool = False,
     photo_name: str = "the photo",
+    prior: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
     progress: Progress | None = None,
     cancel: threading.Event | None = None,
 ) -> IntensityFit:
@@ -305,6 +313,10 @@ def fit_intensity(
         The part's form as the operator's push test showed it, needed for closed fringes.
     invert : bool
         The pipeline flips the sign of the height after this; a stated sign must survive it.
+    prior : (phase, x, y) of 1-D ndarrays, optional
+        Another method's phase (radians) at points in the fit's unit coordinates (x
+        right, y up, the aperture's radius 1): the fit is also grown from it, the lower
+        misfit wins, and its own misfit is reported (``prior_misfit``).
 
     Returns
     -------
@@ -402,6 +414,17 @@ def fit_intensity(
             best, best_cost = c, cost
         if fits_to_noise(best, best_cost):
             break
+    # another method's phase (the carrier method's, on few tilt fringes) as one more seed
+    prior_coef = None
+    if prior is not None:
+        prior_coef = _projected(prior, GROWTH[-1][1])
+        if prior_coef is not None and not fits_to_noise(best, best_cost):
+            radius, terms = GROWTH[-1]
+            sel = _sample(r_all, radius)
+            c, cost = _fit(values[sel], x_all[sel], y_all[sel], prior_coef, terms, cancel)
+            if cost < best_cost and _harmonic_share(values[sel], x_all[sel], y_all[sel],
+                                                    c) <= MAX_HARMONIC:
+                best, best_cost = c, cost
     report("intensity fit", 0.7)
 
     if best is not None and not fits_to_noise(best, best_cost):
@@ -431,6 +454,13 @@ def fit_intensity(
     b_fit = model.e @ lin[ne:2 * ne]
     residual_rms = float(np.sqrt(np.mean(resid**2))
                          / max(_modulation_rms(values, x_all, y_all, coef), 1e-9))
+    prior_misfit = math.nan
+    if prior is not None:
+        pc = _projected(prior, n_terms)
+        if pc is not None:
+            pc = _piston_and_tilt(model, pc)
+            prior_misfit = float(np.sqrt(np.mean(model.residual(pc) ** 2))
+                                 / max(_modulation_rms(values, x_all, y_all, pc), 1e-9))
     report("intensity fit", 0.9)
 
     # 4. contrast, sign, maps
@@ -502,8 +532,19 @@ def fit_intensity(
         origin_px=(float(origin[0]), float(origin[1])), step_px=float(k), binning=k,
         coefficients=coef, n_terms=n_terms, max_order=order, fringes=fringes,
         tilt_fringes=tilt_fringes, closed=closed, sign=sign, residual_rms=residual_rms,
-        spectrum=spectrum, warnings=tuple(warnings),
+        spectrum=spectrum, warnings=tuple(warnings), prior_misfit=prior_misfit,
     )
+
+
+def _projected(prior: tuple[np.ndarray, np.ndarray, np.ndarray], n_terms: int
+               ) -> np.ndarray | None:
+    """Noll coefficients (``n_terms``) of another method's phase over the fitted disk,
+    by least squares (None where it has too few points there)."""
+    phase, x, y = (np.asarray(v, dtype=float).ravel() for v in prior)
+    use = np.isfinite(phase) & (np.hypot(x, y) <= FIT_RADIUS)
+    if use.sum() < 10 * n_terms:
+        return None
+    return solve_least_squares(zernike_basis(n_terms, x[use], y[use]), phase[use])
 
 
 def _sample(rho: np.ndarray, radius: float, count: int = 6000) -> np.ndarray:
@@ -571,13 +612,16 @@ def run(
     ring_sign: str | None = None,
     invert: bool = False,
     photo_name: str = "the photo",
+    prior=None,
     progress: Progress | None = None,
     cancel: threading.Event | None = None,
 ):
     """The intensity fit as a pipeline method: a ``PhaseResult`` on the binned grid.
 
     ``reason`` says why the method runs; None lets the fit say it from what it found
-    (closed fringes, or too few for the carrier method).
+    (closed fringes, or too few for the carrier method). ``prior``, another method's
+    ``PhaseResult`` on the same aperture, is one more seed for the fit, and its misfit
+    is reported beside the fit's own (``PhaseResult.misfit``, ``prior_misfit``).
     """
     from ..demodulation import MapGeometry
     from . import PhaseResult
@@ -587,8 +631,12 @@ def run(
             f"{photo_name}: the intensity fit for few or closed fringes measures round "
             "parts seen square-on only; photograph this outline with ten or more tilt "
             "fringes")
+    points = None
+    if prior is not None:
+        points = _whole_phase(prior, aperture)
     fit = fit_intensity(image, aperture, ring_sign=ring_sign, invert=invert,
-                        photo_name=photo_name, progress=progress, cancel=cancel)
+                        photo_name=photo_name, prior=points, progress=progress,
+                        cancel=cancel)
     if reason is None:
         reason = "closed fringes" if fit.closed else "too few fringes"
     n = fit.phase.shape[0]
@@ -615,5 +663,47 @@ def run(
         phase=fit.phase, valid=fit.disk & ~fit.masked, disk=fit.disk, geometry=geometry,
         modulation=fit.modulation, phase_sigma=fit.phase_sigma, quality=quality,
         spectrum=fit.spectrum, method="intensity-fit", reason=reason, sign=fit.sign,
-        warnings=fit.warnings,
+        warnings=fit.warnings, misfit=fit.residual_rms, prior_misfit=fit.prior_misfit,
     )
+
+
+def _piston_and_tilt(model: _Model, c: np.ndarray) -> np.ndarray:
+    """``c`` with its piston and tilt (Noll 1-3) fitted to the photo, the rest held: the
+    figures do not see them, and another method's phase has a piston of its own."""
+    rest = np.array(c, dtype=float)
+
+    def residual(p):
+        rest[:3] = p
+        return model.residual(rest)
+
+    def jacobian(p):
+        rest[:3] = p
+        return model.jacobian(rest)[:, :3]
+
+    out = least_squares(residual, rest[:3].copy(), jac=jacobian, method="lm",
+                        xtol=1e-8, ftol=1e-9, max_nfev=60)
+    rest[:3] = out.x
+    return rest
+
+
+def _whole_phase(prior, aperture: Aperture):
+    """A carrier result's phase with its whole tilt, as ``(phase, x, y)`` in unit
+    coordinates (None without a tilt carrier).
+
+    The carrier method's phase holds the tilt its model fitted about the spectrum's
+    whole-bin carrier, not the carrier itself; its tilt is replaced by the carrier's
+    (fringes across the diameter, the fringe normal's angle from x toward y down), which
+    has the phase's sign.
+    """
+    fringes = float(prior.quality.get("carrier_fringes", math.nan))
+    angle = math.radians(float(prior.quality.get("carrier_angle_deg", math.nan)))
+    ok = prior.valid & np.isfinite(prior.phase)
+    if not (np.isfinite(fringes) and np.isfinite(angle)) or ok.sum() < 100:
+        return None
+    x, y = prior.geometry.unit_xy(aperture)
+    x, y, phase = x[ok], y[ok], prior.phase[ok]
+    plane = solve_least_squares(np.column_stack([np.ones_like(x), x, y]), phase)
+    # T fringes across the diameter (x from -1 to 1) is a phase of pi T x; y runs up
+    tilt_x, tilt_up = fringes * math.cos(angle), -fringes * math.sin(angle)
+    phase = phase - plane[1] * x - plane[2] * y + np.pi * (tilt_x * x + tilt_up * y)
+    return phase, x, y
