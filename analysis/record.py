@@ -34,9 +34,9 @@ UNCERTAINTY_BASIS = (
     "Carlo (JCGM 101:2008), the method's limits as validated on independent reference "
     "photos, the stated wavelength and reference-flat uncertainties")
 FIGURES_METHOD = (
-    "PV, irregularity (B) and C over the filtered map (45-term Zernike fit, each term "
-    "beyond power shrunk by the non-negative garrote at its own noise, Breiman 1995, "
-    "plus the measured departures from the fit smoothed at the method's resolution); "
+    "PV, irregularity (B) and C over the filtered map (Zernike fit to order 10, 8 off "
+    "the disk, each term beyond power shrunk by the non-negative garrote at its noise, "
+    "Breiman 1995, plus the map's departures from it smoothed at the resolution); "
     "C from the mean "
     "around each circle less its best a + b rho^2; RMS over the filtered map; PVr after "
     "Evans 2009 with the 36-term Fringe set, shrunk alike, and the map's noise taken out "

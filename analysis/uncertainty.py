@@ -4,7 +4,7 @@ For each figure the standard uncertainties below are combined in quadrature and
 multiplied by the coverage factor k = 2 (JCGM 100:2008, the GUM, 6.2-6.3):
 
 * **noise**: the map's own noise, measured from its fine-scale roughness (the departure
-  of the map from its 45-term fit at scales finer than the resolution) but never more
+  of the map from its 66-term fit at scales finer than the resolution) but never more
   than the demodulation reads from the photo's spectrum beside the fringes (roughness
   alone would take a surface's own fine detail, a ripple, for noise), grown where the
   local fit had less to go on (the rim, beside specks), and propagated into every

@@ -60,12 +60,13 @@ gently (press lightly at the wedge's thin end, following your shop's procedure);
 if the fringes travel toward the bottom (right) of the photo instead of the top
 (left), the wedge runs the other way: add --invert.
 
-Figures: PV, irregularity (B) and C are taken over the filtered map (a 45-term
-Zernike fit, each term beyond power shrunk by the non-negative garrote at the noise
-it carries, plus the measured departures from the fit, smoothed at the resolution
-the fringes carry), so neither a noisy pixel nor a noisy high-order term at the rim
-can decide a verdict; the raw PV is kept in the JSON as pv_raw_nm. PVr follows
-Evans (Opt. Eng. 48, 043605, 2009), its 36-term fit shrunk the same way.
+Figures: PV, irregularity (B) and C are taken over the filtered map (a 66-term
+Zernike fit, 45 on outlines other than a circle, each term beyond power shrunk by
+the non-negative garrote at the noise it carries, plus the measured departures
+from the fit, smoothed at the resolution the fringes carry), so neither a noisy
+pixel nor a noisy high-order term at the rim can decide a verdict; the raw PV is
+kept in the JSON as pv_raw_nm. PVr follows Evans (Opt. Eng. 48, 043605, 2009),
+its 36-term fit shrunk the same way.
 
 Uncertainty: every figure comes with its expanded uncertainty U (k = 2, JCGM
 100:2008): the map's noise (by Monte Carlo), what the method cannot resolve, and

@@ -33,8 +33,13 @@ SEEDS = {
     4: "16-bit PNG, hard edge, visibility 0.41, 36 fringes, a zonal ring",
     9: "16-bit TIFF, rolled edge, Noll terms to 45, turned edge and ripple",
     14: "JPEG, visibility 0.35, 38 fringes, a zonal ring",
+    16: "JPEG, linear edge, a bump, a turned-up edge 0.17 of the radius wide and a "
+        "ripple: C read 5.0 nm against 12.6 while the filtered map's fit stopped at "
+        "radial order 8",
     18: "PNG, hard edge, laser speckle 0.17, Noll terms to 43",
     20: "16-bit PNG, 13 fringes, speckle 0.25",
+    21: "16-bit PNG, hard edge, 15 fringes, Noll 66 (n 10) at the rim: B read 119.8 nm "
+        "against 127.4 while the filtered map's fit stopped at radial order 8",
     25: "8-bit TIFF, hard edge, bumps and digs, turned edge, ripple",
     26: "PNG, rolled edge, 12 fringes",
     32: "PNG, rolled edge, speckle 0.38: B read 49.5 nm against 43.6 before the fit's "
@@ -99,6 +104,23 @@ def test_surfaces_the_demo_generator_never_makes(name, tmp_path):
     # ring 0.07 of the radius wide and a local dig of sigma 0.08 are finer than 20-32
     # fringes resolve and miss (the README's accuracy section says so)
     _check(named_case(name), tmp_path)
+
+
+@pytest.mark.slow
+def test_rim_terms_of_radial_order_ten_reach_the_peak_figures(tmp_path):
+    # seed 633 of the 0.3-12 MP draw (1.9 MP PNG, 29 fringes, visibility 0.35): Noll 63
+    # and 64 (n 10, m 8) at 4 and 10 nm peak in a band at the rim. Past a fit that
+    # stopped at radial order 8 they reached the peak map only smoothed at the
+    # resolution: B read 138.4 nm against 218.7 (7.4 times the target) and RMSi 25.3
+    # against 26.6. The figures must now stay within twice their targets (the issue's
+    # bound on any photo); B reads 6.8 % low, 1.4 times its target, which the README
+    # reports among the misses.
+    case = random_case(633, megapixels=(0.3, 12.0))
+    _, rec = _measured(case, tmp_path)
+    sc = score(rec, case.truth)
+    for f in ("pv_nm", "irregularity_nm", "rms_irregularity_nm", "rms_asymmetric_nm"):
+        assert abs(sc[f]["error"]) <= 2.0 * sc[f]["allowed"], (f, sc[f])
+    assert abs(sc["rms_irregularity_nm"]["error"]) <= sc["rms_irregularity_nm"]["allowed"]
 
 
 @pytest.mark.slow

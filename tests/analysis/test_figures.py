@@ -242,7 +242,10 @@ def test_the_fits_coefficient_noise_is_the_least_squares_covariance():
     ys, xs = np.nonzero(disk)
     d2 = (ys[:, None] - ys[None, :]) ** 2 + (xs[:, None] - xs[None, :]) ** 2
     cov = 2.0**2 * np.exp(-d2 / (4 * s * s))
-    basis = np.stack([zernike(j, xu[disk], yu[disk]) for j in range(1, 46)], axis=1)
+    from flatsight.analysis.figures import FIGURE_TERMS
+
+    basis = np.stack([zernike(j, xu[disk], yu[disk]) for j in range(1, FIGURE_TERMS + 1)],
+                     axis=1)
     f = np.linalg.pinv(basis)
     expected = np.sqrt(np.diag(f @ cov @ f.T))
     # the kernel scipy.ndimage smooths by is the continuous Gaussian to far better than
@@ -428,12 +431,13 @@ def test_the_photo_count_is_no_second_divisor():
                                                           rel=1e-9)
 
 
-@pytest.mark.parametrize("j_beyond", [56, 60, 66])
+@pytest.mark.parametrize("j_beyond", [56, 67, 72])
 def test_rms_counts_what_lies_beyond_the_fitted_terms(j_beyond):
     # Noll terms are orthonormal over the disk (Noll, JOSA 66, 207, 1976): the RMS of a
-    # sum is the root-sum-square of the coefficients, so a term beyond the 45-term fit
-    # (n 10 and 11) must still count in RMSt, RMSi and RMSa. The terms come from the
-    # reference set's own Zernike code (tests/refset/surface.py, checked against aotools).
+    # sum is the root-sum-square of the coefficients, so a term beyond the fits (36
+    # terms here; the filtered map's 66 hold Z56, n 10, but not Z67 and Z72, n 11) must
+    # still count in RMSt, RMSi and RMSa. The terms come from the reference set's own
+    # Zernike code (tests/refset/surface.py, checked against aotools).
     f = figures_of({4: 12.0, 6: 5.0, j_beyond: 6.0}, 401)
     assert f.rms_nm == pytest.approx(math.sqrt(12.0**2 + 5.0**2 + 6.0**2), rel=0.02)
     assert f.rms_irregularity_nm == pytest.approx(math.sqrt(5.0**2 + 6.0**2), rel=0.02)
