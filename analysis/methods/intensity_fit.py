@@ -415,16 +415,15 @@ def fit_intensity(
         if fits_to_noise(best, best_cost):
             break
     # another method's phase (the carrier method's, on few tilt fringes) as one more seed
-    prior_coef = None
-    if prior is not None:
-        prior_coef = _projected(prior, GROWTH[-1][1])
-        if prior_coef is not None and not fits_to_noise(best, best_cost):
-            radius, terms = GROWTH[-1]
-            sel = _sample(r_all, radius)
-            c, cost = _fit(values[sel], x_all[sel], y_all[sel], prior_coef, terms, cancel)
-            if cost < best_cost and _harmonic_share(values[sel], x_all[sel], y_all[sel],
-                                                    c) <= MAX_HARMONIC:
-                best, best_cost = c, cost
+    radius, terms = GROWTH[-1]
+    prior_coef = (_projected(prior, terms)
+                  if prior is not None and not fits_to_noise(best, best_cost) else None)
+    if prior_coef is not None:
+        sel = _sample(r_all, radius)
+        c, cost = _fit(values[sel], x_all[sel], y_all[sel], prior_coef, terms, cancel)
+        if cost < best_cost and _harmonic_share(values[sel], x_all[sel], y_all[sel],
+                                                c) <= MAX_HARMONIC:
+            best, best_cost = c, cost
     report("intensity fit", 0.7)
 
     if best is not None and not fits_to_noise(best, best_cost):
@@ -452,15 +451,14 @@ def fit_intensity(
     resid = cols_fit @ lin - values
     ne = model.e.shape[1]
     b_fit = model.e @ lin[ne:2 * ne]
-    residual_rms = float(np.sqrt(np.mean(resid**2))
-                         / max(_modulation_rms(values, x_all, y_all, coef), 1e-9))
+    modulation_rms = max(_modulation_rms(values, x_all, y_all, coef, model), 1e-9)
+    residual_rms = float(np.sqrt(np.mean(resid**2)) / modulation_rms)
     prior_misfit = math.nan
-    if prior is not None:
-        pc = _projected(prior, n_terms)
-        if pc is not None:
-            pc = _piston_and_tilt(model, pc)
-            prior_misfit = float(np.sqrt(np.mean(model.residual(pc) ** 2))
-                                 / max(_modulation_rms(values, x_all, y_all, pc), 1e-9))
+    pc = _projected(prior, n_terms) if prior is not None else None
+    if pc is not None:
+        pc = _piston_and_tilt(model, pc)
+        prior_misfit = float(np.sqrt(np.mean(model.residual(pc) ** 2))
+                             / max(_modulation_rms(values, x_all, y_all, pc, model), 1e-9))
     report("intensity fit", 0.9)
 
     # 4. contrast, sign, maps
@@ -492,9 +490,9 @@ def fit_intensity(
         want_negative = (ring_sign == "convex") != bool(invert)
         if (coef[3] < 0) != want_negative:
             coef = -coef
-    expected = _expected_misfit(noise, values, x_all, y_all, coef)
+    expected = _expected_misfit(noise, values, x_all, y_all, coef, model)
     if float(np.sqrt(np.mean(resid**2))) > 1.5 * expected:
-        allowed = 1.5 * expected / max(_modulation_rms(values, x_all, y_all, coef), 1e-9)
+        allowed = 1.5 * expected / modulation_rms
         warnings.append(
             f"the fringe model fits the photo loosely (misfit {residual_rms:.2f} of the "
             f"fringe modulation, the noise allows {allowed:.2f}): the phase found may be "
@@ -577,7 +575,7 @@ def _noise_level(data: np.ndarray, inside: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(vals - np.median(vals))) / math.sqrt(9.0 / 8.0))
 
 
-def _expected_misfit(noise: float, data, x, y, c) -> float:
+def _expected_misfit(noise: float, data, x, y, c, model: _Model | None = None) -> float:
     """The misfit a right fit leaves: the noise, and 2 % of the modulation for the
     camera's tone curve and terms beyond the fit.
 
@@ -585,13 +583,15 @@ def _expected_misfit(noise: float, data, x, y, c) -> float:
     on a wrong phase can swell its modulation and background until they cancel, and its
     misfit must not then pass for noise.
     """
-    return 1.5 * math.hypot(noise, 0.02 * _modulation_rms(data, x, y, c))
+    return 1.5 * math.hypot(noise, 0.02 * _modulation_rms(data, x, y, c, model))
 
 
-def _modulation_rms(data, x, y, c) -> float:
+def _modulation_rms(data, x, y, c, model: _Model | None = None) -> float:
     """RMS of the fitted fringe modulation ``b``, at most twice the data's spread (an
-    even modulation ``b`` alone gives the data a spread of ``b / sqrt 2``)."""
-    model = _Model(data, x, y, c.size)
+    even modulation ``b`` alone gives the data a spread of ``b / sqrt 2``). ``model``:
+    the intensity model over those pixels with ``c.size`` terms, if already made."""
+    if model is None:
+        model = _Model(data, x, y, c.size)
     _, _, lin = model.linear(c)
     ne = model.e.shape[1]
     b_rms = float(np.sqrt(np.mean((model.e @ lin[ne:2 * ne]) ** 2)))
