@@ -31,11 +31,15 @@ from tests.refset.score import FIGURES, score
 SEEDS = {
     0: "JPEG, Gaussian edge, gamma tone, 15 fringes",
     4: "16-bit PNG, hard edge, visibility 0.41, 36 fringes, a zonal ring",
+    7: "16-bit PNG, hard edge, speckle 0.45, 19 fringes, Noll 56 (n 10, m 0) at 4.6 nm, "
+       "15 nm at the rim: B read 45.0 nm against 58.4 and C 20.2 against 30.6 while the "
+       "demodulation's phase model stopped at radial order 8",
     9: "16-bit TIFF, rolled edge, Noll terms to 45, turned edge and ripple",
     14: "JPEG, visibility 0.35, 38 fringes, a zonal ring",
     16: "JPEG, linear edge, a bump, a turned-up edge 0.17 of the radius wide and a "
         "ripple: C read 5.0 nm against 12.6 while the filtered map's fit stopped at "
-        "radial order 8",
+        "radial order 8, and 26.0 when the demodulation's phase model always went to "
+        "order 10 (it overshoots past the last pixels it was fitted to)",
     18: "PNG, hard edge, laser speckle 0.17, Noll terms to 43",
     20: "16-bit PNG, 13 fringes, speckle 0.25",
     21: "16-bit PNG, hard edge, 15 fringes, Noll 66 (n 10) at the rim: B read 119.8 nm "

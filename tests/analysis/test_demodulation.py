@@ -277,3 +277,33 @@ def test_the_last_pass_puts_the_residual_on_the_full_grid_where_it_was_found():
     out = _referenced_to_residual(c2, usable, step, full, local_fit)
     assert np.allclose(np.angle(out * np.exp(-1j * true_m)), 0.0, atol=1e-5)
     assert np.allclose(np.abs(out), 0.5)
+
+
+def test_the_rim_misfit_is_what_a_phase_error_leaves_in_the_fringes():
+    # fringes cos(Phi + r) compared with those a local fit predicts (background 0,
+    # amplitude 1, residual phase r + e): the mean of (cos a - cos(a + e))^2 over a
+    # uniformly spread a is 1 - cos e (trigonometric identity), and the mean square
+    # fringe is 1/2, so the misfit is 2 (1 - cos e); with the true residual, about 0
+    from flatsight.analysis.demodulation import _fringe_misfit
+
+    step, m = 4, 40
+    full = (step * m, step * m)
+    rows, cols = np.mgrid[0:full[0], 0:full[1]].astype(float)
+    reference = 2 * np.pi * (0.23 * cols + 0.07 * rows)  # carrier, about 4 px a fringe
+    true = 0.8 * np.sin(rows / 40.0) + 0.3 * (cols / full[1]) ** 2
+    data = np.cos(reference + true)
+    band = np.zeros(full, bool)
+    band[:, 100:] = True
+    level = np.zeros((m, m))
+    usable = np.ones((m, m), bool)
+    true_m = true[::step, ::step]
+    right = _fringe_misfit(0.5 * np.exp(1j * true_m), data, band, reference, level,
+                           usable, step)
+    assert right < 1e-3
+    for e in (0.1, 0.3):
+        wrong = _fringe_misfit(0.5 * np.exp(1j * (true_m + e)), data, band, reference,
+                               level, usable, step)
+        assert wrong == pytest.approx(2 * (1 - np.cos(e)), rel=0.05)
+    # a band with nothing in it gives no comparison
+    assert np.isnan(_fringe_misfit(0.5 * np.exp(1j * true_m), data, np.zeros(full, bool),
+                                   reference, level, usable, step))
