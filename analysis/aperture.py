@@ -11,7 +11,7 @@ from scipy.optimize import least_squares
 from skimage.filters import threshold_otsu
 from skimage.measure import label
 
-from .errors import SettingsError, UnanalysablePhotoError
+from .errors import PartCutByFrameError, SettingsError, UnanalysablePhotoError
 from .shapes import Ellipse, Shape
 
 __all__ = ["Aperture", "Exclusion", "find_aperture"]
@@ -252,8 +252,9 @@ def find_aperture(image: np.ndarray, *, surround: str | None = None,
     return Aperture(factor * cx + offset, factor * cy + offset, factor * radius)
 
 
-def _refuse(photo_name: str, why: str) -> None:
-    raise UnanalysablePhotoError(
+def _refuse(photo_name: str, why: str,
+            error: type[UnanalysablePhotoError] = UnanalysablePhotoError) -> None:
+    raise error(
         f"no illuminated circular aperture found in {photo_name}: {why}; check the photo, "
         "or give the aperture by hand with --aperture X,Y,R (pixels)")
 
@@ -449,7 +450,7 @@ def _check_inside_frame(shape, cx, cy, radius, photo_name, most):
     out = (x < -0.5) | (x > cols - 0.5) | (y < -0.5) | (y > rows - 0.5)
     if out.mean() > most:
         _refuse(photo_name, f"{100 * out.mean():.0f} % of the disk's rim lies outside the photo "
-                "(the flat is cut by the frame)")
+                "(the flat is cut by the frame)", PartCutByFrameError)
 
 
 def _refine(work, carrier, sideband, box, guess, period, tone, photo_name):

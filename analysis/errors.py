@@ -23,6 +23,14 @@ class RingSignNeededError(UnanalysablePhotoError):
     """
 
 
+class PartCutByFrameError(UnanalysablePhotoError):
+    """Too much of a round part's rim lies outside the photo: the frame cuts the part.
+
+    Not a photo of too few fringes, so no other way of finding the part (its lit disk)
+    is tried in its place: the part must be photographed whole, or its aperture given.
+    """
+
+
 class SettingsError(FlatsightError):
     """A setting is out of range or inconsistent (a wavelength of -5 nm, a bad aperture)."""
 

@@ -61,6 +61,7 @@ def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo") -> A
         When neither the circle finder nor the outline finds the part (the circle
         finder's message, which says how to give the aperture by hand).
     """
+    frame = np.shape(image)[:2]
     try:
         circle = find_aperture(image, photo_name=photo_name)
     except UnanalysablePhotoError as refusal:
@@ -68,13 +69,17 @@ def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo") -> A
             found = _outline(image)
         except UnanalysablePhotoError:
             raise refusal from None
-        if found.shape is None:  # round after all: the circle finder's refusal stands
+        # round after all, or a round part whose only "flats" are the photo's frame
+        # cutting it: the circle finder's refusal (too much of the rim outside) stands
+        if found.shape is None or _flats_off_frame(found.shape, frame) == ():
             raise
         return _with_hole(Aperture.of_shape(found.shape), found.hole)
     try:
         found = _outline(image)
     except UnanalysablePhotoError:
         return circle
+    if isinstance(found.shape, CutCircle) and _flats_off_frame(found.shape, frame) == ():
+        found = replace(found, shape=None)  # the frame cuts the rim; the part is round
     if found.shape is None:
         return _with_bites(_with_hole(circle, found.hole), found, image)
     if isinstance(found.shape, CutCircle):
@@ -87,6 +92,33 @@ def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo") -> A
     if float(np.median(off)) <= 2.0 * found.miss_px:
         return _with_bites(_with_hole(circle, found.hole), found, image)
     return _with_hole(Aperture.of_shape(found.shape), found.hole)
+
+
+# A flat this close (px) to the photo's border, and this close (degrees) to square with
+# it, is the frame cutting the part, not a flat ground on it: the two cannot be told
+# apart, and a round part photographed past the frame is far the likelier.
+_FRAME_PX = 2.0
+_FRAME_DEG = 1.0
+
+
+def _flats_off_frame(shape: Shape, frame: tuple[int, int]) -> tuple | None:
+    """A cut circle's flats that do not lie along the photo's frame (``frame``: rows,
+    columns); None for any other outline."""
+    if not isinstance(shape, CutCircle):
+        return None
+    rows, cols = frame
+    kept = []
+    for angle, dist in shape.flats:
+        # the flat's line (outward normal (cos a, sin a), y up) and the frame's four
+        # sides, each as an outward normal and the side's place (pixel centres from 0)
+        sides = ((0.0, cols - 0.5 - shape.center_x_px), (180.0, shape.center_x_px + 0.5),
+                 (90.0, shape.center_y_px + 0.5), (270.0, rows - 0.5 - shape.center_y_px))
+        on_frame = any(
+            abs((angle - side + 180.0) % 360.0 - 180.0) <= _FRAME_DEG
+            and abs(dist - place) <= _FRAME_PX for side, place in sides)
+        if not on_frame:
+            kept.append((angle, dist))
+    return tuple(kept)
 
 
 def _on_circle(cut: CutCircle, circle: Aperture) -> CutCircle:

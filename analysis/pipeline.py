@@ -13,7 +13,7 @@ import numpy as np
 
 from .aperture import Aperture, Exclusion
 from .demodulation import MapGeometry, Spectrum
-from .errors import SettingsError, UnanalysablePhotoError
+from .errors import PartCutByFrameError, SettingsError, UnanalysablePhotoError
 from .figures import PISTON_TILT, Figures, MapFigures, compute_figures, prepare_map
 from .unwrapping import phase_to_height_nm
 from .zernike import ZernikeFit, aperture_basis, fit_zernike
@@ -241,8 +241,10 @@ def measure(
     else:
         try:
             aperture = find_part_aperture(image, photo_name=name)
-        except UnanalysablePhotoError:
-            if settings.method == "carrier":
+        except UnanalysablePhotoError as refusal:
+            # a part cut by the frame is refused whatever its fringes: its lit disk would
+            # be the frame's cut as much as the part's edge
+            if settings.method == "carrier" or isinstance(refusal, PartCutByFrameError):
                 raise
             # too few fringes for the contrast finder's carrier: the lit disk by its light
             aperture = find_lit_disk(image, photo_name=name)

@@ -161,3 +161,68 @@ def test_an_unchipped_rim_leaves_nothing_out():
     m = measure(photo.pixels, MeasureSettings(wavelength_nm=photo.wavelength_nm))
     assert m.aperture.exclusions == ()
     assert not any("left out" in w for w in m.warnings)
+
+
+def _cut_by_frame(rim_outside: float, surround: str) -> tuple:
+    """A round part whose top runs ``rim_outside`` of its rim past the photo's frame
+    (the arc above the top row spans that share of the circle)."""
+    from tests.refset.photo import render
+
+    radius = 280.0
+    cy = radius * math.cos(math.pi * rim_outside) - 0.5  # the frame's edge at y = -0.5
+    surface = RefSurface(zernike_nm={4: -40.0, 5: -10.0, 6: -60.0})
+    photo = render(surface, shape=(620, 800), center_px=(402.3, cy), radius_px=radius,
+                   fringes=18.0, angle_deg=124.0, wavelength_nm=546.07, visibility=0.84,
+                   level=0.4, noise=0.002, illumination=0.12, tone="linear",
+                   edge="rolled", edge_width_px=12.0, surround=surround, seed=801)
+    return photo, photo.pixels.astype(np.float64) / 255.0
+
+
+@pytest.mark.parametrize("surround", ["grey", "dark"])
+def test_a_part_cut_by_the_frame_is_refused_not_read_as_a_flat(surround):
+    # 7 % of the rim past the top of the photo: more than the circle finder takes (5 %).
+    # The outline saw the frame's straight cut as a flat ground on the part (a grey
+    # surround as bright as the flat: a cut circle 2.8 % too large, power read 10 %
+    # high), and the lit disk by its light put the centre 30 px off; both without a
+    # warning. It must be refused, with the way out (the aperture by hand) in one line.
+    from flatsight.analysis.errors import PartCutByFrameError
+    from flatsight.analysis.pipeline import MeasureSettings, measure
+
+    photo, pixels = _cut_by_frame(0.07, surround)
+    with pytest.raises(PartCutByFrameError, match="--aperture"):
+        measure(pixels, MeasureSettings(wavelength_nm=photo.wavelength_nm))
+
+
+def test_a_part_cut_by_the_frame_is_measured_with_its_aperture_given():
+    # the same part with its aperture given: the pixels past the frame are left out, and
+    # the figures (truth by quadrature over the disk, tests/refset/surface.py) hold to
+    # the accuracy issue's limits
+    from flatsight.analysis.aperture import Aperture
+    from flatsight.analysis.pipeline import MeasureSettings, measure
+
+    from tests.refset.surface import truth
+
+    photo, pixels = _cut_by_frame(0.07, "grey")
+    cx, cy = photo.center_px
+    m = measure(pixels, MeasureSettings(wavelength_nm=photo.wavelength_nm,
+                                        aperture=Aperture(cx, cy, photo.radius_px)))
+    t = truth(photo.surface, photo.wavelength_nm)
+    assert m.figures.power_nm == pytest.approx(t["power_nm"],
+                                               abs=max(1.0, 0.02 * abs(t["power_nm"])))
+    assert m.figures.rms_nm == pytest.approx(t["rms_nm"], abs=max(1.0, 0.02 * t["rms_nm"]))
+    assert m.figures.irregularity_nm == pytest.approx(
+        t["irregularity_nm"], abs=max(4.0, 0.05 * t["irregularity_nm"]))
+
+
+def test_a_rim_a_little_past_the_frame_stays_a_circle():
+    # 3 % of the rim past the frame, within what the circle finder takes: the frame's
+    # cut is not a flat on the part, so the aperture stays round (no cut circle) and sits
+    # where the part is
+    from flatsight.analysis.outline import find_part_aperture
+
+    photo, pixels = _cut_by_frame(0.03, "grey")
+    a = find_part_aperture(pixels)
+    assert a.kind == "circle"
+    cx, cy = photo.center_px
+    assert math.hypot(a.center_x_px - cx, a.center_y_px - cy) < 0.005 * photo.radius_px
+    assert abs(a.radius_px / photo.radius_px - 1.0) < 0.005
