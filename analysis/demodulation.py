@@ -594,15 +594,20 @@ def demodulate(
         return fit.fringe
 
     def second_pass(model_coef: np.ndarray, f_min: float, *, steps: float, share: float,
-                    window_from_model: bool = True
-                    ) -> tuple[np.ndarray, np.ndarray, float, float]:
+                    window_from_model: bool = True, first: np.ndarray | None = None
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float, float]:
         """The local fit against carrier + model, the model refitted from it up to
-        ``refinements`` times; then, on a round part, the last pass. Returns the fringe,
-        the model, the slowest fringes and the window's radius (cycles per aperture)."""
+        ``refinements`` times; then, on a round part, the last pass. ``first``: the
+        fringe the first fit would give (already found against the same model and
+        window). Returns the fringe, the fringe before the last pass, the model, the
+        slowest fringes and the window's radius (cycles per aperture)."""
         for it in range(refinements + 1):
             check_cancel(cancel)
             w2_cpa = float(np.clip(W2_FRACTION * f_min, 2.0, W2_FRACTION * fringes))
-            c2 = referenced(model_coef, w2_cpa * bins_per_cpa)
+            if it == 0 and first is not None:
+                c2 = first
+            else:
+                c2 = referenced(model_coef, w2_cpa * bins_per_cpa)
             report("second pass", steps + share * (it + 1) / (refinements + 1))
             if it == refinements:
                 break
@@ -628,15 +633,16 @@ def demodulate(
         # (tests/refset, where B's worst errors are at the rim) it took B's misses from 5
         # to 4 of 60 and of 40 held out; on other outlines (tests/refset/shaped.py, held
         # out) B lost 4 of 150 photos and PVr 2, at the corners, so it is left out there.
+        before_last = c2
         if aperture.shape is None:
             c2 = _referenced_to_residual(
                 c2, disk & ~speck_m, step, (ny, nx),
                 lambda extra: referenced(None, w2_cpa * bins_per_cpa, extra))
-        return c2, model_coef, f_min, w2_cpa
+        return c2, before_last, model_coef, f_min, w2_cpa
 
     round_part = aperture.shape is None
-    c2, model_coef, f_min, w2_cpa = second_pass(model_coef, f_min, steps=0.0,
-                                                share=0.5 if round_part else 1.0)
+    c2, before_last, model_coef, f_min, w2_cpa = second_pass(
+        model_coef, f_min, steps=0.0, share=0.5 if round_part else 1.0)
     # The model to radial order 8 leaves finer terms to the window, which passes them
     # only in part at the rim (a Noll 56 of 4.6 nm read 32 % low at 19 fringes); to order
     # 10 it carries them whole, but where the rim holds what no polynomial follows (a
@@ -653,8 +659,10 @@ def demodulate(
                                 disk & ~speck_m, step)
         richer = np.zeros(RIM_MODEL_TERMS)
         richer[:model_coef.size] = model_coef
-        c2_r, model_r, _, _ = second_pass(richer, f_min, steps=0.5, share=0.5,
-                                          window_from_model=False)
+        # its first fit is the order-8 model's last (the terms beyond are zero, the
+        # window the same), so it starts from that fringe
+        c2_r, _, model_r, _, _ = second_pass(richer, f_min, steps=0.5, share=0.5,
+                                             window_from_model=False, first=before_last)
         misfit_r = _fringe_misfit(c2_r, fit_data, rim, carrier_phase + psi_full, level,
                                   disk & ~speck_m, step)
         if misfit_r <= RIM_MISFIT_GAIN * misfit:
