@@ -651,12 +651,12 @@ def demodulate(
     # photo's own in the rim band, and the richer model kept only where it fits them
     # better. The window stays the one the order-8 model chose, so the resolution is
     # the same either way.
-    if round_part:
+    rim = (weight > 0) & (rho >= RIM_BAND)
+    misfit = (_fringe_misfit(c2, fit_data, rim, carrier_phase + psi_full, level,
+                             disk & ~speck_m, step) if round_part else math.nan)
+    if math.isfinite(misfit):  # a round part with a rim to judge by
         kept = (c2, model_coef, psi_full.copy(), support.copy(), level.copy(),
                 phase_gain.copy())
-        rim = (weight > 0) & (rho >= RIM_BAND)
-        misfit = _fringe_misfit(c2, fit_data, rim, carrier_phase + psi_full, level,
-                                disk & ~speck_m, step)
         richer = np.zeros(RIM_MODEL_TERMS)
         richer[:model_coef.size] = model_coef
         # its first fit is the order-8 model's last (the terms beyond are zero, the
@@ -670,6 +670,7 @@ def demodulate(
         else:
             c2, model_coef = kept[0], kept[1]
             psi_full[...], support[...], level[...], phase_gain[...] = kept[2:]
+    report("second pass", 1.0)
     if f_min < 0.35 * fringes:
         warnings.append(
             f"fringes nearly close somewhere on the aperture ({f_min:.1f} fringes per "

@@ -71,14 +71,14 @@ def find_part_aperture(image: np.ndarray, *, photo_name: str = "the photo") -> A
             raise refusal from None
         # round after all, or a round part whose only "flats" are the photo's frame
         # cutting it: the circle finder's refusal (too much of the rim outside) stands
-        if found.shape is None or _flats_off_frame(found.shape, frame) == ():
+        if found.shape is None or _cut_only_by_frame(found.shape, frame):
             raise
         return _with_hole(Aperture.of_shape(found.shape), found.hole)
     try:
         found = _outline(image)
     except UnanalysablePhotoError:
         return circle
-    if isinstance(found.shape, CutCircle) and _flats_off_frame(found.shape, frame) == ():
+    if _cut_only_by_frame(found.shape, frame):
         found = replace(found, shape=None)  # the frame cuts the rim; the part is round
     if found.shape is None:
         return _with_bites(_with_hole(circle, found.hole), found, image)
@@ -101,24 +101,20 @@ _FRAME_PX = 2.0
 _FRAME_DEG = 1.0
 
 
-def _flats_off_frame(shape: Shape, frame: tuple[int, int]) -> tuple | None:
-    """A cut circle's flats that do not lie along the photo's frame (``frame``: rows,
-    columns); None for any other outline."""
+def _cut_only_by_frame(shape: Shape | None, frame: tuple[int, int]) -> bool:
+    """Whether ``shape`` is a cut circle whose every flat lies along the photo's frame
+    (``frame``: rows, columns): a round part the frame cuts, not flats on the part."""
     if not isinstance(shape, CutCircle):
-        return None
+        return False
     rows, cols = frame
-    kept = []
-    for angle, dist in shape.flats:
-        # the flat's line (outward normal (cos a, sin a), y up) and the frame's four
-        # sides, each as an outward normal and the side's place (pixel centres from 0)
-        sides = ((0.0, cols - 0.5 - shape.center_x_px), (180.0, shape.center_x_px + 0.5),
-                 (90.0, shape.center_y_px + 0.5), (270.0, rows - 0.5 - shape.center_y_px))
-        on_frame = any(
-            abs((angle - side + 180.0) % 360.0 - 180.0) <= _FRAME_DEG
+    # the frame's four sides, each as an outward normal (degrees, y up) and its distance
+    # from the circle's centre (pixel centres from 0, the frame's edge half a pixel out)
+    sides = ((0.0, cols - 0.5 - shape.center_x_px), (180.0, shape.center_x_px + 0.5),
+             (90.0, shape.center_y_px + 0.5), (270.0, rows - 0.5 - shape.center_y_px))
+    return all(
+        any(abs((angle - side + 180.0) % 360.0 - 180.0) <= _FRAME_DEG
             and abs(dist - place) <= _FRAME_PX for side, place in sides)
-        if not on_frame:
-            kept.append((angle, dist))
-    return tuple(kept)
+        for angle, dist in shape.flats)
 
 
 def _on_circle(cut: CutCircle, circle: Aperture) -> CutCircle:
