@@ -42,7 +42,15 @@ from scipy import ndimage
 from scipy.interpolate import RectBivariateSpline
 
 from .aperture import Aperture
-from .carrier import Carrier, Spectrum, crop_aperture, find_carrier, radius_grid, spectrum_view
+from .carrier import (
+    Carrier,
+    Spectrum,
+    crop_aperture,
+    find_carrier,
+    radius_grid,
+    sideband_centroid,
+    spectrum_view,
+)
 from .errors import UnanalysablePhotoError
 from .extension import (
     WORKERS,
@@ -448,6 +456,9 @@ def demodulate(
     start = np.where(known, data, data[known].mean()).astype(np.float32)
     mag = np.abs(sfft.rfft2(start - data[known].mean(), workers=WORKERS))
     u, v, conc, _ = find_carrier(mag, min_radius_bins=MIN_FRINGES * bins_per_cpa, full=False)
+    # the sideband's power centroid, not its highest bin: the band masks, the speck
+    # finder and the first pass's window are centred on it (sideband_centroid)
+    u, v = sideband_centroid(mag, u, v)
     f0_bins = math.hypot(u, v)
     fringes = f0_bins / bins_per_cpa
     report("carrier", 1.0)
@@ -553,11 +564,12 @@ def demodulate(
         spline = RectBivariateSpline(ys_c, xs_c, coarse, kx=3, ky=3)
         return np.where(region, spline(np.arange(ny), np.arange(nx)), 0.0)
 
-    # on a circle the rings' percentiles read the envelope; an outline with long straight
-    # sides needs the first pass's phase, as fringes may run along a whole side
+    # the rings' mean is fitted against the first pass's phase (a tone curve moves the
+    # percentiles' midpoint where the light fades); their half-amplitude too on an
+    # outline with long straight sides, as fringes may run along a whole side
     env_mean, env_half = fringe_envelope(
         data, rho, weight > 0, ring_width=0.5 / r_b,
-        phase=None if aperture.shape is None else carrier_phase + model_phase(model_coef))
+        phase=carrier_phase + model_phase(model_coef), half_by_phase=aperture.shape is not None)
     fit_data = ((data - env_mean) / env_half).astype(np.float32)
     m = size // step
     rho_m = rho[::step, ::step][:m, :m]

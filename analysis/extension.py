@@ -108,7 +108,7 @@ def find_specks(data: np.ndarray, filled: np.ndarray, band: np.ndarray, known: n
 
 def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
                     *, inner: float = 0.85, ring_width: float = 0.01,
-                    phase: np.ndarray | None = None
+                    phase: np.ndarray | None = None, half_by_phase: bool = True
                     ) -> tuple[np.ndarray, np.ndarray]:
     """The fringes' local mean and half-amplitude, following the aperture's soft edge.
 
@@ -121,12 +121,21 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
     the rim, so the local fit no longer rings against a fading edge. ``ring_width``
     (in units of the radius) should be under a pixel.
 
-    Where fringes run along a long straight stretch of the outline (a rectangle's side
-    parallel to them), a ring's pixels there all sit at one phase, and its percentiles
-    would follow the fringes rather than the light. Given the fringes' ``phase`` (the
-    carrier plus a first phase model, radians), each ring is instead fitted by least
-    squares with ``m + p cos(phase) + q sin(phase)``: the mean is ``m`` and the
-    half-amplitude ``hypot(p, q)``, whatever share of the ring crosses the fringes.
+    Given the fringes' ``phase`` (the carrier plus a first phase model, radians), each
+    ring is also fitted by least squares with ``m + p cos(phase) + q sin(phase)``, and
+    the mean is ``m``, the fringes' own mean (their zero-order term), whatever share of
+    the ring crosses the fringes. The percentiles' midpoint is that mean only for a
+    fringe symmetric about it: through a camera's tone curve (sRGB, gamma) it is not,
+    and its offset from the mean changes where the light fades at the edge (by a
+    quarter of the fringe's half-amplitude over the last 3 % of the radius on a 16-bit
+    sRGB photo, tests/refset seed 620). Where the fringes run along the rim that
+    offset is a slope across them, which the local fit takes for phase. With
+    ``half_by_phase`` the half-amplitude is ``hypot(p, q)`` too: needed where fringes
+    run along a long straight stretch of the outline (a rectangle's side parallel to
+    them), whose rings' pixels all sit at one phase, so their percentiles follow the
+    fringes rather than the light. Otherwise it stays the percentiles', which under
+    laser speckle also hold the speckle's spread, so the normalised fringe fades
+    where the fringes do and the local fit leans on the pixels that carry them.
 
     Returns
     -------
@@ -155,9 +164,12 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
     sel_r = known & (rho >= lo_r) & (rho < 1.0 + width)
     ring_of = ((rho[sel_r] - lo_r) / width).astype(np.int64)
     values = q[sel_r]
+    by_phase = None
     if phase is not None:
-        return _envelope_by_phase(q, rho, sel, sel_r, ring_of, phase[sel_r], illum,
-                                  inner=inner, lo_r=lo_r, width=width)
+        by_phase = _envelope_by_phase(q, rho, sel, sel_r, ring_of, phase[sel_r], illum,
+                                      inner=inner, lo_r=lo_r, width=width)
+        if half_by_phase:
+            return by_phase
     order = np.lexsort((values, ring_of))
     ring_sorted, v_sorted = ring_of[order], values[order]
     rings, starts, counts = np.unique(ring_sorted, return_index=True, return_counts=True)
@@ -173,7 +185,7 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
 
     upper, lower = percentile(95), percentile(5)
     if len(centres) < 4:
-        mean = illum * np.median(q[sel])
+        mean = illum * np.median(q[sel]) if by_phase is None else by_phase[0]
         return mean, 0.5 * (np.percentile(q[sel], 95) - np.percentile(q[sel], 5)) * illum
     centres = np.asarray(centres)
     upper, lower = np.asarray(upper), np.asarray(lower)
@@ -186,7 +198,7 @@ def fringe_envelope(data: np.ndarray, rho: np.ndarray, known: np.ndarray,
     lo = np.interp(r, centres, lower)
     up = np.where(rho < inner, up0, up)
     lo = np.where(rho < inner, lo0, lo)
-    mean = 0.5 * (up + lo) * illum
+    mean = 0.5 * (up + lo) * illum if by_phase is None else by_phase[0]
     half = np.maximum(0.5 * (up - lo), 1e-3 * (up0 - lo0)) * illum
     return mean, half
 
