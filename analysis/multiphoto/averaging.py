@@ -72,7 +72,8 @@ def grid_geometry(aperture: Aperture, size: int):
     )
 
 
-def resample_to_unit_disk(measurement, *, size: int) -> tuple[np.ndarray, np.ndarray]:
+def resample_to_unit_disk(measurement, *, size: int, values: np.ndarray | None = None
+                          ) -> tuple[np.ndarray, np.ndarray]:
     """A measurement's height map on :func:`unit_grid` of its own aperture.
 
     Bilinear interpolation (``scipy.ndimage.map_coordinates``) of the heights and of
@@ -80,6 +81,9 @@ def resample_to_unit_disk(measurement, *, size: int) -> tuple[np.ndarray, np.nda
     to a hole or the rim keep the heights of their measured neighbours only. A grid
     pixel counts as measured when at least half its interpolation weight fell on
     measured pixels and it lies in the unit disk.
+
+    ``values``: another map on the measurement's grid to carry the same way instead of
+    its heights (its height standard deviation, for one).
 
     Returns
     -------
@@ -92,8 +96,10 @@ def resample_to_unit_disk(measurement, *, size: int) -> tuple[np.ndarray, np.nda
     xu, yu = unit_grid(size)
     cols = (ap.center_x_px + xu * ap.radius_px - geo.origin_x_px) / geo.step_px
     rows = (ap.center_y_px - yu * ap.radius_px - geo.origin_y_px) / geo.step_px
-    valid_src = np.asarray(measurement.valid, bool) & np.isfinite(measurement.height_nm)
-    filled = np.where(valid_src, measurement.height_nm, 0.0)
+    source = measurement.height_nm if values is None else values
+    valid_src = (np.asarray(measurement.valid, bool) & np.isfinite(measurement.height_nm)
+                 & np.isfinite(source))
+    filled = np.where(valid_src, source, 0.0)
     coords = np.stack([rows, cols])
     num = ndimage.map_coordinates(filled, coords, order=1, mode="constant", cval=0.0)
     weight = ndimage.map_coordinates(
@@ -103,6 +109,23 @@ def resample_to_unit_disk(measurement, *, size: int) -> tuple[np.ndarray, np.nda
     height = np.full((size, size), np.nan)
     height[valid] = num[valid] / weight[valid]
     return height, valid
+
+
+def _mean_sigma(ms, stack, count, enough, size) -> np.ndarray | None:
+    """The averaged map's standard deviation from each photo's own: the root sum of
+    squares of those that measured a pixel over their count (their noise independent,
+    as speckle and camera noise are between photos). None when a photo has none."""
+    if any(m.height_sigma_nm is None for m in ms):
+        return None
+    total = np.zeros((size, size))
+    for m, heights in zip(ms, stack, strict=True):
+        sigma, ok = resample_to_unit_disk(m, size=size, values=m.height_sigma_nm)
+        used = np.isfinite(heights)
+        if np.any(used & ~ok):  # measured but without a sigma: nothing honest to say
+            return None
+        total += np.where(used, sigma, 0.0) ** 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(enough, np.sqrt(total) / np.maximum(count, 1), np.nan)
 
 
 def _remove_piston_tilt(
@@ -296,6 +319,15 @@ def average_measurements(
     standard_error = np.where(two, spread / np.sqrt(np.maximum(count, 1)), np.nan)
 
     first = ms[0].aperture
+    # each photo had its own carrier and visibility; the average has none of its own
+    quality_fields = {"per_photo": tuple(m.quality for m in ms), "photos": len(ms)}
+    # it resolves what the coarsest photo's window passed: its figures are taken over the
+    # map smoothed at that resolution, as each photo's were (unsmoothed, the noise left
+    # in the average's finest detail would lift its PV and B above every photo's own)
+    windows = [m.quality.resolution_cycles_per_aperture for m in ms]
+    windows = [w for w in windows if math.isfinite(w) and w > 0]
+    if windows:
+        quality_fields["resolution_cycles_per_aperture"] = min(windows)
     averaged = measurement_from_height(
         mean,
         enough,
@@ -304,9 +336,9 @@ def average_measurements(
         geometry=grid_geometry(first, size),
         settings=settings,
         photo=f"average of {len(ms)}: " + ", ".join(names),
-        # each photo had its own carrier and visibility; the average has none of its own
-        quality_fields={"per_photo": tuple(m.quality for m in ms), "photos": len(ms)},
+        quality_fields=quality_fields,
         warnings=warnings,
+        height_sigma_nm=_mean_sigma(ms, stack, count, enough, size),
     )
     fig_spread = {}
     fig_se = {}
