@@ -210,6 +210,7 @@ def sideband_centroid(spectrum_mag: np.ndarray, u: float, v: float, *,
     power = spectrum_mag.astype(np.float64) ** 2
     fu = sfft.fftfreq(ny, 1.0 / ny)[:, None]
     fv = sfft.rfftfreq(nx, 1.0 / nx)[None, :]
+    power_u, power_v = power * fu, power * fv  # the centroid's moments, bin by bin
     cu, cv = float(u), float(v)
     for _ in range(iterations):
         radius = 0.5 * math.hypot(cu, cv)
@@ -221,8 +222,8 @@ def sideband_centroid(spectrum_mag: np.ndarray, u: float, v: float, *,
         total = float(power[near].sum() + power[mirror].sum())
         if not total > 0:
             break
-        nu = (float((power * fu)[near].sum()) - float((power * fu)[mirror].sum())) / total
-        nv = (float((power * fv)[near].sum()) - float((power * fv)[mirror].sum())) / total
+        nu = (float(power_u[near].sum()) - float(power_u[mirror].sum())) / total
+        nv = (float(power_v[near].sum()) - float(power_v[mirror].sum())) / total
         moved = math.hypot(nu - cu, nv - cv)
         cu, cv = nu, nv
         if moved < 0.05:

@@ -567,9 +567,11 @@ def demodulate(
     # the rings' mean is fitted against the first pass's phase (a tone curve moves the
     # percentiles' midpoint where the light fades); their half-amplitude too on an
     # outline with long straight sides, as fringes may run along a whole side
+    # (the second pass's first fit is against the same model: its phase is kept for it)
+    first_model, first_psi = model_coef, model_phase(model_coef)
     env_mean, env_half = fringe_envelope(
         data, rho, weight > 0, ring_width=0.5 / r_b,
-        phase=carrier_phase + model_phase(model_coef), half_by_phase=aperture.shape is not None)
+        phase=carrier_phase + first_psi, half_by_phase=aperture.shape is not None)
     fit_data = ((data - env_mean) / env_half).astype(np.float32)
     m = size // step
     rho_m = rho[::step, ::step][:m, :m]
@@ -593,7 +595,7 @@ def demodulate(
         """The local fit (``local_fit``) against the carrier plus the phase model
         (``None``: the model of the last call), plus ``extra`` radians if given."""
         if model is not None:
-            psi_full[...] = model_phase(model)
+            psi_full[...] = first_psi if model is first_model else model_phase(model)
         reference = carrier_phase + psi_full
         if extra is not None:
             reference += extra

@@ -111,13 +111,14 @@ def resample_to_unit_disk(measurement, *, size: int, values: np.ndarray | None =
     return height, valid
 
 
-def _mean_sigma(ms, stack, count, enough, size) -> np.ndarray | None:
+def _mean_sigma(ms, stack, count, enough) -> np.ndarray | None:
     """The averaged map's standard deviation from each photo's own: the root sum of
     squares of those that measured a pixel over their count (their noise independent,
     as speckle and camera noise are between photos). None when a photo has none."""
     if any(m.height_sigma_nm is None for m in ms):
         return None
-    total = np.zeros((size, size))
+    size = stack.shape[1]
+    total = np.zeros(stack.shape[1:])
     for m, heights in zip(ms, stack, strict=True):
         sigma, ok = resample_to_unit_disk(m, size=size, values=m.height_sigma_nm)
         used = np.isfinite(heights)
@@ -338,7 +339,7 @@ def average_measurements(
         photo=f"average of {len(ms)}: " + ", ".join(names),
         quality_fields=quality_fields,
         warnings=warnings,
-        height_sigma_nm=_mean_sigma(ms, stack, count, enough, size),
+        height_sigma_nm=_mean_sigma(ms, stack, count, enough),
     )
     fig_spread = {}
     fig_se = {}
