@@ -356,9 +356,12 @@ class MapFigures:
             noise_shape=shape, noise_ceiling_nm=ceiling)
         return prepared.with_noise_measured()
 
-    def perturbed(self, delta_nm: np.ndarray) -> MapFigures:
-        """The same map with ``delta_nm`` (over the disk's pixels) added where measured."""
-        copy = replace(self, measured_nm=self.measured_nm + delta_nm[self.measured])
+    def perturbed(self, delta_nm: np.ndarray, noise_factor: float = 1.0) -> MapFigures:
+        """The same map with ``delta_nm`` (over the disk's pixels) added where measured,
+        its noise then ``noise_factor`` times the map's (PVr's residual takes out the
+        copy's own noise, as the map's takes out the map's)."""
+        copy = replace(self, measured_nm=self.measured_nm + delta_nm[self.measured],
+                       noise_nm=self.noise_nm * noise_factor)
         copy.__dict__["smoothed_weight"] = self.smoothed_weight  # the same pixels
         for shared in ("_radial_fit", "_ring_of_pixel", "_sphere_fit"):  # the same pixels
             copy.__dict__[shared] = getattr(self, shared)
