@@ -633,7 +633,7 @@ def demodulate(
         return fit.fringe
 
     lit_m = (rho_m <= 1.0) & ~speck_m  # the pixels the windowed terms are kept at
-    windowed_memo: dict = {}
+    windowed: list = []  # (radius, terms, seen): the richer passes share one window
 
     def windowed_terms(radius_bins: float) -> tuple[np.ndarray, np.ndarray]:
         """The richest model's terms at ``lit_m``'s pixels, ``(P, J)``, plain and as the
@@ -641,7 +641,7 @@ def demodulate(
         normalised convolution, as the local fit's sums weigh the photo), so that a term
         the one-sided window at the rim rounds off is rounded off here too. A model of
         fewer terms takes the first columns."""
-        if radius_bins not in windowed_memo:
+        if not windowed or windowed[0] != radius_bins:
             f = np.hypot(sfft.fftfreq(m, 1.0 / m)[:, None], sfft.rfftfreq(m, 1.0 / m)[None, :])
             win = flat_top(f, radius_bins, W2_FLAT)
             den = sfft.irfft2(sfft.rfft2(lit_m.astype(np.float32), workers=WORKERS) * win,
@@ -655,9 +655,8 @@ def demodulate(
                 smooth = sfft.irfft2(sfft.rfft2(images[:j1 - j0], workers=WORKERS) * win,
                                      s=(m, m), workers=WORKERS)
                 seen[:, j0:j1] = (smooth[:, lit_m] / np.maximum(den, 1e-6)).T
-            windowed_memo.clear()  # one window at a time
-            windowed_memo[radius_bins] = (terms, seen)
-        return windowed_memo[radius_bins]
+            windowed[:] = [radius_bins, terms, seen]
+        return windowed[1], windowed[2]
 
     def second_pass(model_coef: np.ndarray, f_min: float, *, steps: float, share: float,
                     richer: bool = False, first: np.ndarray | None = None
@@ -755,7 +754,8 @@ def demodulate(
                 phase_gain.copy())
         best, best_misfit = kept, RIM_MISFIT_GAIN * misfit
         for i, n_terms in enumerate((RIM_MODEL_TERMS, RIM_MODEL_TERMS + len(RIM_KNOTS))):
-            psi_full[...], support[...], level[...], phase_gain[...] = kept[2:]
+            if i:  # each candidate starts from the order-8 model's state
+                psi_full[...], support[...], level[...], phase_gain[...] = kept[2:]
             richer = np.zeros(n_terms)
             richer[:model_coef.size] = model_coef
             # its first fit is the order-8 model's last (the terms beyond are zero, the
@@ -764,11 +764,13 @@ def demodulate(
                                                  share=0.25, richer=True, first=before_last)
             misfit_r = _fringe_misfit(c2_r, fit_data, rim, carrier_phase + psi_full, level,
                                       disk & ~speck_m, step)
-            if misfit_r <= best_misfit:
-                best, best_misfit = (c2_r, model_r, psi_full.copy(), support.copy(),
-                                     level.copy(), phase_gain.copy()), misfit_r
+            if misfit_r <= best_misfit:  # the last candidate's state stays where it is
+                state = () if i else (psi_full.copy(), support.copy(), level.copy(),
+                                      phase_gain.copy())
+                best, best_misfit = (c2_r, model_r, *state), misfit_r
         c2, model_coef = best[0], best[1]
-        psi_full[...], support[...], level[...], phase_gain[...] = best[2:]
+        if len(best) > 2:
+            psi_full[...], support[...], level[...], phase_gain[...] = best[2:]
     report("second pass", 1.0)
     if f_min < 0.35 * fringes:
         warnings.append(
